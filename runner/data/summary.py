@@ -1,0 +1,748 @@
+"""Summary tables of a pooled trials table, pilot facts, and the one-call ``write_summary``.
+
+The tables are plain pandas DataFrames so the CLI, the export step and users' scripts can use
+them directly. :func:`write_summary` writes them as CSV, draws the plots (:mod:`runner.data.plots`)
+and builds one self-contained HTML report (:mod:`runner.data.report`).
+
+Conventions used throughout (also in docs/analysis-summary.md):
+
+* Outcome shares are counted over *scored* trials (outcome correct, wrong, unsure or unanswered);
+  trials without an expected answer (outcome "unscored") are counted separately.
+* Response-time statistics use trials answered with a number (outcome correct or wrong) that have
+  a response time; "unsure" presses and timeouts are left out because they measure something else.
+* Only main-part trials are summarised unless asked otherwise; practice is left out.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from runner.data import plots, report
+from runner.data.stats import DifficultyResult, difficulty_scores, mean_ci
+from runner.errors import InputFileError, StorageError
+
+OUTCOMES = ("correct", "wrong", "unsure", "unanswered")
+UNSCORED = "unscored"
+ANSWERED = ("correct", "wrong")
+DEFAULT_RATING_POINTS = 9
+MAIN_PART = "main"
+
+# Floor and ceiling: a level where almost nobody (or almost everybody) is correct tells little
+# about difficulty. 5% and 95% are common pilot thresholds (common practice, no published source).
+FLOOR_SHARE = 0.05
+CEILING_SHARE = 0.95
+
+TRIAL_COLUMNS = (
+    "participant",
+    "session",
+    "block",
+    "trial",
+    "stimulus",
+    "expected",
+    "answer",
+    "unsure",
+    "correct",
+    "rating",
+    "rt_ms",
+    "onset_lsl",
+    "part",
+    "outcome",
+    "rating_rt_ms",
+    "timed_out",
+)
+REQUIRED_FOR_SUMMARY = ("participant", "session", "stimulus", "outcome", "rt_ms", "rating", "part")
+SESSION_COLUMNS = ("participant", "session", "started_wall", "duration_s", "n_trials", "aborted")
+PILOT_COLUMN = "sim_rt_ms"
+_SAFE_NAME = re.compile(r"[^A-Za-z0-9_-]+")
+
+
+# --------------------------------------------------------------------------------------------
+# Checks and helpers
+# --------------------------------------------------------------------------------------------
+
+
+def _require(table: pd.DataFrame, columns: Sequence[str], what: str) -> None:
+    missing = [c for c in columns if c not in table.columns]
+    if missing:
+        raise InputFileError(
+            f"The {what} table lacks the column(s) "
+            + ", ".join(repr(c) for c in missing)
+            + "; export the tables again from the session journals, or check the factor names."
+        )
+
+
+def _check_outcomes(trials: pd.DataFrame) -> None:
+    known = {*OUTCOMES, UNSCORED}
+    seen = set(trials["outcome"].dropna().astype(str).unique())
+    unknown = sorted(seen - known)
+    if unknown or trials["outcome"].isna().any():
+        shown = ", ".join(repr(u) for u in unknown) if unknown else "an empty value"
+        raise InputFileError(
+            f"The trials table has outcome {shown}; each trial's outcome must be one of "
+            + ", ".join(sorted(known))
+            + ". Export trials.csv again from the session journals."
+        )
+
+
+def _ratings(trials: pd.DataFrame, rating_points: int) -> pd.Series:
+    ratings = pd.to_numeric(trials["rating"], errors="coerce").astype(float)
+    bad = ratings.notna() & ~ratings.isin(np.arange(1, rating_points + 1, dtype=float))
+    if bad.any():
+        raise InputFileError(
+            f"The trials table has ratings {sorted(set(ratings[bad].tolist()))} outside the "
+            f"{rating_points}-point scale; pass the protocol's number of rating points "
+            "(rating_points) to the summary."
+        )
+    return ratings
+
+
+def _ordered_levels(values: pd.Series, order: Sequence[Any] | None) -> list[Any]:
+    present = list(pd.unique(values.dropna()))
+    if order is not None:
+        wanted = [level for level in order if level in set(present)]
+        rest = [level for level in present if level not in set(order)]
+        return wanted + sorted(rest, key=str)
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        return [c for c in values.cat.categories if c in set(present)]
+    if pd.api.types.is_numeric_dtype(values.dtype):
+        return sorted(present)
+    return sorted(present, key=str)
+
+
+def rating_columns(rating_points: int) -> list[str]:
+    """Names of the per-point rating count columns: ``rating_1`` ... ``rating_<points>``."""
+    return [f"rating_{k}" for k in range(1, rating_points + 1)]
+
+
+def _group_rows(
+    trials: pd.DataFrame, by: str, levels: Sequence[Any], rating_points: int
+) -> pd.DataFrame:
+    outcome = trials["outcome"].astype(str)
+    ratings = _ratings(trials, rating_points)
+    rt = pd.to_numeric(trials["rt_ms"], errors="coerce").astype(float)
+    answered_rt = rt.where(outcome.isin(ANSWERED))
+    rows = []
+    for level in levels:
+        mask = (trials[by] == level).to_numpy()
+        out = outcome[mask]
+        counts = {name: int((out == name).sum()) for name in OUTCOMES}
+        n_scored = sum(counts.values())
+        rts = answered_rt[mask].dropna()
+        mean, low, high = mean_ci(rts)
+        lvl_ratings = ratings[mask]
+        row: dict[str, Any] = {
+            by: level,
+            "n_trials": int(mask.sum()),
+            "n_scored": n_scored,
+            **{f"n_{name}": counts[name] for name in OUTCOMES},
+            "n_unscored": int((out == UNSCORED).sum()),
+            **{
+                f"share_{name}": (counts[name] / n_scored if n_scored else math.nan)
+                for name in OUTCOMES
+            },
+            "rt_n": int(rts.size),
+            "rt_mean_ms": mean,
+            "rt_median_ms": float(rts.median()) if rts.size else math.nan,
+            "rt_ci_low_ms": low,
+            "rt_ci_high_ms": high,
+            "rating_n": int(lvl_ratings.notna().sum()),
+            "rating_mean": float(lvl_ratings.mean()) if lvl_ratings.notna().any() else math.nan,
+            **{
+                col: int((lvl_ratings == k).sum())
+                for k, col in enumerate(rating_columns(rating_points), start=1)
+            },
+            "rating_none": int(lvl_ratings.isna().sum()),
+        }
+        rows.append(row)
+    return pd.DataFrame(rows, columns=_summary_columns(by, rating_points))
+
+
+def _summary_columns(by: str, rating_points: int) -> list[str]:
+    return [
+        by,
+        "n_trials",
+        "n_scored",
+        *[f"n_{name}" for name in OUTCOMES],
+        "n_unscored",
+        *[f"share_{name}" for name in OUTCOMES],
+        "rt_n",
+        "rt_mean_ms",
+        "rt_median_ms",
+        "rt_ci_low_ms",
+        "rt_ci_high_ms",
+        "rating_n",
+        "rating_mean",
+        *rating_columns(rating_points),
+        "rating_none",
+    ]
+
+
+# --------------------------------------------------------------------------------------------
+# Public tables
+# --------------------------------------------------------------------------------------------
+
+
+def level_summary(
+    trials: pd.DataFrame,
+    factor: str,
+    *,
+    rating_points: int = DEFAULT_RATING_POINTS,
+    levels: Sequence[Any] | None = None,
+) -> pd.DataFrame:
+    """Summarise trials per level of one factor.
+
+    Parameters
+    ----------
+    trials : pd.DataFrame
+        Pooled trials table (contract columns), already limited to the trials to summarise.
+    factor : str
+        Column to group by, for example ``"nodes"`` or ``"density"``.
+    rating_points : int, optional
+        Number of points on the rating scale, default 9.
+    levels : sequence, optional
+        Order of the levels; default numeric order for numbers, category order for categoricals,
+        alphabetical otherwise. Levels not in the table are skipped.
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per level: the factor, ``n_trials``, ``n_scored``, counts and shares of correct,
+        wrong, unsure and unanswered (shares over scored trials), ``n_unscored``, response time
+        ``rt_n``, ``rt_mean_ms``, ``rt_median_ms``, ``rt_ci_low_ms``, ``rt_ci_high_ms`` (95% t
+        interval, answered trials only), ``rating_n``, ``rating_mean``, ``rating_1`` ...
+        ``rating_<points>`` and ``rating_none``.
+
+    Raises
+    ------
+    InputFileError
+        If a column is missing, an outcome is unknown or a rating is off the scale.
+    """
+    _require(trials, (*REQUIRED_FOR_SUMMARY, factor), "trials")
+    _check_outcomes(trials)
+    return _group_rows(trials, factor, _ordered_levels(trials[factor], levels), rating_points)
+
+
+def participant_summary(
+    trials: pd.DataFrame, *, rating_points: int = DEFAULT_RATING_POINTS
+) -> pd.DataFrame:
+    """Summarise trials per participant, with the same columns as :func:`level_summary`.
+
+    Adds ``n_sessions`` after ``participant``.
+
+    Parameters
+    ----------
+    trials : pd.DataFrame
+        Pooled trials table (contract columns).
+    rating_points : int, optional
+        Number of points on the rating scale, default 9.
+
+    Returns
+    -------
+    pd.DataFrame
+        One row per participant, in alphabetical order of the label.
+    """
+    _require(trials, REQUIRED_FOR_SUMMARY, "trials")
+    _check_outcomes(trials)
+    work = trials.assign(participant=trials["participant"].astype(str))
+    table = _group_rows(
+        work, "participant", _ordered_levels(work["participant"], None), rating_points
+    )
+    sessions = work.groupby("participant")["session"].nunique()
+    table.insert(1, "n_sessions", table["participant"].map(sessions).astype(int))
+    return table
+
+
+def infer_factors(trials: pd.DataFrame) -> list[str]:
+    """The trial table's own columns: every column that is not a contract or pilot column."""
+    known = {*TRIAL_COLUMNS, PILOT_COLUMN}
+    return [c for c in trials.columns if c not in known]
+
+
+def _five(values: pd.Series) -> dict[str, float]:
+    v = pd.to_numeric(values, errors="coerce").dropna().astype(float)
+    if v.empty:
+        return {"min": math.nan, "median": math.nan, "max": math.nan}
+    return {"min": float(v.min()), "median": float(v.median()), "max": float(v.max())}
+
+
+def _plain(value: Any) -> Any:
+    """Make numpy and pandas scalars JSON-friendly (NaN and NA become None)."""
+    if value is None or value is pd.NA:
+        return None
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def pilot_facts(
+    trials: pd.DataFrame,
+    sessions: pd.DataFrame,
+    *,
+    factors: Sequence[str] | None = None,
+    rating_points: int = DEFAULT_RATING_POINTS,
+) -> dict[str, Any]:
+    """Facts a pilot should answer: how long sessions take and which levels are too easy or hard.
+
+    Parameters
+    ----------
+    trials : pd.DataFrame
+        Pooled trials table, already limited to the trials to judge (usually the main part).
+    sessions : pd.DataFrame
+        Per-session table: participant, session, started_wall, duration_s, n_trials, aborted,
+        pilot.
+    factors : sequence of str, optional
+        Factors whose levels are checked for floor and ceiling; default: the trial table's own
+        columns (see :func:`infer_factors`).
+    rating_points : int, optional
+        Number of points on the rating scale, default 9.
+
+    Returns
+    -------
+    dict
+        JSON-ready: ``n_sessions``, ``n_participants``, ``n_aborted``, ``n_pilot``,
+        ``duration_s`` and ``trials_per_session`` (min, median, max), ``sessions`` (one dict per
+        session), ``n_trials``, ``n_timed_out``, ``floor`` and ``ceiling`` (lists of
+        ``{factor, level, share_correct, n_scored}``; floor is share correct < 5%, ceiling > 95%),
+        ``floor_share``, ``ceiling_share`` and, when the table has ``sim_rt_ms``,
+        ``sim_rt_error_ms`` (median and largest absolute difference between measured and intended
+        response time of answered trials).
+    """
+    _require(sessions, SESSION_COLUMNS, "sessions")
+    _require(trials, REQUIRED_FOR_SUMMARY, "trials")
+    factors = infer_factors(trials) if factors is None else list(factors)
+    session_rows = [
+        {k: _plain(v) for k, v in row.items()}
+        for row in sessions.sort_values(["participant", "session"]).to_dict(orient="records")
+    ]
+    pilot = sessions["pilot"].astype(bool) if "pilot" in sessions.columns else None
+    facts: dict[str, Any] = {
+        "n_sessions": len(sessions),
+        "n_participants": int(sessions["participant"].astype(str).nunique()),
+        "n_aborted": int(sessions["aborted"].astype(bool).sum()),
+        "n_pilot": int(pilot.sum()) if pilot is not None else 0,
+        "duration_s": _five(sessions["duration_s"]),
+        "trials_per_session": _five(sessions["n_trials"]),
+        "sessions": session_rows,
+        "n_trials": len(trials),
+        "n_timed_out": int(pd.to_numeric(trials.get("timed_out", 0), errors="coerce").sum())
+        if "timed_out" in trials.columns
+        else 0,
+        "floor_share": FLOOR_SHARE,
+        "ceiling_share": CEILING_SHARE,
+        "floor": [],
+        "ceiling": [],
+    }
+    for factor in factors:
+        table = level_summary(trials, factor, rating_points=rating_points)
+        for row in table.to_dict(orient="records"):
+            share = row["share_correct"]
+            if row["n_scored"] == 0 or not math.isfinite(share):
+                continue
+            entry = {
+                "factor": factor,
+                "level": _plain(row[factor]),
+                "share_correct": float(share),
+                "n_scored": int(row["n_scored"]),
+            }
+            if share < FLOOR_SHARE:
+                facts["floor"].append(entry)
+            elif share > CEILING_SHARE:
+                facts["ceiling"].append(entry)
+    if PILOT_COLUMN in trials.columns:
+        answered = trials["outcome"].astype(str).isin(ANSWERED)
+        diff = (
+            pd.to_numeric(trials["rt_ms"], errors="coerce").astype(float)
+            - pd.to_numeric(trials[PILOT_COLUMN], errors="coerce").astype(float)
+        )[answered].dropna()
+        facts["sim_rt_error_ms"] = {
+            "n": int(diff.size),
+            "median": float(diff.median()) if diff.size else None,
+            "max_abs": float(diff.abs().max()) if diff.size else None,
+        }
+    return facts
+
+
+# --------------------------------------------------------------------------------------------
+# Files: CSV, PNG and the report
+# --------------------------------------------------------------------------------------------
+
+
+def _file_stem(factor: str) -> str:
+    return _SAFE_NAME.sub("_", factor).strip("_") or "factor"
+
+
+def _write_csv(table: pd.DataFrame, path: Path, written: list[Path], **kwargs: Any) -> None:
+    table.to_csv(path, na_rep="n/a", lineterminator="\n", **kwargs)
+    written.append(path)
+
+
+def write_summary(
+    trials: pd.DataFrame,
+    sessions: pd.DataFrame,
+    out_dir: Path,
+    *,
+    factors: Sequence[str],
+    rating_points: int = DEFAULT_RATING_POINTS,
+    include_practice: bool = False,
+    level_order: Mapping[str, Sequence[Any]] | None = None,
+    title: str = "Pilot summary",
+) -> list[Path]:
+    """Write summary CSV tables, PNG plots and one self-contained ``report.html``.
+
+    Files (in ``out_dir``, created if needed): ``levels_<factor>.csv`` per factor,
+    ``participants.csv``, ``difficulty.csv`` (per stimulus), ``difficulty_loadings.csv`` (when a
+    score could be computed), ``facts.json``, ``outcomes_<factor>.png``, ``rt_<factor>.png``,
+    ``ratings_<factor>.png``, ``difficulty_<factor>.png`` (when a score could be computed) and
+    ``report.html``, which embeds every plot as a data URI and needs no other file.
+
+    Parameters
+    ----------
+    trials : pd.DataFrame
+        Pooled trials table (contract columns plus the trial table's own columns).
+    sessions : pd.DataFrame
+        Per-session table (participant, session, started_wall, duration_s, n_trials, aborted,
+        pilot).
+    out_dir : Path
+        Folder to write into.
+    factors : sequence of str
+        Trial-table columns to summarise by, for example ``["nodes", "density"]``.
+    rating_points : int, optional
+        Number of points on the rating scale, default 9.
+    include_practice : bool, optional
+        Also summarise practice trials; default False (main part only, as the report says).
+    level_order : mapping, optional
+        Level order per factor, for example ``{"density": ["sparse", "medium", "dense"]}``.
+    title : str, optional
+        Heading of the report.
+
+    Returns
+    -------
+    list of Path
+        Every file written, in the order written; ``report.html`` is last.
+
+    Raises
+    ------
+    InputFileError
+        If a column is missing, no trials are left to summarise, or a value is out of range.
+    StorageError
+        If ``out_dir`` cannot be written.
+    """
+    factors = list(factors)
+    _require(trials, (*REQUIRED_FOR_SUMMARY, *factors), "trials")
+    _require(sessions, SESSION_COLUMNS, "sessions")
+    level_order = dict(level_order or {})
+    n_practice = int((trials["part"].astype(str) != MAIN_PART).sum())
+    data = trials if include_practice else trials[trials["part"].astype(str) == MAIN_PART]
+    if data.empty:
+        raise InputFileError(
+            "The trials table has no main-part trials to summarise; check that the sessions ran "
+            "past practice, or ask for practice to be included."
+        )
+    _check_outcomes(data)
+    _ratings(data, rating_points)
+
+    out_dir = Path(out_dir)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StorageError(
+            f"Cannot create the summary folder {str(out_dir)!r} ({exc.strerror}); choose a folder "
+            "you can write to."
+        ) from exc
+
+    written: list[Path] = []
+    try:
+        return _write_all(
+            data,
+            sessions,
+            out_dir,
+            factors=factors,
+            rating_points=rating_points,
+            include_practice=include_practice,
+            n_practice=n_practice,
+            level_order=level_order,
+            title=title,
+            written=written,
+        )
+    except OSError as exc:
+        raise StorageError(
+            f"Cannot write the summary into {str(out_dir)!r} ({exc.strerror}); check the disk "
+            "space and permissions of that folder."
+        ) from exc
+
+
+def _write_all(
+    data: pd.DataFrame,
+    sessions: pd.DataFrame,
+    out_dir: Path,
+    *,
+    factors: list[str],
+    rating_points: int,
+    include_practice: bool,
+    n_practice: int,
+    level_order: dict[str, Sequence[Any]],
+    title: str,
+    written: list[Path],
+) -> list[Path]:
+    n_participants = int(data["participant"].astype(str).nunique())
+    level_tables: dict[str, pd.DataFrame] = {}
+    for factor in factors:
+        table = level_summary(
+            data, factor, rating_points=rating_points, levels=level_order.get(factor)
+        )
+        level_tables[factor] = table
+        _write_csv(table, out_dir / f"levels_{_file_stem(factor)}.csv", written, index=False)
+
+    people = participant_summary(data, rating_points=rating_points)
+    _write_csv(people, out_dir / "participants.csv", written, index=False)
+
+    difficulty = difficulty_scores(data, factors=factors)
+    _write_csv(difficulty.scores, out_dir / "difficulty.csv", written)
+    if difficulty.available:
+        loadings = pd.DataFrame(
+            {"loading": difficulty.loadings, "communality": difficulty.communalities}
+        )
+        loadings.index.name = "variable"
+        _write_csv(loadings, out_dir / "difficulty_loadings.csv", written)
+
+    facts = pilot_facts(data, sessions, factors=factors, rating_points=rating_points)
+    facts["n_practice_excluded"] = 0 if include_practice else n_practice
+    facts_path = out_dir / "facts.json"
+    facts_path.write_text(
+        json.dumps(facts, indent=2, sort_keys=True, default=_plain, allow_nan=False) + "\n",
+        encoding="utf-8",
+    )
+    written.append(facts_path)
+
+    figures: dict[str, list[Path]] = {}
+    for factor in factors:
+        table = level_tables[factor]
+        stem = _file_stem(factor)
+        paths = [
+            plots.save_png(
+                plots.outcome_bars(table, factor, n_participants=n_participants),
+                out_dir / f"outcomes_{stem}.png",
+            ),
+            plots.save_png(
+                plots.rt_means(table, factor, n_participants=n_participants),
+                out_dir / f"rt_{stem}.png",
+            ),
+            plots.save_png(
+                plots.rating_distribution(table, factor, rating_points=rating_points),
+                out_dir / f"ratings_{stem}.png",
+            ),
+        ]
+        if difficulty.available:
+            paths.append(
+                plots.save_png(
+                    plots.difficulty_by_level(
+                        difficulty.scores, factor, levels=list(table[factor])
+                    ),
+                    out_dir / f"difficulty_{stem}.png",
+                )
+            )
+        figures[factor] = paths
+        written.extend(paths)
+
+    html = _build_report(
+        data,
+        title=title,
+        facts=facts,
+        level_tables=level_tables,
+        people=people,
+        difficulty=difficulty,
+        figures=figures,
+        include_practice=include_practice,
+        n_practice=n_practice,
+        rating_points=rating_points,
+    )
+    report_path = out_dir / "report.html"
+    report_path.write_text(html, encoding="utf-8")
+    written.append(report_path)
+    return written
+
+
+def _seconds(ms: float) -> str:
+    return "–" if not math.isfinite(ms) else f"{ms / 1000:.2f}"
+
+
+def _percent(share: float) -> str:
+    return "–" if not math.isfinite(share) else f"{100 * share:.0f}%"
+
+
+def _display_levels(table: pd.DataFrame, by: str) -> pd.DataFrame:
+    """A compact view of a level or participant table for the report (counts stay in the CSV)."""
+    view = pd.DataFrame({by: table[by].astype(str)})
+    if "n_sessions" in table.columns:
+        view["sessions"] = table["n_sessions"]
+    view["trials"] = table["n_trials"]
+    for name in OUTCOMES:
+        view[name] = table[f"share_{name}"].map(_percent)
+    view["RT n"] = table["rt_n"]
+    view["RT mean (s)"] = table["rt_mean_ms"].map(_seconds)
+    view["95% CI (s)"] = [
+        "–"
+        if not (math.isfinite(lo) and math.isfinite(hi))
+        else f"{lo / 1000:.2f} – {hi / 1000:.2f}"
+        for lo, hi in zip(table["rt_ci_low_ms"], table["rt_ci_high_ms"], strict=True)
+    ]
+    view["RT median (s)"] = table["rt_median_ms"].map(_seconds)
+    view["rating mean"] = table["rating_mean"].map(
+        lambda v: "–" if not math.isfinite(v) else f"{v:.1f}"
+    )
+    return view
+
+
+def _build_report(
+    data: pd.DataFrame,
+    *,
+    title: str,
+    facts: dict[str, Any],
+    level_tables: dict[str, pd.DataFrame],
+    people: pd.DataFrame,
+    difficulty: DifficultyResult,
+    figures: dict[str, list[Path]],
+    include_practice: bool,
+    n_practice: int,
+    rating_points: int,
+) -> str:
+    scope = (
+        f"All {len(data)} trials, practice included."
+        if include_practice
+        else f"Main-part trials only ({len(data)} trials); {n_practice} practice trials are left "
+        "out because practice is for learning the task, not for measuring it."
+    )
+    dur = facts["duration_s"]
+    tps = facts["trials_per_session"]
+    overview = [
+        scope,
+        f"{facts['n_sessions']} sessions from {facts['n_participants']} participants "
+        f"({facts['n_aborted']} aborted, {facts['n_pilot']} simulated pilots).",
+        "Session length: "
+        + (
+            f"{dur['min'] / 60:.1f} to {dur['max'] / 60:.1f} min (median {dur['median'] / 60:.1f})"
+            if math.isfinite(dur["median"])
+            else "not recorded"
+        )
+        + "; trials per session: "
+        + (
+            f"{tps['min']:.0f} to {tps['max']:.0f} (median {tps['median']:.0f})."
+            if math.isfinite(tps["median"])
+            else "not recorded."
+        ),
+        f"{facts['n_timed_out']} trials timed out.",
+    ]
+    if "sim_rt_error_ms" in facts and facts["sim_rt_error_ms"]["n"]:
+        sim = facts["sim_rt_error_ms"]
+        overview.append(
+            f"Simulated participant: measured minus intended response time over {sim['n']} "
+            f"answered trials, median {sim['median']:.2f} ms, largest {sim['max_abs']:.2f} ms."
+        )
+    overview.append(
+        "Long sessions tire participants: check the lengths above against the breaks you planned "
+        "and the duration your ethics board approved. Participants may stop at any time."
+    )
+
+    def limits(kind: str) -> str:
+        items = facts[kind]
+        if not items:
+            return "none"
+        return "; ".join(
+            f"{i['factor']} = {i['level']} ({100 * i['share_correct']:.0f}% of {i['n_scored']})"
+            for i in items
+        )
+
+    checks = [
+        f"Floor (under {100 * FLOOR_SHARE:.0f}% correct): {limits('floor')}.",
+        f"Ceiling (over {100 * CEILING_SHARE:.0f}% correct): {limits('ceiling')}.",
+        "A level at floor or ceiling tells little about difficulty; consider changing its "
+        "stimuli before the main study.",
+    ]
+    method = [
+        "Shares are counted over scored trials (correct, wrong, unsure, unanswered); trials "
+        "without an expected answer are counted apart.",
+        "Response times use trials answered with a number (correct or wrong). The 95% interval "
+        "is the t-based interval of the mean over those trials, pooled across participants, so "
+        "it ignores that trials of one person are related and is narrower than a "
+        "by-participant interval.",
+    ]
+    sections = [
+        report.Section("Overview", paragraphs=overview),
+        report.Section("Floor and ceiling", paragraphs=checks),
+    ]
+    for factor, table in level_tables.items():
+        figs = figures[factor]
+        captions = [
+            f"Answers per {factor} level, as shares of scored trials.",
+            f"Response time per {factor} level: mean with 95% t interval (bars), median (open "
+            "circle).",
+            f"Ratings per {factor} level: count of trials at each point, shaded by share.",
+            f"Difficulty score of each stimulus, by {factor} level; the line marks the level mean.",
+        ]
+        sections.append(
+            report.Section(
+                f"By {factor}",
+                tables=[(f"Per {factor} level", _display_levels(table, factor))],
+                figures=[
+                    report.Image(path.read_bytes(), alt=caption, caption=caption)
+                    for path, caption in zip(figs, captions, strict=False)
+                ],
+            )
+        )
+    sections.append(
+        report.Section(
+            "By participant",
+            tables=[("Per participant", _display_levels(people, "participant"))],
+        )
+    )
+    if difficulty.available:
+        load = difficulty.loadings
+        diff_par = [
+            "Difficulty score: the first principal-axis factor of error share, mean response "
+            "time and mean rating, each computed per stimulus over participants and "
+            "z-standardised; regression-method factor scores. Loadings are signed so their sum is "
+            "positive: with all loadings positive, a higher score means a harder stimulus.",
+            "Loadings: "
+            + ", ".join(f"{name} {value:.2f}" for name, value in load.items())
+            + ". Communalities: "
+            + ", ".join(f"{name} {value:.2f}" for name, value in difficulty.communalities.items())
+            + ".",
+            *difficulty.notes,
+        ]
+        if (load < 0).any():
+            diff_par.append(
+                "Some loadings are negative, so these measures disagree; read the score with care."
+            )
+        scored = difficulty.scores.dropna(subset=["score"])
+        hardest = scored.sort_values("score", ascending=False).head(5)
+        hard_view = pd.DataFrame(
+            {
+                "stimulus": hardest.index.astype(str),
+                "score": hardest["score"].map(lambda v: f"{v:.2f}"),
+                "error share": hardest["error_share"].map(_percent),
+                "RT mean (s)": hardest["rt_ms"].map(_seconds),
+                "rating mean": hardest["rating"].map(lambda v: f"{v:.1f}"),
+                "trials": hardest["n_trials"],
+            }
+        )
+        sections.append(
+            report.Section(
+                "Difficulty score",
+                paragraphs=diff_par,
+                tables=[(f"Five hardest of {len(scored)} stimuli", hard_view)],
+            )
+        )
+    else:
+        sections.append(report.Section("Difficulty score", paragraphs=[difficulty.reason]))
+    sections.append(report.Section("Method", paragraphs=method))
+    return report.render_report(title, sections)
