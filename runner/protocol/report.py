@@ -279,12 +279,13 @@ def _match(data: object, loc: Sequence[str | int]) -> tuple[Path_, tuple[_Skip, 
     loc = tuple(loc)
     if len(loc) > MAX_LOC_SEARCH:
         return _match_greedy(data, loc)
-    memo: dict[tuple[int, int], tuple[int, Path_, tuple[_Skip, ...]]] = {}
+    # Keyed by the kept path too: equal scalars may be one shared object in several places.
+    memo: dict[tuple[int, int, Path_], tuple[int, Path_, tuple[_Skip, ...]]] = {}
 
     def best(node: object, i: int, kept: Path_) -> tuple[int, Path_, tuple[_Skip, ...]]:
         if i == len(loc):
             return 0, (), ()
-        key = (id(node), i)
+        key = (id(node), i, kept)
         if key in memo:
             return memo[key]
         element = loc[i]
@@ -446,13 +447,13 @@ def _detail(entry: _Entry, model: type[BaseModel] | None) -> str:
     value = error.get("input")
     info = _field_at(model, entry.path)
     description = info.description if info is not None and info.description else ""
+    if entry.key_error and kind in _EXPECTED:
+        return f"the key {_echo(value)} must be {_EXPECTED[kind]}"
     if entry.alternatives and kind in _EXPECTED:
         return f"expected {' or '.join(entry.alternatives)}, got {_echo(value)}"
     if kind in _SHAPE_ERRORS and description:
         return f"expected {description}, got {_echo(value)}"
     if kind in _EXPECTED:
-        if entry.key_error:
-            return f"the key {_echo(value)} must be {_EXPECTED[kind]}"
         return f"expected {_EXPECTED[kind]}, got {_echo(value)}"
     if kind in ("literal_error", "enum"):
         expected = str(ctx.get("expected", ""))
@@ -583,7 +584,8 @@ def problems_from_validation(
     list of Problem
         In file order (line, then column). Unknown keys point at the key, missing fields at
         the mapping that lacks them (the nearest parent present in the file), other errors at
-        the value.
+        the value. Each problem's ``path`` is the dotted path of the setting concerned (for a
+        missing field, the path the field would have).
     """
     entries = [_entry(dict(e), doc.data) for e in err.errors(include_url=False)]
     problems = [
