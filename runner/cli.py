@@ -1,0 +1,309 @@
+"""The ``trialdeck`` command: argument parsing, printing and exit codes only.
+
+Every verb's work lives in the library; errors the user can act on arrive here as
+:class:`runner.errors.TrialdeckError` and are printed as plain lines, never as a traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import sys
+import traceback
+from collections.abc import Callable, Sequence
+from pathlib import Path
+
+from runner import __version__
+from runner.errors import EXIT_OK, EXIT_PROBLEMS, EXIT_USAGE, TrialdeckError, UsageError
+
+DEMO_PROTOCOL = Path("configs") / "demo.yaml"
+DEMO_PARTICIPANT = "P01"
+DEMO_SPEED = 10.0
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but usage errors exit 2 with one plain line (and the usage)."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        self.exit(EXIT_USAGE, f"error: {message}\n")
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value > 0 or value != value or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"expected a number above 0, got {text!r}")
+    return value
+
+
+def _want_headless(show: bool) -> None:
+    """Use the SDL dummy driver unless a window was asked for and a display exists."""
+    if not show:
+        os.environ["SDL_VIDEODRIVER"] = "dummy"
+    os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
+
+
+def _no_display() -> bool:
+    if sys.platform.startswith("linux"):
+        return not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"))
+    return False
+
+
+# -- check -------------------------------------------------------------------------------------
+def cmd_check(args: argparse.Namespace) -> int:
+    from runner.protocol.check import check_protocol
+
+    report = check_protocol(Path(args.protocol), participants=args.participants)
+    if args.json:
+        print(json.dumps([p.as_dict() for p in report.problems], indent=2))
+    else:
+        for p in report.problems:
+            print(p.format())
+        for line in report.summary_lines():
+            print(line)
+    return EXIT_PROBLEMS if report.has_errors else EXIT_OK
+
+
+# -- pilot / run / demo ------------------------------------------------------------------------
+def _session_args(p: argparse.ArgumentParser, *, pilot: bool) -> None:
+    p.add_argument("protocol", metavar="PROTOCOL", help="the protocol YAML file")
+    p.add_argument(
+        "--participant", required=True, metavar="ID", help="participant label: letters and digits"
+    )
+    p.add_argument(
+        "--session", default="1", metavar="N", help="session label: letters and digits (default 1)"
+    )
+    p.add_argument(
+        "--out",
+        default="sessions",
+        metavar="DIR",
+        help="where session folders go (default ./sessions)",
+    )
+    p.add_argument(
+        "--windowed", action="store_true", help="a window instead of fullscreen (desk tests)"
+    )
+    p.add_argument(
+        "--wait-for-recorder",
+        type=_positive_float,
+        metavar="SECONDS",
+        help="wait this long for a recorder to connect to the marker stream; refuse to start otherwise",
+    )
+    p.add_argument(
+        "--station", metavar="NAME", help="name of this presenter machine in the stream's source_id"
+    )
+    if pilot:
+        p.add_argument(
+            "--speed",
+            type=_positive_float,
+            default=1.0,
+            metavar="X",
+            help="divide every wait and simulated response time by X",
+        )
+        p.add_argument(
+            "--show", action="store_true", help="open a real window instead of running headless"
+        )
+        p.add_argument(
+            "--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR"
+        )
+        p.add_argument("--sim-abort-at", type=int, metavar="TRIAL", help=argparse.SUPPRESS)
+
+
+def _run(
+    args: argparse.Namespace, *, mode: str, protocol: Path, console_quiet: bool = False
+) -> int:
+    from runner.protocol.load import load_protocol
+    from runner.session.console import SAFETY_REMINDER, Console
+    from runner.session.run import RunOptions, run_session
+
+    if mode == "pilot":
+        _want_headless(args.show)
+    else:
+        os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
+        if _no_display() and os.environ.get("SDL_VIDEODRIVER") not in ("dummy", "offscreen"):
+            raise UsageError(
+                "there is no display here, so a live session cannot be shown; use `trialdeck pilot` for a headless pilot."
+            )
+    from runner.present.screen import display_for
+
+    loaded = load_protocol(protocol)
+    console = Console(quiet=console_quiet)
+    if mode == "live":
+        console.warn(SAFETY_REMINDER)
+    frames = Path(args.frames) if getattr(args, "frames", None) else None
+    fullscreen = not args.windowed and (mode == "live" or args.show)
+    opts = RunOptions(
+        participant=args.participant,
+        session=args.session,
+        out=Path(args.out),
+        mode=mode,  # type: ignore[arg-type]
+        speed=getattr(args, "speed", 1.0),
+        wait_for_recorder=args.wait_for_recorder,
+        station=args.station,
+        abort_at=getattr(args, "sim_abort_at", None),
+    )
+    result = run_session(
+        loaded,
+        opts,
+        open_presenter=lambda: display_for(loaded, fullscreen=fullscreen, frames_dir=frames),
+        console=console,
+        observers=[console],
+    )
+    print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
+    print(f"Session folder: {result.folder}")
+    print(f"Trials table:   {result.trials_csv}")
+    if result.late_flips:
+        print(f"Late flips: {result.late_flips}")
+    if result.error is not None and not isinstance(result.error, KeyboardInterrupt):
+        raise result.error
+    return EXIT_OK if result.status == "completed" else EXIT_PROBLEMS
+
+
+def cmd_pilot(args: argparse.Namespace) -> int:
+    return _run(args, mode="pilot", protocol=Path(args.protocol))
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    return _run(args, mode="live", protocol=Path(args.protocol))
+
+
+def _demo_protocol() -> Path:
+    here = Path.cwd() / DEMO_PROTOCOL
+    if here.is_file():
+        return here
+    repo = Path(__file__).resolve().parent.parent / DEMO_PROTOCOL
+    if repo.is_file():
+        return repo
+    raise UsageError(
+        "the demo protocol configs/demo.yaml was not found; run `trialdeck demo` from the trialdeck"
+        " folder (or install it with `pip install -e .`)."
+    )
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from runner.protocol.load import load_protocol
+    from runner.session.run import session_folder
+
+    protocol = _demo_protocol()
+    study = load_protocol(protocol).model.study
+    out = Path(args.out)
+    n = 1
+    while (session_folder(out, study, DEMO_PARTICIPANT, str(n)) / "journal.jsonl").exists():
+        n += 1
+    ns = argparse.Namespace(
+        participant=DEMO_PARTICIPANT,
+        session=str(n),
+        out=str(out),
+        windowed=args.windowed,
+        wait_for_recorder=None,
+        station=None,
+        speed=args.speed,
+        show=args.show,
+        frames=args.frames,
+        sim_abort_at=None,
+    )
+    print(
+        f"Demo: a pilot of {protocol} with a simulated participant, {args.speed:g} times faster than real time."
+    )
+    return _run(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
+
+
+def cmd_schema(args: argparse.Namespace) -> int:
+    from runner.protocol.model import Protocol
+
+    print(json.dumps(Protocol.model_json_schema(), indent=2))
+    return EXIT_OK
+
+
+# -- parser ------------------------------------------------------------------------------------
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="trialdeck", description="Run, check and analyse diagram-reading lab sessions."
+    )
+    parser.add_argument("--version", action="version", version=f"trialdeck {__version__}")
+    sub = parser.add_subparsers(dest="verb", metavar="VERB", parser_class=_Parser)
+    sub.required = True
+    verbs: dict[str, Callable[[argparse.Namespace], int]] = {}
+
+    p = sub.add_parser("check", help="check a protocol before anyone arrives")
+    p.add_argument("protocol", metavar="PROTOCOL")
+    p.add_argument(
+        "--participants",
+        type=int,
+        metavar="N",
+        help="also check counterbalancing over N participants",
+    )
+    p.add_argument("--json", action="store_true", help="print the findings as JSON")
+    verbs["check"] = cmd_check
+
+    p = sub.add_parser("pilot", help="run a protocol with a simulated participant")
+    _session_args(p, pilot=True)
+    verbs["pilot"] = cmd_pilot
+
+    p = sub.add_parser("run", help="run a live session with a participant")
+    _session_args(p, pilot=False)
+    verbs["run"] = cmd_run
+
+    p = sub.add_parser("demo", help="pilot the demo protocol (configs/demo.yaml)")
+    p.add_argument(
+        "--out",
+        default="demo-sessions",
+        metavar="DIR",
+        help="where the session goes (default ./demo-sessions)",
+    )
+    p.add_argument("--speed", type=_positive_float, default=DEMO_SPEED, metavar="X")
+    p.add_argument(
+        "--show", action="store_true", help="open a real window instead of running headless"
+    )
+    p.add_argument("--windowed", action="store_true")
+    p.add_argument("--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR")
+    p.add_argument("--verbose", action="store_true", help="print a line per trial")
+    verbs["demo"] = cmd_demo
+
+    p = sub.add_parser("schema", help="print the protocol's JSON Schema")
+    verbs["schema"] = cmd_schema
+
+    try:
+        from runner.graphs import command as stimuli_command
+    except ImportError:
+        stimuli_command = None
+    if stimuli_command is not None:
+        p = sub.add_parser("stimuli", help="make node-link stimuli with known answers from a spec")
+        stimuli_command.add_arguments(p)
+        verbs["stimuli"] = stimuli_command.run
+
+    parser.set_defaults(_verbs=verbs)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    handler = args._verbs[args.verb]
+    try:
+        return int(handler(args) or 0)
+    except TrialdeckError as exc:
+        for line in exc.lines():
+            print(line, file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        print("error: interrupted.", file=sys.stderr)
+        return EXIT_PROBLEMS
+    except BrokenPipeError:
+        return EXIT_PROBLEMS
+    except Exception as exc:  # a bug in trialdeck, not the user's mistake
+        if os.environ.get("TRIALDECK_DEBUG"):
+            traceback.print_exc()
+        print(
+            f"internal error (a bug in trialdeck, please report it): {type(exc).__name__}: {exc}."
+            " Set TRIALDECK_DEBUG=1 to see the details.",
+            file=sys.stderr,
+        )
+        return EXIT_PROBLEMS
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,233 @@
+"""The participant's display: window, frame-exact flips stamped on the one clock, and key polling.
+
+Timing rules (see docs/timing.md):
+
+* A screen change happens when the flip returns; the time taken right after it is the event's time.
+* With a display whose flip blocks until the vertical blank, a flip requested for time ``at`` is
+  issued a little before ``at`` and lands on the refresh nearest to it.
+* When flips do not block (the SDL dummy driver of tests and headless pilots, or a driver without
+  vsync), flips are paced by a frame clock at the protocol's refresh rate, so headless runs keep
+  the lab display's frame-quantised timing.
+* While waiting for a key nothing is redrawn, and input is polled every 0.3 ms (over 1 kHz).
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import statistics
+import time
+from pathlib import Path
+
+import pygame
+
+from runner.errors import DisplayError
+from runner.present.images import ImageCache
+from runner.present.screens import Painter, Style
+from runner.session.markers import local_clock
+from runner.session.views import KeyHit, View
+
+POLL_S = 0.0003  # input polling period while waiting: about 3 kHz
+SPIN_S = 0.0015  # the last part of a wait is a busy spin, because sleep overshoots
+BLOCK_TEST_FLIPS = 12
+LATE_FRACTION = 0.5  # a flip landing more than half a frame after its target missed its frame
+KEYPAD = {f"[{d}]": d for d in "0123456789"} | {"enter": "return", "[enter]": "return"}
+
+
+def sleep_until(t: float, clock=local_clock) -> None:
+    """Sleep, then spin, until ``clock() >= t``."""
+    while True:
+        remaining = t - clock()
+        if remaining <= 0:
+            return
+        if remaining > SPIN_S:
+            time.sleep(remaining - SPIN_S)
+
+
+def key_name(event: pygame.event.Event) -> str:
+    name = pygame.key.name(event.key)
+    return KEYPAD.get(name, name)
+
+
+def headless() -> bool:
+    return os.environ.get("SDL_VIDEODRIVER", "") in ("dummy", "offscreen")
+
+
+class Display:
+    """A pygame window implementing :class:`runner.session.views.Presenter`."""
+
+    def __init__(
+        self,
+        *,
+        resolution: tuple[int, int],
+        refresh_hz: float,
+        style: Style,
+        stimulus_box: tuple[int, int],
+        fullscreen: bool = True,
+        frames_dir: Path | None = None,
+        cache_bytes: int | None = None,
+        clock=local_clock,
+    ):
+        self.clock = clock
+        self.size = (int(resolution[0]), int(resolution[1]))
+        self.interval = 1.0 / float(refresh_hz)
+        self.late_flips = 0
+        self.flips = 0
+        self.frames_dir = frames_dir
+        self.frames_written: list[Path] = []
+        self._last_saved: View | None = None
+        self._pending: View | None = None
+        self._slot0: float | None = None
+        try:
+            pygame.display.init()
+            pygame.font.init()
+        except pygame.error as exc:
+            raise DisplayError(f"the display cannot be opened: {exc}.") from None
+        flags = pygame.FULLSCREEN if fullscreen and not headless() else 0
+        self.vsync_requested = not headless()
+        try:
+            if self.vsync_requested:
+                self.surface = pygame.display.set_mode(self.size, flags | pygame.SCALED, vsync=1)
+            else:
+                self.surface = pygame.display.set_mode(self.size, flags)
+        except pygame.error:
+            try:
+                self.surface = pygame.display.set_mode(self.size, flags)
+                self.vsync_requested = False
+            except pygame.error as exc:
+                raise DisplayError(
+                    f"the display cannot be opened at {self.size[0]}x{self.size[1]}: {exc}."
+                ) from None
+        pygame.display.set_caption("trialdeck")
+        pygame.mouse.set_visible(False)
+        pygame.event.set_blocked(None)
+        pygame.event.set_allowed([pygame.KEYDOWN, pygame.QUIT])
+        box = pygame.Rect(0, 0, *stimulus_box)
+        box.center = (self.size[0] // 2, self.size[1] // 2)
+        self.stimulus_rect = box
+        self.images = ImageCache(
+            stimulus_box,
+            background=style.background,
+            **({"max_bytes": cache_bytes} if cache_bytes else {}),
+        )
+        self.painter = Painter(style, self.size, box, self.images.get)
+        self.blocking = self._flips_block() if self.vsync_requested else False
+
+    # -- flipping ---------------------------------------------------------------------------
+    def _flips_block(self) -> bool:
+        """True when a flip waits for the vertical blank (median gap over half an interval)."""
+        self.surface.fill(self.painter.style.background)
+        stamps = []
+        for _ in range(BLOCK_TEST_FLIPS):
+            pygame.display.flip()
+            stamps.append(self.clock())
+        gaps = [b - a for a, b in zip(stamps, stamps[1:], strict=False)]
+        return statistics.median(gaps) > 0.5 * self.interval
+
+    def _flip(self, at: float | None) -> float:
+        now = self.clock()
+        if self.blocking:
+            if at is not None:
+                sleep_until(at - 0.6 * self.interval, self.clock)
+            pygame.display.flip()
+            t = self.clock()
+        else:
+            if self._slot0 is None:
+                self._slot0 = now
+            # The frame slot nearest the requested time, but never one already past.
+            k = round(((now if at is None else at) - self._slot0) / self.interval)
+            if self._slot0 + k * self.interval < now:
+                k = math.ceil((now - self._slot0) / self.interval)
+            slot = self._slot0 + k * self.interval
+            sleep_until(slot, self.clock)
+            pygame.display.flip()
+            t = self.clock()
+        self.flips += 1
+        if at is not None and t - at > LATE_FRACTION * self.interval:
+            self.late_flips += 1
+        return t
+
+    def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
+        self._save_pending()
+        self.painter.draw(self.surface, view, photodiode=photodiode)
+        t = self._flip(at)
+        if self.frames_dir is not None and view != self._last_saved:
+            # Saved later (before the next drawing or input wait), so the marker push that
+            # follows this flip is not delayed by PNG encoding.
+            self._pending = view
+        return t
+
+    def _save_pending(self) -> None:
+        view = getattr(self, "_pending", None)
+        if view is not None:
+            self._pending = None
+            self.save_frame(view)
+
+    def save_frame(self, view: View) -> Path:
+        assert self.frames_dir is not None
+        self.frames_dir.mkdir(parents=True, exist_ok=True)
+        path = self.frames_dir / f"{len(self.frames_written) + 1:05d}-{type(view).__name__}.png"
+        pygame.image.save(self.surface, str(path))
+        self.frames_written.append(path)
+        self._last_saved = view
+        return path
+
+    def prepare(self, stimulus: str) -> None:
+        self.images.prepare(stimulus)
+
+    # -- input ------------------------------------------------------------------------------
+    def wait_key(self, accept: frozenset[str] | None, deadline: float | None) -> KeyHit | None:
+        self._save_pending()
+        while True:
+            for ev in pygame.event.get():
+                if ev.type == pygame.QUIT:
+                    return KeyHit("escape", self.clock())
+                if ev.type == pygame.KEYDOWN:
+                    t = self.clock()
+                    name = key_name(ev)
+                    if accept is None or name in accept or name == "escape":
+                        return KeyHit(name, t)
+            if deadline is not None and self.clock() >= deadline:
+                return None
+            time.sleep(POLL_S)
+
+    def post_key(self, key: str) -> float:
+        code = pygame.key.key_code(key)
+        char = key if len(key) == 1 else (" " if key == "space" else "")
+        t = self.clock()
+        pygame.event.post(
+            pygame.event.Event(pygame.KEYDOWN, key=code, unicode=char, mod=0, scancode=0)
+        )
+        return t
+
+    def drain(self) -> None:
+        """Forget pending input (keys pressed before a screen that must not take them)."""
+        pygame.event.get()
+
+    def close(self) -> None:
+        self._save_pending()
+        pygame.display.quit()
+
+
+def display_for(loaded, *, fullscreen: bool, frames_dir: Path | None = None) -> Display:
+    """Open the participant's display as a loaded protocol describes it."""
+    from runner.protocol.sizes import stimulus_box
+
+    screen = loaded.model.screen
+    pd = loaded.model.photodiode
+    style = Style.from_colours(
+        screen.background,
+        screen.text_colour,
+        screen.accent_colour,
+        screen.font_px,
+        photodiode_corner=pd.corner if pd else None,
+        photodiode_px=pd.size_px if pd else 48,
+    )
+    return Display(
+        resolution=screen.resolution,
+        refresh_hz=screen.refresh_hz,
+        style=style,
+        stimulus_box=stimulus_box(loaded.model),
+        fullscreen=fullscreen,
+        frames_dir=frames_dir,
+    )

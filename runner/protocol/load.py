@@ -1,0 +1,254 @@
+"""Load a protocol file: safe YAML, schema validation, then cross-checks against the trial table.
+
+Every problem found is collected (not just the first) and raised together as one
+:class:`~runner.errors.ProtocolError`, each pointing at the line and column it concerns.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from pydantic import ValidationError
+
+from runner.errors import Problem, ProtocolError
+from runner.protocol.model import (
+    BlocksStep,
+    PageStep,
+    PracticeStep,
+    Protocol,
+    TrialsStep,
+    Where,
+)
+from runner.protocol.report import problem_at, problems_from_validation
+from runner.protocol.table import TrialRow, TrialTable, read_trial_table
+from runner.protocol.yamlsafe import YamlDoc, read_yaml
+
+MAX_PAGE_BYTES = 256 * 1024
+
+
+@dataclass(frozen=True)
+class LoadedProtocol:
+    """A validated protocol with everything it refers to read into memory.
+
+    ``content_hash`` covers the protocol text, the trial table and page files, so the schedule
+    (and its seed) change exactly when something that shapes the session changes.
+    """
+
+    path: Path
+    model: Protocol
+    table: TrialTable
+    raw: bytes
+    doc: YamlDoc
+    content_hash: str
+    pages: dict[int, str] = field(default_factory=dict)
+    warnings: list[Problem] = field(default_factory=list)
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent
+
+    def stimulus_path(self, row: TrialRow) -> Path:
+        return self.table.stimulus_path(row)
+
+
+def display_name(path: Path) -> str:
+    """How a file is named in problem lines: relative to the working folder when inside it."""
+    try:
+        return os.path.relpath(path)
+    except ValueError:
+        return str(path)
+
+
+def select_rows(table: TrialTable, where: Where) -> list[TrialRow]:
+    """Rows whose columns match every ``column: value`` (or ``column: [values]``) of ``where``."""
+
+    def ok(row: TrialRow) -> bool:
+        for col, want in where.items():
+            have = row.value(col)
+            wanted = want if isinstance(want, list) else [want]
+            if not any(_same(have, w) for w in wanted):
+                return False
+        return True
+
+    return [r for r in table.rows if ok(r)]
+
+
+def _same(have: str, want: object) -> bool:
+    if isinstance(want, bool):
+        return have.lower() in (("true", "1", "yes") if want else ("false", "0", "no"))
+    if isinstance(want, (int, float)):
+        try:
+            return float(have) == float(want)
+        except ValueError:
+            return False
+    return have == str(want)
+
+
+def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProtocol:
+    """Read, validate and cross-check a protocol.
+
+    Parameters
+    ----------
+    path
+        The protocol YAML file.
+    check_stimuli
+        Also require that every stimulus file in the trial table exists.
+
+    Raises
+    ------
+    ProtocolError
+        With one :class:`Problem` per problem found, errors only (warnings are kept on the result).
+    """
+    path = Path(path)
+    name = display_name(path)
+    doc = read_yaml(path)
+    raw = path.read_bytes()
+    try:
+        model = Protocol.model_validate(doc.data)
+    except ValidationError as exc:
+        raise ProtocolError(problems_from_validation(exc, file=name, doc=doc)) from None
+
+    problems: list[Problem] = []
+
+    def at(loc: tuple[str | int, ...], message: str, severity: str = "error") -> None:
+        problems.append(problem_at(doc, name, loc, message, severity=severity))
+
+    table_path = (path.parent / model.trials.table).resolve()
+    table, table_problems = read_trial_table(table_path, display_name=display_name(table_path))
+    if table is None:
+        if table_problems and table_problems[0].line == 0 and not table_path.exists():
+            at(
+                ("trials", "table"),
+                f"the trial table {model.trials.table!r} does not exist (looked for {table_path})",
+            )
+        else:
+            problems.extend(table_problems)
+        raise ProtocolError(problems)
+
+    columns = set(table.columns)
+    known = ", ".join(table.columns)
+
+    def need_column(loc: tuple[str | int, ...], col: str, what: str) -> None:
+        if col not in columns:
+            at(loc, f"{what} {col!r} is not a column of the trial table (columns: {known})")
+
+    for i, factor in enumerate(model.trials.factors):
+        need_column(("trials", "factors", i), factor, "factor")
+    if model.answer.prompt_column:
+        need_column(("answer", "prompt_column"), model.answer.prompt_column, "column")
+    if model.rating.question_column:
+        need_column(("rating", "question_column"), model.rating.question_column, "column")
+
+    pages: dict[int, str] = {}
+    for i, step in enumerate(model.sequence):
+        if isinstance(step, PageStep):
+            if step.page.file is not None:
+                page_path = (path.parent / step.page.file).resolve()
+                try:
+                    data = page_path.read_bytes()
+                    if len(data) > MAX_PAGE_BYTES:
+                        raise ValueError
+                    pages[i] = data.decode("utf-8")
+                except FileNotFoundError:
+                    at(
+                        ("sequence", i, "page", "file"),
+                        f"the page file {step.page.file!r} does not exist",
+                    )
+                except (OSError, ValueError):
+                    at(
+                        ("sequence", i, "page", "file"),
+                        f"the page file {step.page.file!r} is not readable UTF-8 text under 256 kB",
+                    )
+            else:
+                pages[i] = step.page.text or ""
+            continue
+        if isinstance(step, (PracticeStep, BlocksStep, TrialsStep)):
+            kind = (
+                "practice"
+                if isinstance(step, PracticeStep)
+                else "blocks"
+                if isinstance(step, BlocksStep)
+                else "trials"
+            )
+            spec = getattr(step, kind)
+            for col in spec.where:
+                need_column(("sequence", i, kind, "where", col), col, "column")
+            if all(col in columns for col in spec.where) and not select_rows(table, spec.where):
+                at(
+                    ("sequence", i, kind, "where"),
+                    f"no row of the trial table matches {dict(spec.where)!r}",
+                )
+            for col in getattr(spec, "max_run", {}):
+                need_column(("sequence", i, kind, "max_run", col), col, "column")
+            if isinstance(step, BlocksStep):
+                need_column(("sequence", i, "blocks", "by"), step.blocks.by, "block factor")
+                if step.blocks.order == "fixed" and not step.blocks.levels:
+                    at(
+                        ("sequence", i, "blocks", "levels"),
+                        "order 'fixed' needs the list of levels in block order",
+                    )
+                if step.blocks.by in columns and step.blocks.levels:
+                    rows = select_rows(table, spec.where)
+                    present = sorted({r.value(step.blocks.by) for r in rows})
+                    listed = [str(v) for v in step.blocks.levels]
+                    if sorted(set(listed)) != present or len(listed) != len(set(listed)):
+                        at(
+                            ("sequence", i, "blocks", "levels"),
+                            f"levels {listed!r} must list each level of {step.blocks.by!r} once: {present!r}",
+                        )
+
+    for row in table.rows:
+        if row.expected is not None and row.expected > model.answer.max:
+            problems.append(
+                Problem(
+                    "error",
+                    display_name(table_path),
+                    row.line,
+                    1,
+                    f"expected count {row.expected} is above answer.max ({model.answer.max})",
+                )
+            )
+        if check_stimuli:
+            stim = table.stimulus_path(row)
+            if not model.trials.allow_outside and not stim.is_relative_to(path.parent.resolve()):
+                problems.append(
+                    Problem(
+                        "error",
+                        display_name(table_path),
+                        row.line,
+                        1,
+                        f"stimulus {row.stimulus!r} lies outside the protocol's folder;"
+                        " set trials.allow_outside: true if that is intended",
+                    )
+                )
+            elif not stim.is_file():
+                problems.append(
+                    Problem(
+                        "error",
+                        display_name(table_path),
+                        row.line,
+                        1,
+                        f"stimulus file {row.stimulus!r} does not exist (looked for {stim})",
+                    )
+                )
+    if problems:
+        raise ProtocolError(problems)
+
+    digest = hashlib.sha256()
+    for part in (b"protocol", raw, b"table", table.raw):
+        digest.update(len(part).to_bytes(8, "little"))
+        digest.update(part)
+    for i in sorted(pages):
+        digest.update(pages[i].encode("utf-8"))
+    return LoadedProtocol(
+        path=path.resolve(),
+        model=model,
+        table=table,
+        raw=raw,
+        doc=doc,
+        content_hash=digest.hexdigest(),
+        pages=pages,
+    )

@@ -1,0 +1,361 @@
+"""The protocol schema: what a study's YAML file may say, validated with pydantic.
+
+Every mapping forbids unknown keys, so a typo is an error instead of a silently ignored setting.
+Field names are the protocol's own vocabulary; docs/protocol.md documents each one.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Annotated, Literal
+
+from pydantic import (
+    AfterValidator,
+    BaseModel,
+    ConfigDict,
+    Discriminator,
+    Field,
+    Tag,
+    field_validator,
+    model_validator,
+)
+
+COLOUR_RE = re.compile(r"^#(?:[0-9a-fA-F]{3}|[0-9a-fA-F]{6})$")
+STUDY_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9-]{0,62}$")
+KEY_NAMES = frozenset(
+    list("abcdefghijklmnopqrstuvwxyz") + ["space", "return", "tab", "period", "comma", "slash"]
+)
+MAX_SCREEN_PX = 16384
+
+
+class Strict(BaseModel):
+    """Base for every protocol section: unknown keys are errors, values are not coerced silently."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _colour(value: str) -> str:
+    if not isinstance(value, str) or not COLOUR_RE.match(value):
+        raise ValueError(f"expected a colour like '#808080', got {value!r}")
+    return value.lower()
+
+
+Colour = Annotated[str, AfterValidator(_colour)]
+
+
+class Screen(Strict):
+    """The participant's display."""
+
+    resolution: tuple[
+        Annotated[int, Field(ge=320, le=MAX_SCREEN_PX)],
+        Annotated[int, Field(ge=240, le=MAX_SCREEN_PX)],
+    ] = Field(description="Width and height of the display in pixels, at its native resolution.")
+    refresh_hz: float = Field(ge=30, le=500, description="Refresh rate the display must run at.")
+    background: Colour = Field("#8c8c8c", description="Background colour of every screen.")
+    text_colour: Colour = Field("#141414", description="Colour of text and the fixation cross.")
+    accent_colour: Colour = Field(
+        "#1f4e79", description="Colour of the answer box and the chosen rating."
+    )
+    width_cm: float | None = Field(
+        None, gt=0, le=1000, description="Visible width of the display in cm."
+    )
+    distance_cm: float | None = Field(None, gt=0, le=1000, description="Viewing distance in cm.")
+    font_px: int = Field(34, ge=10, le=200, description="Height of body text in pixels.")
+
+
+class StimulusSize(Strict):
+    """Size of the stimulus area. Give exactly one width (or one height); the aspect ratio is kept."""
+
+    width_px: int | None = Field(None, ge=16, le=MAX_SCREEN_PX)
+    height_px: int | None = Field(None, ge=16, le=MAX_SCREEN_PX)
+    width_cm: float | None = Field(None, gt=0, le=500)
+    height_cm: float | None = Field(None, gt=0, le=500)
+    width_deg: float | None = Field(None, gt=0, lt=170)
+    height_deg: float | None = Field(None, gt=0, lt=170)
+
+    @model_validator(mode="after")
+    def _one_size(self) -> StimulusSize:
+        given = [k for k, v in self.model_dump().items() if v is not None]
+        if len(given) != 1:
+            raise ValueError(
+                "give exactly one of width_px, height_px, width_cm, height_cm, width_deg, height_deg"
+                f" (got {', '.join(given) or 'none'})"
+            )
+        return self
+
+
+class Photodiode(Strict):
+    """A square patch that is white while the stimulus is shown and black otherwise."""
+
+    corner: Literal["top-left", "top-right", "bottom-left", "bottom-right"] = "top-left"
+    size_px: int = Field(48, ge=8, le=400)
+
+
+class Markers(Strict):
+    """The LSL marker stream."""
+
+    stream: str = Field(
+        min_length=1, max_length=120, description="Stream name the recorder looks for."
+    )
+    station: str | None = Field(
+        None,
+        pattern=r"^[A-Za-z0-9._-]{1,64}$",
+        description="Name of this presenter machine, part of the stable source_id (default: host name).",
+    )
+
+
+class Trials(Strict):
+    """The trial table: a CSV file with `stimulus`, `expected` and factor columns."""
+
+    table: str = Field(
+        min_length=1, description="Path of the CSV trial table, relative to the protocol."
+    )
+    factors: list[str] = Field(
+        default_factory=list, description="Columns that are experimental factors."
+    )
+    allow_outside: bool = Field(
+        False, description="Allow stimulus paths outside the protocol's folder."
+    )
+
+
+class Answer(Strict):
+    """How the participant gives the count."""
+
+    prompt: str = Field("How many?", min_length=1, max_length=300)
+    max: int = Field(99, ge=1, le=9999, description="Largest count that can be typed.")
+    unsure_key: str = Field("u", description="Key that answers 'unsure'.")
+    mode: Literal["after", "over"] = Field(
+        "after",
+        description="'after': the stimulus leaves at the decision key and the count is typed on its own"
+        " screen; 'over': the count is typed while the stimulus stays visible.",
+    )
+    decision_key: str = Field("space", description="Key that ends viewing in 'after' mode.")
+    prompt_column: str | None = Field(
+        None, description="Trial-table column that overrides the prompt."
+    )
+
+    @field_validator("unsure_key", "decision_key")
+    @classmethod
+    def _key(cls, v: str) -> str:
+        if v not in KEY_NAMES:
+            raise ValueError(
+                f"expected a letter a-z or one of space, return, tab, period, comma, slash; got {v!r}"
+            )
+        return v
+
+
+class Rating(Strict):
+    """The rating scale shown after each answer."""
+
+    points: int = Field(9, ge=2, le=11)
+    question: str = Field("How hard was that?", min_length=1, max_length=300)
+    low: str = Field("very easy", max_length=60)
+    high: str = Field("very hard", max_length=60)
+    mid: str | None = Field(None, max_length=60)
+    question_column: str | None = Field(
+        None, description="Trial-table column that overrides the question."
+    )
+
+
+class Timing(Strict):
+    """Durations. Requested durations are rounded to whole frames of the display."""
+
+    fixation_ms: tuple[
+        Annotated[float, Field(ge=0, le=60000)], Annotated[float, Field(ge=0, le=60000)]
+    ] = Field((700, 1300), description="Fixation duration drawn uniformly from [low, high] ms.")
+    stimulus_limit_s: float | None = Field(
+        40, gt=0, le=3600, description="Longest viewing time; none for no limit."
+    )
+    answer_limit_s: float | None = Field(20, gt=0, le=3600)
+    rating_limit_s: float | None = Field(None, gt=0, le=3600)
+    gap_ms: float = Field(800, ge=0, le=60000, description="Blank screen between trials.")
+    feedback_ms: float = Field(
+        1500, ge=0, le=60000, description="How long practice feedback stays."
+    )
+
+    @field_validator("fixation_ms")
+    @classmethod
+    def _ordered(cls, v: tuple[float, float]) -> tuple[float, float]:
+        if v[0] > v[1]:
+            raise ValueError(f"the low end {v[0]!r} is above the high end {v[1]!r}")
+        return v
+
+
+Where = dict[str, str | int | float | bool | list[str | int | float]]
+
+
+class PageSpec(Strict):
+    text: str | None = Field(None, max_length=20000)
+    file: str | None = Field(
+        None, description="A text or simple Markdown file, relative to the protocol."
+    )
+    key: str = Field("space", description="Key that moves on from the page.")
+
+    @model_validator(mode="after")
+    def _one(self) -> PageSpec:
+        if (self.text is None) == (self.file is None):
+            raise ValueError("give either text or file")
+        return self
+
+
+class RestSpec(Strict):
+    seconds: float = Field(gt=0, le=3600)
+    label: str = Field("baseline", pattern=r"^[A-Za-z0-9_-]{1,40}$")
+    show: Literal["fixation", "blank"] = "fixation"
+
+
+class PracticeSpec(Strict):
+    where: Where = Field(
+        default_factory=dict, description="Trial-table rows to use, by column value."
+    )
+    feedback: bool = True
+    shuffle: bool = True
+
+
+class BlocksSpec(Strict):
+    where: Where = Field(default_factory=dict)
+    by: str = Field(description="Factor whose levels form the blocks.")
+    order: Literal["balanced-latin", "fixed", "random"] = "balanced-latin"
+    levels: list[str] | None = Field(
+        None, description="Block order for 'fixed' (and the level list otherwise)."
+    )
+    shuffle: bool = True
+    max_run: dict[str, Annotated[int, Field(ge=1, le=1000)]] = Field(
+        default_factory=dict, description="At most K trials in a row at one level of a factor."
+    )
+    no_repeat: bool = Field(True, description="Never show the same stimulus twice in a row.")
+
+
+class TrialsSpec(Strict):
+    where: Where = Field(default_factory=dict)
+    shuffle: bool = True
+    max_run: dict[str, Annotated[int, Field(ge=1, le=1000)]] = Field(default_factory=dict)
+    no_repeat: bool = True
+
+
+class PageStep(Strict):
+    page: PageSpec
+
+
+class RestStep(Strict):
+    rest: RestSpec
+
+
+class PracticeStep(Strict):
+    practice: PracticeSpec
+
+
+class BlocksStep(Strict):
+    blocks: BlocksSpec
+
+
+class TrialsStep(Strict):
+    trials: TrialsSpec
+
+
+STEP_KINDS = ("page", "rest", "practice", "blocks", "trials")
+
+
+def _step_tag(value: object) -> str | None:
+    """Pick the step model from the single key of a sequence item (``- page: {...}``)."""
+    if isinstance(value, dict):
+        keys = [k for k in value if k in STEP_KINDS]
+        return keys[0] if len(keys) == 1 and len(value) == 1 else None
+    for kind in STEP_KINDS:
+        if hasattr(value, kind):
+            return kind
+    return None
+
+
+Step = Annotated[
+    Annotated[PageStep, Tag("page")]
+    | Annotated[RestStep, Tag("rest")]
+    | Annotated[PracticeStep, Tag("practice")]
+    | Annotated[BlocksStep, Tag("blocks")]
+    | Annotated[TrialsStep, Tag("trials")],
+    Discriminator(
+        _step_tag,
+        custom_error_type="sequence_step",
+        custom_error_message="each sequence item is one of page, rest, practice, blocks, trials",
+    ),
+]
+
+
+class Breaks(Strict):
+    every_trials: int | None = Field(None, ge=1, le=100000)
+    every_minutes: float | None = Field(None, gt=0, le=600)
+    min_s: float = Field(15, ge=0, le=3600)
+    key: str = "space"
+    text: str = Field(
+        "Time for a short break. Rest your eyes; the next part starts when you are ready.",
+        max_length=2000,
+    )
+
+
+class Checks(Strict):
+    """Thresholds used by `trialdeck check`."""
+
+    luminance_tolerance: float = Field(
+        0.05,
+        ge=0,
+        le=1,
+        description="Largest allowed spread (max - min) of stimulus mean relative luminance.",
+    )
+    max_upscale: float = Field(
+        1.5, ge=1, le=100, description="Warn when a stimulus is enlarged more than this."
+    )
+    max_minutes_without_break: float = Field(20, gt=0, le=600)
+    acknowledge_flashes: bool = Field(
+        False,
+        description="Set true only after ethics approval of content that breaks the three-flash rule.",
+    )
+
+
+class Protocol(Strict):
+    """A whole study protocol."""
+
+    study: str = Field(description="Study id: letters, digits and hyphens.")
+    screen: Screen
+    stimulus_size: StimulusSize
+    trials: Trials
+    markers: Markers
+    answer: Answer = Field(default_factory=Answer)
+    rating: Rating = Field(default_factory=Rating)
+    timing: Timing = Field(default_factory=Timing)
+    photodiode: Photodiode | None = None
+    sequence: list[Step] = Field(min_length=1)
+    breaks: Breaks | None = None
+    checks: Checks = Field(default_factory=Checks)
+
+    @field_validator("study")
+    @classmethod
+    def _study(cls, v: str) -> str:
+        if not STUDY_RE.match(v):
+            raise ValueError(f"expected letters, digits and hyphens (at most 63), got {v!r}")
+        return v
+
+    @model_validator(mode="after")
+    def _cross(self) -> Protocol:
+        if self.answer.unsure_key == self.answer.decision_key:
+            raise ValueError("answer.unsure_key and answer.decision_key must differ")
+        uses_deg = (
+            self.stimulus_size.width_deg is not None or self.stimulus_size.height_deg is not None
+        )
+        if uses_deg and (self.screen.width_cm is None or self.screen.distance_cm is None):
+            raise ValueError("a size in degrees needs screen.width_cm and screen.distance_cm")
+        uses_cm = (
+            self.stimulus_size.width_cm is not None or self.stimulus_size.height_cm is not None
+        )
+        if uses_cm and self.screen.width_cm is None:
+            raise ValueError("a size in cm needs screen.width_cm")
+        if not any(isinstance(s, (PracticeStep, BlocksStep, TrialsStep)) for s in self.sequence):
+            raise ValueError("the sequence has no trials: add a practice, blocks or trials step")
+        return self
+
+
+def step_kind(step: Step) -> str:
+    """Name of a sequence step ('page', 'rest', 'practice', 'blocks' or 'trials')."""
+    for kind in STEP_KINDS:
+        if hasattr(step, kind):
+            return kind
+    raise TypeError(f"not a sequence step: {step!r}")

@@ -1,0 +1,185 @@
+"""The trial table: one CSV row per trial, with `stimulus`, `expected` and factor columns.
+
+Problems name the table file, the CSV line and the column where the bad field starts, in the same
+``FILE:LINE:COL: error: message`` form as protocol problems.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from runner.errors import Problem
+
+MAX_TABLE_BYTES = 20 * 1024 * 1024
+MAX_TABLE_ROWS = 100_000
+REQUIRED_COLUMNS = ("stimulus", "expected")
+RESERVED_COLUMNS = frozenset(
+    {
+        "participant",
+        "session",
+        "block",
+        "trial",
+        "answer",
+        "unsure",
+        "correct",
+        "rating",
+        "rt_ms",
+        "onset_lsl",
+        "part",
+        "outcome",
+        "sim_rt_ms",
+    }
+)
+
+
+@dataclass(frozen=True)
+class TrialRow:
+    """One row of the trial table. ``row`` is the 1-based data row, ``line`` its line in the file."""
+
+    row: int
+    line: int
+    stimulus: str
+    expected: int | None
+    values: dict[str, str] = field(default_factory=dict)
+
+    def value(self, column: str) -> str:
+        if column == "stimulus":
+            return self.stimulus
+        if column == "expected":
+            return "" if self.expected is None else str(self.expected)
+        return self.values.get(column, "")
+
+
+@dataclass(frozen=True)
+class TrialTable:
+    path: Path
+    columns: list[str]
+    rows: list[TrialRow]
+    raw: bytes
+
+    def stimulus_path(self, row: TrialRow) -> Path:
+        """Absolute path of a row's stimulus (paths in the table are relative to the table)."""
+        return (self.path.parent / row.stimulus).resolve()
+
+
+def _field_columns(line_text: str) -> list[int]:
+    """1-based character column where each comma-separated field starts (quotes ignored)."""
+    cols = [1]
+    in_quotes = False
+    for i, ch in enumerate(line_text):
+        if ch == '"':
+            in_quotes = not in_quotes
+        elif ch == "," and not in_quotes:
+            cols.append(i + 2)
+    return cols
+
+
+def read_trial_table(
+    path: Path, *, display_name: str | None = None
+) -> tuple[TrialTable | None, list[Problem]]:
+    """Read and check a trial table. Returns the table (None when unusable) and its problems."""
+    name = display_name or str(path)
+    problems: list[Problem] = []
+
+    def err(line: int, col: int, msg: str) -> None:
+        problems.append(Problem("error", name, line, col, msg))
+
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        return None, [Problem("error", name, 0, 0, "the trial table does not exist")]
+    except OSError as exc:
+        return None, [
+            Problem("error", name, 0, 0, f"the trial table cannot be read ({exc.strerror})")
+        ]
+    if len(raw) > MAX_TABLE_BYTES:
+        return None, [
+            Problem(
+                "error", name, 0, 0, f"the trial table is larger than {MAX_TABLE_BYTES // 2**20} MB"
+            )
+        ]
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        col = exc.start - (raw.rfind(b"\n", 0, exc.start) + 1) + 1
+        return None, [Problem("error", name, line, col, "the trial table is not UTF-8 text")]
+    if not text.strip():
+        return None, [Problem("error", name, 1, 1, "the trial table is empty")]
+    lines = text.splitlines()
+    reader = csv.reader(io.StringIO(text))
+    try:
+        header = next(reader)
+    except csv.Error as exc:
+        return None, [Problem("error", name, 1, 1, f"the header row is not valid CSV ({exc})")]
+    header = [h.strip() for h in header]
+    header_cols = _field_columns(lines[0])
+    seen: dict[str, int] = {}
+    for i, col in enumerate(header):
+        c = header_cols[i] if i < len(header_cols) else 1
+        if not col:
+            err(1, c, f"column {i + 1} of the header has no name")
+        elif col in seen:
+            err(1, c, f"column {col!r} appears twice in the header")
+        elif col in RESERVED_COLUMNS:
+            err(1, c, f"column {col!r} is a name trialdeck writes itself; rename it")
+        seen.setdefault(col, i)
+    for req in REQUIRED_COLUMNS:
+        if req not in seen:
+            err(1, 1, f"the header has no {req!r} column (columns: {', '.join(header)})")
+    if problems:
+        return None, problems
+
+    rows: list[TrialRow] = []
+    try:
+        for record in reader:
+            line_no = reader.line_num
+            if not any(f.strip() for f in record):
+                continue
+            line_text = lines[line_no - 1] if line_no - 1 < len(lines) else ""
+            cols = _field_columns(line_text)
+            if len(record) != len(header):
+                err(line_no, 1, f"row has {len(record)} fields but the header has {len(header)}")
+                continue
+            values = {h: v.strip() for h, v in zip(header, record, strict=True)}
+            stim = values.pop("stimulus")
+            exp_text = values.pop("expected")
+            if not stim:
+                err(line_no, cols[seen["stimulus"]], "the stimulus field is empty")
+                continue
+            expected: int | None = None
+            if exp_text:
+                try:
+                    expected = int(exp_text)
+                except ValueError:
+                    err(
+                        line_no,
+                        cols[seen["expected"]],
+                        f"expected must be a whole number or empty, got {exp_text!r}",
+                    )
+                    continue
+                if expected < 0:
+                    err(
+                        line_no,
+                        cols[seen["expected"]],
+                        f"expected must not be negative, got {expected}",
+                    )
+                    continue
+            rows.append(
+                TrialRow(
+                    row=len(rows) + 1, line=line_no, stimulus=stim, expected=expected, values=values
+                )
+            )
+            if len(rows) > MAX_TABLE_ROWS:
+                err(line_no, 1, f"the trial table has more than {MAX_TABLE_ROWS} rows")
+                break
+    except csv.Error as exc:
+        err(reader.line_num, 1, f"not valid CSV ({exc})")
+    if not rows and not problems:
+        err(1, 1, "the trial table has a header but no rows")
+    if problems:
+        return None, problems
+    return TrialTable(path=path, columns=header, rows=rows, raw=raw), problems

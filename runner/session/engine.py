@@ -1,0 +1,741 @@
+"""The session engine: one loop for live runs, pilots and (through the same views) replays.
+
+The engine walks the schedule, asks the presenter to show views at frame-exact times, stamps
+every screen change with the time right after its flip, sends a marker with that same timestamp,
+and journals everything. It imports neither pygame nor pylsl: the presenter, the marker outlet
+and the clock are handed in.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Protocol
+
+from runner.protocol.load import LoadedProtocol
+from runner.protocol.schedule import Item, Schedule, ScheduledTrial
+from runner.session.events import MARKED_EVENTS, encode_marker
+from runner.session.journal import Journal
+from runner.session.views import (
+    AnswerView,
+    BlankView,
+    BreakView,
+    ConfirmView,
+    FeedbackView,
+    FixationView,
+    KeyHit,
+    PageView,
+    Presenter,
+    RatingView,
+    StimulusView,
+    View,
+)
+
+DIGITS = frozenset("0123456789")
+CONFIRM_KEY = "y"
+PAYLOAD_FIELDS = (
+    "stimulus",
+    "block",
+    "part",
+    "label",
+    "key",
+    "answer",
+    "unsure",
+    "rating",
+    "status",
+)
+RATING_SHOW_CHOICE_S = 0.15  # the chosen rating box stays lit this long, so the choice is seen
+
+
+class MarkerSink(Protocol):
+    def push(self, payload: str, timestamp: float) -> float: ...
+
+    def have_consumers(self) -> bool: ...
+
+
+class Observer(Protocol):
+    """Receives progress for the experimenter console (and the simulated participant)."""
+
+    def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None: ...
+
+
+class AbortRequested(Exception):
+    """The experimenter confirmed an abort."""
+
+
+@dataclass
+class TrialOutcome:
+    decision_t: float | None = None
+    decision_key: str | None = None
+    answer: int | None = None
+    unsure: bool = False
+    timed_out: bool = False
+    confirm_t: float | None = None
+    rating: int | None = None
+    rating_t: float | None = None
+    rating_onset_t: float | None = None
+    interrupted: bool = False
+
+
+@dataclass
+class SessionState:
+    done_trials: set[int] = field(default_factory=set)
+    answered: int = 0
+    correct: int = 0
+    unsure: int = 0
+    last_rt_ms: float | None = None
+    recorder_connected: bool | None = None
+    started: float = 0.0
+
+
+def outcome_of(expected: int | None, answer: int | None, unsure: bool) -> str:
+    """One word for a trial's result: correct, wrong, unsure, unanswered or unscored."""
+    if unsure:
+        return "unsure"
+    if answer is None:
+        return "unanswered"
+    if expected is None:
+        return "unscored"
+    return "correct" if answer == expected else "wrong"
+
+
+class Engine:
+    """Runs one session's schedule on a presenter.
+
+    Parameters
+    ----------
+    loaded, schedule
+        The validated protocol and this participant's schedule.
+    presenter
+        The display (``runner.present.screen.Display`` in practice).
+    journal, markers
+        Where events go. Every marked event is pushed with its flip time as the LSL timestamp.
+    clock
+        The one clock (``pylsl.local_clock``).
+    speed
+        Pilots only: every wait and time limit is divided by this.
+    observers
+        Told about every screen change (console, simulated participant).
+    skip_trials
+        Trials already completed in an earlier attempt (resume).
+    extra_row
+        Adds pilot columns (``sim_rt_ms``) to each trial record.
+    """
+
+    def __init__(
+        self,
+        loaded: LoadedProtocol,
+        schedule: Schedule,
+        *,
+        presenter: Presenter,
+        journal: Journal,
+        markers: MarkerSink,
+        clock: Callable[[], float],
+        speed: float = 1.0,
+        observers: list[Observer] | None = None,
+        skip_trials: set[int] | None = None,
+        extra_row: Callable[[ScheduledTrial], dict[str, Any]] | None = None,
+        on_recorder_change: Callable[[bool], None] | None = None,
+    ):
+        self.loaded = loaded
+        self.model = loaded.model
+        self.schedule = schedule
+        self.view = presenter
+        self.journal = journal
+        self.markers = markers
+        self.clock = clock
+        self.speed = float(speed)
+        self.observers = observers or []
+        self.skip = skip_trials or set()
+        self.extra_row = extra_row
+        self.on_recorder_change = on_recorder_change
+        self.state = SessionState()
+        self._next_at: float | None = None
+        self._current: View = BlankView()
+        self._current_photodiode = False
+        self.total_trials = len(schedule.trials)
+        self.push_delays_us: list[float] = []
+        self._pushed: tuple[str, float, str, float] | None = None
+
+    # -- journaling and markers ---------------------------------------------------------------
+    def emit(
+        self, event: str, t: float, *, trial: int | None = None, **fields: Any
+    ) -> dict[str, Any]:
+        """Journal an event at time ``t``; marked events also go out as an LSL marker stamped ``t``."""
+        record: dict[str, Any] = {"t": t}
+        if trial is not None:
+            record["trial"] = trial
+        record.update(fields)
+        if event in MARKED_EVENTS:
+            pushed = self._pushed
+            if pushed is not None and pushed[0] == event and pushed[1] == t:
+                payload, delay = pushed[2], pushed[3]
+                self._pushed = None
+            else:
+                payload = self._payload(event, trial, fields)
+                delay = self._push(payload, t)
+            record["marker"] = payload
+            record["push_us"] = round(delay, 1)
+        return self.journal.append(event, **record)
+
+    @staticmethod
+    def _payload(event: str, trial: int | None, fields: dict[str, Any]) -> str:
+        payload_fields: dict[str, Any] = {"trial": trial} if trial is not None else {}
+        payload_fields.update({k: v for k, v in fields.items() if k in PAYLOAD_FIELDS})
+        return encode_marker(event, **payload_fields)
+
+    def _push(self, payload: str, t: float) -> float:
+        after = self.markers.push(payload, t)
+        delay = (after - t) * 1e6
+        self.push_delays_us.append(delay)
+        return delay
+
+    def _frames(self, ms: float) -> int:
+        """A requested duration as whole frames at the display's refresh interval."""
+        if ms <= 0:
+            return 0
+        return max(1, round(ms / 1000.0 / self.speed / self.view.interval))
+
+    def _show(
+        self,
+        view: View,
+        kind: str,
+        trial: ScheduledTrial | None = None,
+        *,
+        at: float | None = None,
+        photodiode: bool = False,
+        mark: str | None = None,
+        **mark_fields: Any,
+    ) -> float:
+        """Show a view; with ``mark``, push that event's marker straight after the flip.
+
+        The marker goes out before anything else runs (observers, journal), so the delay from
+        flip to push stays small; :meth:`emit` then journals it with the same timestamp.
+        """
+        payload = None
+        if mark is not None:
+            payload = self._payload(mark, trial.trial if trial is not None else None, mark_fields)
+        t = self.view.show(view, at=at, photodiode=photodiode)
+        if mark is not None and payload is not None:
+            self._pushed = (mark, t, payload, self._push(payload, t))
+        self._current = view
+        self._current_photodiode = photodiode
+        for obs in self.observers:
+            obs.on_view(kind, t, trial, view)
+        return t
+
+    def _limit(self, seconds: float | None) -> float | None:
+        return None if seconds is None else seconds / self.speed
+
+    # -- input with abort confirmation ----------------------------------------------------------
+    def _key(
+        self,
+        accept: frozenset[str] | None,
+        deadline: float | None,
+        outcome: TrialOutcome | None = None,
+        trial: ScheduledTrial | None = None,
+    ) -> KeyHit | None:
+        while True:
+            hit = self.view.wait_key(accept, deadline)
+            if hit is None or hit.key != "escape":
+                return hit
+            self._confirm_abort(trial)
+            if outcome is not None:
+                outcome.interrupted = True
+
+    def _confirm_abort(self, trial: ScheduledTrial | None) -> None:
+        previous, photodiode = self._current, self._current_photodiode
+        t = self._show(ConfirmView(), "confirm", trial)
+        self.journal.append("abort_requested", t=t, trial=trial.trial if trial else None)
+        hit = self.view.wait_key(None, None)
+        if hit is not None and hit.key == CONFIRM_KEY:
+            raise AbortRequested()
+        self.journal.append("abort_cancelled", t=hit.t if hit else self.clock())
+        self._show(previous, "resume-view", trial, photodiode=photodiode)
+
+    # -- the session ----------------------------------------------------------------------------
+    def run(self) -> None:
+        """Run every schedule item. Raises AbortRequested when the experimenter ends the session."""
+        self.state.started = self.clock()
+        self.emit(
+            "session_start",
+            self.state.started,
+            participant=self.schedule.participant,
+            session=self.schedule.session,
+        )
+        self.journal.sync()
+        for item in self.schedule.items:
+            if item.kind == "block" and all(t.trial in self.skip for t in item.trials):
+                continue
+            if item.kind == "page":
+                self._page(item)
+            elif item.kind == "rest":
+                self._rest(item)
+            elif item.kind == "break":
+                if not self._break_already_done(item):
+                    self._break(item)
+            elif item.kind == "block":
+                self._block(item)
+        t = self._show(BlankView(), "end", mark="session_end", status="completed")
+        self.emit("session_end", t, status="completed")
+        self.journal.sync()
+
+    def _break_already_done(self, item: Item) -> bool:
+        # On resume, a break between two completed trials is not repeated.
+        idx = list(self.schedule.items).index(item)
+        later = [
+            t.trial
+            for it in self.schedule.items[idx + 1 :]
+            if it.kind == "block"
+            for t in it.trials
+        ]
+        return bool(later) and later[0] in self.skip
+
+    def _page(self, item: Item) -> None:
+        key_label = "the space bar" if item.key == "space" else f"the {item.key.upper()} key"
+        t = self._show(
+            PageView(item.text, hint=f"Press {key_label} to continue."),
+            "page",
+            at=self._next_at,
+            mark="page_onset",
+        )
+        self.emit("page_onset", t, item=item.index, step=item.step)
+        self.journal.sync()
+        hit = self._key(frozenset({item.key}), None)
+        assert hit is not None
+        self.emit("page_end", hit.t, item=item.index, key=hit.key)
+        self._next_at = None
+
+    def _rest(self, item: Item) -> None:
+        view: View = FixationView() if item.show == "fixation" else BlankView()
+        t0 = self._show(view, "rest", at=self._next_at, mark="rest_start", label=item.label)
+        frames = self._frames(item.seconds * 1000.0)
+        self.emit("rest_start", t0, label=item.label, requested_s=item.seconds, frames=frames)
+        self.journal.sync()
+        end = t0 + frames * self.view.interval
+        while self.clock() < end - self.view.interval * 0.75:
+            self._key(frozenset(), end - self.view.interval * 0.75)
+        t1 = self._show(BlankView(), "rest-end", at=end, mark="rest_end", label=item.label)
+        self.emit("rest_end", t1, label=item.label, actual_s=round(t1 - t0, 6))
+        self.journal.sync()
+        self._next_at = None
+
+    def _break(self, item: Item) -> None:
+        min_s = item.seconds / self.speed
+        hint_ready = (
+            "Press the space bar when you are ready to go on."
+            if item.key == "space"
+            else f"Press {item.key.upper()} when you are ready to go on."
+        )
+        t0 = self._show(
+            BreakView(item.text, math.ceil(min_s)), "break", at=self._next_at, mark="break_start"
+        )
+        self.emit("break_start", t0, item=item.index, requested_s=item.seconds)
+        self.journal.sync()
+        shown = math.ceil(min_s)
+        while True:
+            left = min_s - (self.clock() - t0)
+            if left <= 0:
+                break
+            if math.ceil(left) != shown:
+                shown = math.ceil(left)
+                self._show(BreakView(item.text, shown), "break-tick")
+            self._key(frozenset(), min(self.clock() + 0.25, t0 + min_s))
+        self._show(BreakView(item.text, 0, hint=hint_ready), "break-ready")
+        hit = self._key(frozenset({item.key}), None)
+        assert hit is not None
+        self.emit("break_end", hit.t, item=item.index, actual_s=round(hit.t - t0, 6))
+        self.journal.sync()
+        self._next_at = None
+
+    def _block(self, item: Item) -> None:
+        t = self.clock()
+        self.emit(
+            "block_start",
+            t,
+            block=item.label,
+            part=item.part,
+            block_index=item.trials[0].block_index,
+        )
+        for trial in item.trials:
+            if trial.trial in self.skip:
+                continue
+            self._trial(trial)
+        self.emit("block_end", self.clock(), block=item.label, part=item.part)
+        self.journal.sync()
+
+    # -- one trial ------------------------------------------------------------------------------
+    def _prompt(self, trial: ScheduledTrial) -> str:
+        col = self.model.answer.prompt_column
+        return (
+            trial.values.get(col, "") or self.model.answer.prompt
+            if col
+            else self.model.answer.prompt
+        )
+
+    def _question(self, trial: ScheduledTrial) -> str:
+        col = self.model.rating.question_column
+        return (
+            trial.values.get(col, "") or self.model.rating.question
+            if col
+            else self.model.rating.question
+        )
+
+    def _trial(self, trial: ScheduledTrial) -> None:
+        model = self.model
+        ans = model.answer
+        interval = self.view.interval
+        path = str(self.loaded.table.stimulus_path(self.loaded.table.rows[trial.row - 1]))
+        self.journal.append(
+            "trial_start",
+            t=self.clock(),
+            trial=trial.trial,
+            block=trial.block,
+            part=trial.part,
+            stimulus=trial.stimulus,
+            expected=trial.expected,
+            row=trial.row,
+        )
+        self.view.prepare(path)  # decoded during the gap, before the fixation onset
+        out = TrialOutcome()
+
+        t_fix = self._show(
+            FixationView(), "fixation", trial, at=self._next_at, mark="fixation_onset"
+        )
+        fix_frames = self._frames(trial.fixation_ms)
+        self.emit(
+            "fixation_onset",
+            t_fix,
+            trial=trial.trial,
+            requested_ms=trial.fixation_ms,
+            frames=fix_frames,
+        )
+
+        unsure_hint = f"{ans.unsure_key.upper()} = unsure"
+        if ans.mode == "after":
+            stim_view = StimulusView(path)
+        else:
+            stim_view = StimulusView(
+                path,
+                typed="",
+                prompt=self._prompt(trial),
+                hint=f"Type the number, then press Enter.   {unsure_hint}",
+            )
+        t_on = self._show(
+            stim_view,
+            "stimulus",
+            trial,
+            at=t_fix + fix_frames * interval,
+            photodiode=True,
+            mark="stimulus_onset",
+            stimulus=trial.stimulus,
+        )
+        self.emit(
+            "stimulus_onset",
+            t_on,
+            trial=trial.trial,
+            stimulus=trial.stimulus,
+            fixation_actual_ms=round((t_on - t_fix) * 1000, 3),
+        )
+
+        limit = self._limit(model.timing.stimulus_limit_s)
+        deadline = None if limit is None else t_on + limit
+        if ans.mode == "after":
+            hit = self._key(frozenset({ans.decision_key, ans.unsure_key}), deadline, out, trial)
+            if hit is None:
+                out.timed_out = True
+                t_dec = self.clock()
+            else:
+                out.decision_t, out.decision_key = hit.t, hit.key
+                out.unsure = hit.key == ans.unsure_key
+                self.emit(
+                    "decision",
+                    hit.t,
+                    trial=trial.trial,
+                    key=hit.key,
+                    rt_ms=round((hit.t - t_on) * 1000, 3),
+                )
+                t_dec = hit.t
+            if out.unsure:
+                t_off = self._show(BlankView(), "offset", trial, mark="stimulus_offset")
+                self.emit(
+                    "stimulus_offset",
+                    t_off,
+                    trial=trial.trial,
+                    viewing_ms=round((t_off - t_on) * 1000, 3),
+                )
+                out.confirm_t = t_dec
+                self.emit("answer", t_dec, trial=trial.trial, answer=None, unsure=True)
+            else:
+                view = AnswerView(
+                    self._prompt(trial),
+                    "",
+                    hint=f"Type the number, then press Enter.   {unsure_hint}",
+                )
+                t_off = self._show(view, "answer", trial, mark="stimulus_offset")
+                self.emit(
+                    "stimulus_offset",
+                    t_off,
+                    trial=trial.trial,
+                    viewing_ms=round((t_off - t_on) * 1000, 3),
+                    timed_out=out.timed_out,
+                )
+                self.emit("answer_onset", t_off, trial=trial.trial)
+                self._type_answer(
+                    trial,
+                    out,
+                    t_off,
+                    lambda typed: AnswerView(view.prompt, typed, view.hint),
+                    first_key_is_decision=False,
+                    kind="answer",
+                )
+        else:
+            self._type_answer(
+                trial,
+                out,
+                t_on,
+                lambda typed: StimulusView(path, typed, stim_view.prompt, stim_view.hint),
+                first_key_is_decision=True,
+                kind="stimulus",
+                deadline=deadline,
+                photodiode=True,
+            )
+            t_off = self._show(BlankView(), "offset", trial, mark="stimulus_offset")
+            self.emit(
+                "stimulus_offset",
+                t_off,
+                trial=trial.trial,
+                viewing_ms=round((t_off - t_on) * 1000, 3),
+                timed_out=out.timed_out,
+            )
+
+        self._rate(trial, out)
+        self._finish(trial, out, t_on, t_fix)
+
+    def _type_answer(
+        self,
+        trial: ScheduledTrial,
+        out: TrialOutcome,
+        t0: float,
+        make_view: Callable[[str], View],
+        *,
+        first_key_is_decision: bool,
+        kind: str,
+        deadline: float | None = None,
+        photodiode: bool = False,
+    ) -> None:
+        ans = self.model.answer
+        max_len = len(str(ans.max))
+        if deadline is None:
+            limit = self._limit(self.model.timing.answer_limit_s)
+            deadline = None if limit is None else t0 + limit
+        typed = ""
+        accept = DIGITS | {"backspace", "return", ans.unsure_key}
+        while True:
+            hit = self._key(frozenset(accept), deadline, out, trial)
+            if hit is None:
+                out.timed_out = True
+                self.emit(
+                    "answer",
+                    self.clock(),
+                    trial=trial.trial,
+                    answer=None,
+                    unsure=False,
+                    timed_out=True,
+                )
+                return
+            if (
+                first_key_is_decision
+                and out.decision_t is None
+                and hit.key in DIGITS | {ans.unsure_key}
+            ):
+                out.decision_t, out.decision_key = hit.t, hit.key
+                self.emit(
+                    "decision",
+                    hit.t,
+                    trial=trial.trial,
+                    key=hit.key,
+                    rt_ms=round((hit.t - t0) * 1000, 3),
+                )
+            if hit.key == ans.unsure_key:
+                out.unsure, out.confirm_t = True, hit.t
+                self.emit("answer", hit.t, trial=trial.trial, answer=None, unsure=True)
+                return
+            if hit.key == "return":
+                if typed:
+                    value = int(typed)
+                    if value <= ans.max:
+                        out.answer, out.confirm_t = value, hit.t
+                        self.emit("answer", hit.t, trial=trial.trial, answer=value, unsure=False)
+                        return
+                continue
+            if hit.key == "backspace":
+                typed = typed[:-1]
+            elif hit.key in DIGITS and len(typed) < max_len:
+                typed = (typed + hit.key).lstrip("0") or "0"
+            else:
+                continue
+            t = self._show(make_view(typed), kind + "-typing", trial, photodiode=photodiode)
+            self.journal.append(
+                "typing", t=t, trial=trial.trial, typed=typed, key=hit.key, key_t=hit.t
+            )
+
+    def _rate(self, trial: ScheduledTrial, out: TrialOutcome) -> None:
+        r = self.model.rating
+        hint = (
+            f"Press a number key from 1 to {r.points}."
+            if r.points <= 9
+            else "Use the arrow keys and press Enter, or press 1 to 9 (0 for 10)."
+        )
+        base = RatingView(self._question(trial), r.points, r.low, r.high, r.mid, None, hint)
+        t_r = self._show(base, "rating", trial, mark="rating_onset")
+        out.rating_onset_t = t_r
+        self.emit("rating_onset", t_r, trial=trial.trial)
+        limit = self._limit(self.model.timing.rating_limit_s)
+        deadline = None if limit is None else t_r + limit
+        number_keys = {str(i) for i in range(1, min(r.points, 9) + 1)} | (
+            {"0"} if r.points >= 10 else set()
+        )
+        accept = frozenset(number_keys | {"left", "right", "return"})
+        selected: int | None = None
+        while True:
+            hit = self._key(accept, deadline, out, trial)
+            if hit is None:
+                self.emit("rating", self.clock(), trial=trial.trial, rating=None, timed_out=True)
+                return
+            if hit.key in number_keys:
+                choice = 10 if hit.key == "0" else int(hit.key)
+            elif hit.key in ("left", "right"):
+                step = -1 if hit.key == "left" else 1
+                selected = min(
+                    r.points, max(1, (selected or (r.points + 1) // 2) + (step if selected else 0))
+                )
+                t = self._show(
+                    RatingView(base.question, r.points, r.low, r.high, r.mid, selected, hint),
+                    "rating-select",
+                    trial,
+                )
+                self.journal.append("rating_select", t=t, trial=trial.trial, selected=selected)
+                continue
+            elif hit.key == "return" and selected is not None:
+                choice = selected
+            else:
+                continue
+            out.rating, out.rating_t = choice, hit.t
+            self.emit(
+                "rating",
+                hit.t,
+                trial=trial.trial,
+                rating=choice,
+                rt_ms=round((hit.t - t_r) * 1000, 3),
+            )
+            t = self._show(
+                RatingView(base.question, r.points, r.low, r.high, r.mid, choice, hint),
+                "rating-chosen",
+                trial,
+            )
+            self._next_at = (
+                t
+                + max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.view.interval))
+                * self.view.interval
+            )
+            return
+
+    def _finish(self, trial: ScheduledTrial, out: TrialOutcome, t_on: float, t_fix: float) -> None:
+        timing = self.model.timing
+        outcome = outcome_of(trial.expected, out.answer, out.unsure)
+        if trial.feedback:
+            if outcome == "correct":
+                text, good = "Correct.", True
+            elif outcome in ("wrong", "unanswered", "unsure") and trial.expected is not None:
+                text, good = f"The answer was {trial.expected}.", False
+            else:
+                text, good = "Thank you.", True
+            t_fb = self._show(
+                FeedbackView(text, good), "feedback", trial, at=self._next_at, mark="feedback_onset"
+            )
+            self.emit("feedback_onset", t_fb, trial=trial.trial, outcome=outcome)
+            self._next_at = t_fb + self._frames(timing.feedback_ms) * self.view.interval
+        t_gap = self._show(BlankView(), "gap", trial, at=self._next_at, mark="gap_onset")
+        self.emit("gap_onset", t_gap, trial=trial.trial)
+        self._next_at = t_gap + self._frames(timing.gap_ms) * self.view.interval
+        # Decode the next trial's stimulus now, inside the gap.
+        nxt = self._next_trial(trial)
+        if nxt is not None:
+            self.view.prepare(
+                str(self.loaded.table.stimulus_path(self.loaded.table.rows[nxt.row - 1]))
+            )
+
+        rt_ms = None if out.decision_t is None else round((out.decision_t - t_on) * 1000, 3)
+        correct = None if outcome not in ("correct", "wrong") else int(outcome == "correct")
+        rating_rt = None
+        if out.rating_t is not None and out.rating_onset_t is not None:
+            rating_rt = round((out.rating_t - out.rating_onset_t) * 1000, 3)
+        row: dict[str, Any] = {
+            "participant": self.schedule.participant,
+            "session": self.schedule.session,
+            "block": trial.block,
+            "trial": trial.trial,
+            "stimulus": trial.stimulus,
+            "expected": trial.expected,
+            "answer": out.answer,
+            "unsure": int(out.unsure),
+            "correct": correct,
+            "rating": out.rating,
+            "rt_ms": rt_ms,
+            "onset_lsl": t_on,
+            "part": trial.part,
+            "outcome": outcome,
+            "block_index": trial.block_index,
+            "typing_ms": None
+            if out.unsure or out.confirm_t is None or out.decision_t is None
+            else round((out.confirm_t - out.decision_t) * 1000, 3),
+            "rating_rt_ms": rating_rt,
+            "timed_out": int(out.timed_out),
+            "fixation_ms": round((t_on - t_fix) * 1000, 3),
+            "interrupted": int(out.interrupted),
+            "values": trial.values,
+        }
+        if self.extra_row is not None:
+            row.update(self.extra_row(trial))
+        self.journal.append("trial_end", t=t_gap, trial=trial.trial, record=row)
+        self.journal.sync()
+        self.state.done_trials.add(trial.trial)
+        self._tally(outcome, rt_ms)
+        self._watch_recorder(t_gap)
+        for obs in self.observers:
+            fn = getattr(obs, "on_trial_end", None)
+            if fn is not None:
+                fn(row, self)
+
+    def _next_trial(self, trial: ScheduledTrial) -> ScheduledTrial | None:
+        trials = [t for t in self.schedule.trials if t.trial not in self.skip]
+        for a, b in zip(trials, trials[1:], strict=False):
+            if a.trial == trial.trial:
+                return b
+        return None
+
+    def _tally(self, outcome: str, rt_ms: float | None) -> None:
+        s = self.state
+        if outcome in ("correct", "wrong"):
+            s.answered += 1
+            s.correct += outcome == "correct"
+        if outcome == "unsure":
+            s.unsure += 1
+        s.last_rt_ms = rt_ms
+
+    def _watch_recorder(self, t: float) -> None:
+        connected = self.markers.have_consumers()
+        if connected != self.state.recorder_connected:
+            changed = self.state.recorder_connected is not None or connected
+            self.state.recorder_connected = connected
+            if changed:
+                self.journal.append("recorder_connected" if connected else "recorder_lost", t=t)
+                if self.on_recorder_change is not None:
+                    self.on_recorder_change(connected)
+
+
+def stimulus_abspath(loaded: LoadedProtocol, trial: ScheduledTrial) -> Path:
+    return loaded.table.stimulus_path(loaded.table.rows[trial.row - 1])

@@ -1,0 +1,218 @@
+"""A simulated participant for pilots: real key presses, posted at planned times.
+
+It watches the screens the engine shows and, for each, schedules key presses on a helper thread
+that posts them through the presenter's real input path at the planned instants. Its behaviour
+is seeded per trial, so a pilot is reproducible: it answers correctly with a probability that
+falls as the expected count grows, sometimes chooses "unsure", takes longer on longer routes, and
+rates harder trials higher.
+
+The model's numbers are invented for piloting the software; they are not a model of people.
+"""
+
+from __future__ import annotations
+
+import heapq
+import math
+import random
+import threading
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from runner.protocol.schedule import ScheduledTrial
+from runner.session.views import View
+
+PAGE_READ_S = 1.2
+BREAK_EXTRA_S = 0.6
+KEY_GAP_S = 0.16  # between typed digits
+CONFIRM_GAP_S = 0.22
+RATING_RT_S = 0.75
+SPIN_S = 0.0015
+BASE_RT_S = 1.4
+RT_PER_COUNT_S = 0.55
+RT_SIGMA = 0.3
+
+
+@dataclass(frozen=True)
+class TrialPlan:
+    """What the simulated participant will do in one trial."""
+
+    rt_s: float  # intended decision time after stimulus onset, before dividing by speed
+    unsure: bool
+    answer: int | None
+    rating: int
+
+
+def plan_trial(seed: int, trial: ScheduledTrial, *, points: int, max_answer: int) -> TrialPlan:
+    """The seeded plan of one trial (pure: the same inputs give the same plan)."""
+    rng = random.Random(f"{seed}:{trial.trial}")
+    difficulty = trial.expected if trial.expected is not None else 5
+    p_unsure = min(0.3, 0.01 + 0.02 * difficulty)
+    p_correct = max(0.3, 0.98 - 0.05 * difficulty)
+    rt = (BASE_RT_S + RT_PER_COUNT_S * difficulty) * math.exp(rng.gauss(0.0, RT_SIGMA))
+    unsure = rng.random() < p_unsure
+    answer: int | None = None
+    if not unsure:
+        if trial.expected is None or rng.random() < p_correct:
+            answer = (
+                trial.expected if trial.expected is not None else rng.randint(0, min(9, max_answer))
+            )
+        else:
+            answer = max(0, trial.expected + rng.choice([-2, -1, 1, 2]))
+        answer = min(answer, max_answer)
+    level = difficulty / 12.0 + rng.gauss(0.0, 0.12) + (0.15 if unsure else 0.0)
+    rating = int(min(points, max(1, round(1 + (points - 1) * level))))
+    return TrialPlan(rt_s=rt, unsure=unsure, answer=answer, rating=rating)
+
+
+class KeyScheduler:
+    """A thread that posts key presses at planned clock times."""
+
+    def __init__(self, post: Callable[[str], float], clock: Callable[[], float]):
+        self._post = post
+        self._clock = clock
+        self._heap: list[tuple[float, int, str]] = []
+        self._n = 0
+        self._cv = threading.Condition()
+        self._stop = False
+        self._thread = threading.Thread(
+            target=self._loop, name="simulated-participant", daemon=True
+        )
+        self.posted: list[tuple[str, float, float]] = []  # (key, planned, posted)
+
+    def start(self) -> None:
+        self._thread.start()
+
+    def at(self, t: float, key: str) -> None:
+        with self._cv:
+            heapq.heappush(self._heap, (t, self._n, key))
+            self._n += 1
+            self._cv.notify()
+
+    def clear(self) -> None:
+        with self._cv:
+            self._heap.clear()
+
+    def stop(self) -> None:
+        with self._cv:
+            self._stop = True
+            self._cv.notify()
+        self._thread.join(timeout=2)
+
+    def _loop(self) -> None:
+        while True:
+            with self._cv:
+                while not self._stop and not self._heap:
+                    self._cv.wait()
+                if self._stop:
+                    return
+                t, _, key = self._heap[0]
+                wait = t - self._clock() - SPIN_S
+                if wait > 0:
+                    self._cv.wait(timeout=wait)
+                    continue
+                heapq.heappop(self._heap)
+            while self._clock() < t:
+                time.sleep(0)  # spin without holding the GIL, so the engine's polling loop runs
+            posted = self._post(key)
+            self.posted.append((key, t, posted))
+
+
+class SimulatedParticipant:
+    """Observer of the engine's screens that answers like a (simple, seeded) participant.
+
+    ``abort_at`` makes it press Escape and confirm at that trial's stimulus onset, to pilot the
+    abort path.
+    """
+
+    def __init__(
+        self,
+        *,
+        seed: int,
+        points: int,
+        max_answer: int,
+        unsure_key: str,
+        decision_key: str,
+        mode: str,
+        speed: float,
+        post: Callable[[str], float],
+        clock: Callable[[], float],
+        abort_at: int | None = None,
+    ):
+        self.seed = seed
+        self.points = points
+        self.max_answer = max_answer
+        self.unsure_key = unsure_key
+        self.decision_key = decision_key
+        self.mode = mode
+        self.speed = float(speed)
+        self.abort_at = abort_at
+        self.keys = KeyScheduler(post, clock)
+        self.plans: dict[int, TrialPlan] = {}
+        self.intended_rt_ms: dict[int, float] = {}
+        self._last_page_t: float | None = None
+
+    def start(self) -> None:
+        self.keys.start()
+
+    def stop(self) -> None:
+        self.keys.stop()
+
+    def _s(self, seconds: float) -> float:
+        return seconds / self.speed
+
+    def _type(self, t: float, plan: TrialPlan) -> None:
+        if plan.unsure:
+            self.keys.at(t, self.unsure_key)
+            return
+        for i, ch in enumerate(str(plan.answer)):
+            self.keys.at(t + i * self._s(KEY_GAP_S), ch)
+        self.keys.at(
+            t + len(str(plan.answer)) * self._s(KEY_GAP_S) + self._s(CONFIRM_GAP_S), "return"
+        )
+
+    def _rate(self, t: float, rating: int) -> None:
+        if rating <= 9:
+            self.keys.at(t, str(rating))
+        elif rating == 10 and self.points >= 10:
+            self.keys.at(t, "0")
+        else:
+            # 11 on an 11-point scale: move right from the middle, then confirm.
+            start = (self.points + 1) // 2
+            self.keys.at(t, "right")
+            for k in range(rating - start):
+                self.keys.at(t + (k + 1) * self._s(KEY_GAP_S), "right")
+            self.keys.at(t + (rating - start + 2) * self._s(KEY_GAP_S), "return")
+
+    def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
+        if kind == "page":
+            self.keys.at(t + self._s(PAGE_READ_S), "space")
+        elif kind == "break":
+            seconds_left = getattr(view, "seconds_left", 0)
+            self.keys.at(t + seconds_left + self._s(BREAK_EXTRA_S), "space")
+        elif kind == "stimulus" and trial is not None:
+            plan = plan_trial(self.seed, trial, points=self.points, max_answer=self.max_answer)
+            self.plans[trial.trial] = plan
+            rt = self._s(plan.rt_s)
+            self.intended_rt_ms[trial.trial] = rt * 1000.0
+            if self.abort_at == trial.trial:
+                self.keys.at(t + rt / 2, "escape")
+                self.keys.at(t + rt / 2 + self._s(0.3), "y")
+                return
+            if self.mode == "after":
+                self.keys.at(t + rt, self.unsure_key if plan.unsure else self.decision_key)
+            else:
+                self._type(t + rt, plan)
+        elif kind == "answer" and trial is not None:
+            plan = self.plans.get(trial.trial)
+            if plan is not None:
+                self._type(t + self._s(0.5), plan)
+        elif kind == "rating" and trial is not None:
+            plan = self.plans.get(trial.trial)
+            if plan is not None:
+                self._rate(t + self._s(RATING_RT_S), plan.rating)
+
+    def extra_row(self, trial: ScheduledTrial) -> dict[str, float | None]:
+        """The pilot-only trials.csv column: the intended response time in ms."""
+        rt = self.intended_rt_ms.get(trial.trial)
+        return {"sim_rt_ms": None if rt is None else round(rt, 3)}
