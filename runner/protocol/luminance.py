@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+from PIL import Image, UnidentifiedImageError
 
 from runner.errors import InputFileError
 
@@ -49,7 +50,9 @@ RGB_WEIGHTS = np.array([0.2126, 0.7152, 0.0722])
 _HEX_DIGITS = set("0123456789abcdefABCDEF")
 # Pillow modes whose pixels convert to 8-bit RGB(A) without loss of range.
 _EIGHT_BIT_MODES = {"1", "L", "LA", "P", "PA", "RGB", "RGBA", "RGBa", "CMYK", "YCbCr", "La"}
-_ALPHA_MODES = {"LA", "PA", "RGBA", "RGBa", "La"}
+# Diagrams usually hold few distinct colours; up to this many, Pillow lists them with counts,
+# which is faster than per-channel histograms and exact for semi-transparent pixels too.
+MAX_LISTED_COLOURS = 1 << 16
 
 Rect = tuple[float, float, float, float]
 ColourSpec = str | Sequence[int]
@@ -197,42 +200,60 @@ class ImageStats:
         return total / (self.width * self.height)
 
 
-def _channel_sum(channels: np.ndarray) -> float:
-    """Sum of luminance of opaque 8-bit pixels (n, 3) via per-channel value counts."""
-    total = 0.0
-    for k in range(3):
-        counts = np.bincount(channels[:, k], minlength=SRGB_MAX + 1)
-        total += RGB_WEIGHTS[k] * float(counts @ _LINEAR_LUT)
-    return total
+def _colour_luminance(rgb8: np.ndarray) -> np.ndarray:
+    """Luminance of integer colours (k, 3) by table look-up."""
+    return _LINEAR_LUT[rgb8] @ RGB_WEIGHTS
 
 
-def _stats_from_rgba8(pixels: np.ndarray) -> ImageStats:
-    height, width = pixels.shape[:2]
-    flat = pixels.reshape(-1, pixels.shape[2])
-    empty = np.zeros((0, 4), dtype=np.uint8)
-    if flat.shape[1] == 3:
-        return ImageStats(width, height, _channel_sum(flat), len(flat), 0, empty, np.zeros(0))
-    alpha = flat[:, 3]
+def _stats_from_colours(
+    width: int, height: int, colours: list[tuple[int, tuple[int, ...]]]
+) -> ImageStats:
+    """Stats from Pillow's list of (count, colour) for every distinct RGB or RGBA colour."""
+    counts = np.array([count for count, _ in colours], dtype=np.int64)
+    values = np.array([colour for _, colour in colours], dtype=np.intp).reshape(len(colours), -1)
+    if values.shape[1] == 3:
+        values = np.column_stack([values, np.full(len(values), SRGB_MAX)])
+    alpha = values[:, 3]
     opaque = alpha == SRGB_MAX
     transparent = alpha == 0
     partial = ~(opaque | transparent)
-    rgba, counts = empty, np.zeros(0, dtype=np.int64)
-    if partial.any():
-        packed = flat[partial].astype(np.uint32)
-        keys = (packed[:, 0] << 24) | (packed[:, 1] << 16) | (packed[:, 2] << 8) | packed[:, 3]
-        unique, counts = np.unique(keys, return_counts=True)
-        rgba = np.stack([(unique >> shift) & 0xFF for shift in (24, 16, 8, 0)], axis=1).astype(
-            np.uint8
-        )
     return ImageStats(
         width,
         height,
-        _channel_sum(flat[opaque, :3]),
-        int(opaque.sum()),
-        int(transparent.sum()),
-        rgba,
-        counts,
+        float(counts[opaque] @ _colour_luminance(values[opaque, :3])),
+        int(counts[opaque].sum()),
+        int(counts[transparent].sum()),
+        values[partial].astype(np.uint8),
+        counts[partial],
     )
+
+
+def _stats_from_histograms(rgba: Image.Image) -> ImageStats:
+    """Stats for images with many colours: channel histograms plus the partly clear pixels."""
+    width, height = rgba.size
+    if rgba.mode == "RGB":
+        hist = np.array(rgba.histogram(), dtype=np.int64).reshape(3, SRGB_MAX + 1)
+        opaque_sum = float((hist @ _LINEAR_LUT) @ RGB_WEIGHTS)
+        empty = np.zeros((0, 4), dtype=np.uint8)
+        return ImageStats(width, height, opaque_sum, width * height, 0, empty, np.zeros(0))
+    alpha = rgba.getchannel("A")
+    alpha_counts = alpha.histogram()
+    n_opaque, n_transparent = alpha_counts[SRGB_MAX], alpha_counts[0]
+    # Pillow counts only pixels where the mask is non-zero: here the fully opaque ones.
+    opaque_mask = alpha.point([0] * SRGB_MAX + [SRGB_MAX])
+    hist = np.array(rgba.convert("RGB").histogram(mask=opaque_mask), dtype=np.int64)
+    per_channel = hist.reshape(3, SRGB_MAX + 1) @ _LINEAR_LUT
+    opaque_sum = float(per_channel @ RGB_WEIGHTS)
+    rgba_values = np.zeros((0, 4), dtype=np.uint8)
+    counts = np.zeros(0, dtype=np.int64)
+    if n_opaque + n_transparent < width * height:
+        # Pack each RGBA pixel into one 32-bit word (a view, no copy) to count distinct values.
+        packed = np.asarray(rgba).reshape(-1, 4).view(np.uint32).ravel()
+        alpha8 = np.asarray(alpha).ravel()
+        partial = (alpha8 != 0) & (alpha8 != SRGB_MAX)
+        unique, counts = np.unique(packed[partial], return_counts=True)
+        rgba_values = unique.view(np.uint8).reshape(-1, 4)
+    return ImageStats(width, height, opaque_sum, n_opaque, n_transparent, rgba_values, counts)
 
 
 def _stats_from_float(pixels: np.ndarray) -> ImageStats:
@@ -262,15 +283,18 @@ def _stats_from_float(pixels: np.ndarray) -> ImageStats:
 
 
 def _decode(data: bytes, name: str) -> ImageStats:
-    from PIL import Image, UnidentifiedImageError
-
     try:
         with Image.open(io.BytesIO(data)) as img:
-            mode = img.mode
-            if mode in _EIGHT_BIT_MODES:
-                has_alpha = mode in _ALPHA_MODES or "transparency" in img.info
-                converted = img.convert("RGBA" if has_alpha else "RGB")
-                return _stats_from_rgba8(np.asarray(converted))
+            if img.mode in _EIGHT_BIT_MODES:
+                # Plain RGB and RGBA are used as decoded; converting would copy the pixels.
+                keep = img.mode == "RGBA" or (img.mode == "RGB" and "transparency" not in img.info)
+                pixels = img if keep else img.convert("RGBA")
+                pixels.load()
+                width, height = pixels.size
+                colours = pixels.getcolors(MAX_LISTED_COLOURS)
+                if colours is not None:
+                    return _stats_from_colours(width, height, colours)
+                return _stats_from_histograms(pixels)
     except (UnidentifiedImageError, OSError, ValueError) as err:
         raise InputFileError(
             f"The image {name} cannot be read ({err}); check that it is a PNG or JPEG file "
@@ -373,7 +397,7 @@ def image_mean_luminance(
     InputFileError
         If the file is missing or cannot be decoded.
     """
-    return (cache or LuminanceCache()).mean_luminance(path, background)
+    return (cache if cache is not None else LuminanceCache()).mean_luminance(path, background)
 
 
 def _clip(rect: Rect, width: int, height: int) -> tuple[float, float, float, float]:
@@ -430,7 +454,7 @@ def mean_luminance_of_screen(
     ]
     if image is not None:
         path, rect = image
-        lum = (cache or LuminanceCache()).mean_luminance(path, background)
+        lum = (cache if cache is not None else LuminanceCache()).mean_luminance(path, background)
         layers.append((_clip(rect, width, height), lum))
     for rect, colour in patches:
         layers.append((_clip(rect, width, height), float(relative_luminance(colour))))

@@ -119,11 +119,15 @@ def test_image_composited_on_background(tmp_path) -> None:
     assert image_mean_luminance(path, background=(0, 0, 0)) == pytest.approx(on_black, rel=1e-12)
 
 
-def test_opaque_rgb_image_matches_per_pixel_mean(tmp_path) -> None:
+@pytest.mark.parametrize("listed_colours", [1 << 16, 1])
+def test_opaque_rgb_image_matches_per_pixel_mean(tmp_path, monkeypatch, listed_colours) -> None:
     """For a random opaque RGB image the mean equals the per-pixel luminance average.
 
     Source: WCAG 2.2 relative luminance applied pixel by pixel with numpy as the reference.
     """
+    import runner.protocol.luminance as module
+
+    monkeypatch.setattr(module, "MAX_LISTED_COLOURS", listed_colours)
     rng = np.random.default_rng(11)
     pixels = rng.integers(0, 256, size=(37, 53, 3), dtype=np.uint8)
     path = tmp_path / "noise.png"
@@ -235,3 +239,51 @@ def test_screen_rejects_bad_input(size, patches, fragment: str) -> None:
     """Bad sizes, rectangles or colours raise ValueError."""
     with pytest.raises(ValueError, match=fragment):
         mean_luminance_of_screen(size, "#000", patches=patches)
+
+
+@pytest.mark.parametrize("listed_colours", [1 << 16, 1])
+def test_semi_transparent_random_image_both_decoders(tmp_path, monkeypatch, listed_colours) -> None:
+    """Colour-list and histogram decoding both equal per-pixel blending for a random RGBA image.
+
+    Source: WCAG 2.2 relative luminance with 8-bit alpha blending, pixel by pixel in numpy.
+    """
+    import runner.protocol.luminance as module
+
+    monkeypatch.setattr(module, "MAX_LISTED_COLOURS", listed_colours)
+    rng = np.random.default_rng(7)
+    pixels = rng.integers(0, 256, size=(40, 30, 4), dtype=np.uint8)
+    pixels[:10, :, 3] = 255
+    pixels[10:20, :, 3] = 0
+    path = tmp_path / "mixed.png"
+    Image.fromarray(pixels, "RGBA").save(path)
+    bg = np.array([128, 64, 200], dtype=float)
+    a = pixels[..., 3:4].astype(float) / 255
+    blended = a * pixels[..., :3] + (1 - a) * bg
+    lin = np.vectorize(_wcag_by_hand)(blended)
+    expected = float((lin @ np.array([0.2126, 0.7152, 0.0722])).mean())
+    got = image_mean_luminance(path, background=(128, 64, 200))
+    assert got == pytest.approx(expected, rel=1e-12)
+
+
+def test_empty_cache_passed_in_is_used(tmp_path) -> None:
+    """A fresh (empty) cache handed to the functions is filled, not replaced."""
+    path = tmp_path / "one.png"
+    Image.fromarray(np.zeros((3, 3, 3), dtype=np.uint8), "RGB").save(path)
+    cache = LuminanceCache()
+    image_mean_luminance(path, background="#000", cache=cache)
+    mean_luminance_of_screen((10, 10), "#000", image=(path, (0, 0, 3, 3)), cache=cache)
+    assert cache.decoded == 1 and len(cache) == 1
+
+
+def test_palette_image_with_transparent_index(tmp_path) -> None:
+    """A palette PNG whose transparent index shows the background is measured correctly.
+
+    Source: WCAG 2.2 relative luminance; half white, half background by construction.
+    """
+    img = Image.new("P", (4, 2), 0)
+    img.putpalette([0, 0, 0, 255, 255, 255] + [0] * 762)
+    img.paste(1, (0, 0, 2, 2))
+    path = tmp_path / "palette.png"
+    img.save(path, transparency=0)
+    expected = (1.0 + relative_luminance("#808080")) / 2
+    assert image_mean_luminance(path, background="#808080") == pytest.approx(expected)
