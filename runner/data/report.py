@@ -27,9 +27,9 @@ h3 { font-size: 15px; margin: 18px 0 6px; color: var(--muted); font-weight: 600;
 p { margin: 6px 0; max-width: 78ch; }
 .scroll { overflow-x: auto; }
 table { border-collapse: collapse; font-size: 13px; margin: 6px 0 14px; background: #fff; }
-th, td { padding: 4px 10px; border-bottom: 1px solid var(--rule); text-align: right;
+th, td { padding: 4px 8px; border-bottom: 1px solid var(--rule); text-align: right;
          white-space: nowrap; font-variant-numeric: tabular-nums; }
-th { background: #f1efe9; font-weight: 600; }
+th { background: #f1efe9; font-weight: 600; white-space: normal; vertical-align: bottom; }
 td:first-child, th:first-child { text-align: left; }
 tbody tr:nth-child(even) { background: #faf9f6; }
 figure { margin: 14px 0 22px; }

@@ -11,6 +11,7 @@ has only the runtime dependencies (scipy is a test-only reference). The pieces a
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
@@ -120,6 +121,8 @@ def t_cdf(t: float, df: float) -> float:
     return 1.0 - tail if t >= 0 else tail
 
 
+# Summaries ask for the same few (confidence, df) pairs many times, one per group.
+@functools.lru_cache(maxsize=4096)
 def t_critical(confidence: float, df: float) -> float:
     """Two-sided critical value of Student's t: the quantile at ``(1 + confidence) / 2``.
 
@@ -176,8 +179,11 @@ def mean_ci(
         ``(mean, low, high)``. With no values all three are NaN; with one value the bounds are NaN
         because the spread cannot be estimated.
     """
-    arr = pd.to_numeric(pd.Series(list(values), dtype="object"), errors="coerce")
-    x = arr.to_numpy(dtype=float, na_value=np.nan)
+    if isinstance(values, np.ndarray) and values.dtype.kind in "fiu":
+        x = values.astype(float, copy=False).ravel()
+    else:
+        series = values if isinstance(values, pd.Series) else pd.Series(list(values), dtype=object)
+        x = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
     x = x[np.isfinite(x)]
     n = x.size
     if n == 0:

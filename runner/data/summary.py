@@ -125,22 +125,28 @@ def rating_columns(rating_points: int) -> list[str]:
 def _group_rows(
     trials: pd.DataFrame, by: str, levels: Sequence[Any], rating_points: int
 ) -> pd.DataFrame:
-    outcome = trials["outcome"].astype(str)
-    ratings = _ratings(trials, rating_points)
-    rt = pd.to_numeric(trials["rt_ms"], errors="coerce").astype(float)
-    answered_rt = rt.where(outcome.isin(ANSWERED))
+    # Work on plain arrays and precomputed row positions per level: with hundreds of
+    # participants, comparing the whole column once per group dominates otherwise.
+    outcome = trials["outcome"].astype(str).to_numpy()
+    ratings = _ratings(trials, rating_points).to_numpy()
+    rt = pd.to_numeric(trials["rt_ms"], errors="coerce").astype(float).to_numpy()
+    answered_rt = np.where(np.isin(outcome, ANSWERED), rt, np.nan)
+    positions = trials.groupby(by, sort=False, dropna=True).indices
+    empty = np.empty(0, dtype=np.intp)
     rows = []
     for level in levels:
-        mask = (trials[by] == level).to_numpy()
-        out = outcome[mask]
+        where = positions.get(level, empty)
+        out = outcome[where]
         counts = {name: int((out == name).sum()) for name in OUTCOMES}
         n_scored = sum(counts.values())
-        rts = answered_rt[mask].dropna()
+        rts = answered_rt[where]
+        rts = rts[np.isfinite(rts)]
         mean, low, high = mean_ci(rts)
-        lvl_ratings = ratings[mask]
+        lvl_ratings = ratings[where]
+        rated = lvl_ratings[np.isfinite(lvl_ratings)]
         row: dict[str, Any] = {
             by: level,
-            "n_trials": int(mask.sum()),
+            "n_trials": int(where.size),
             "n_scored": n_scored,
             **{f"n_{name}": counts[name] for name in OUTCOMES},
             "n_unscored": int((out == UNSCORED).sum()),
@@ -150,16 +156,16 @@ def _group_rows(
             },
             "rt_n": int(rts.size),
             "rt_mean_ms": mean,
-            "rt_median_ms": float(rts.median()) if rts.size else math.nan,
+            "rt_median_ms": float(np.median(rts)) if rts.size else math.nan,
             "rt_ci_low_ms": low,
             "rt_ci_high_ms": high,
-            "rating_n": int(lvl_ratings.notna().sum()),
-            "rating_mean": float(lvl_ratings.mean()) if lvl_ratings.notna().any() else math.nan,
+            "rating_n": int(rated.size),
+            "rating_mean": float(rated.mean()) if rated.size else math.nan,
             **{
-                col: int((lvl_ratings == k).sum())
+                col: int((rated == k).sum())
                 for k, col in enumerate(rating_columns(rating_points), start=1)
             },
-            "rating_none": int(lvl_ratings.isna().sum()),
+            "rating_none": int(lvl_ratings.size - rated.size),
         }
         rows.append(row)
     return pd.DataFrame(rows, columns=_summary_columns(by, rating_points))
