@@ -31,6 +31,7 @@ from runner.session.views import (
     RatingView,
     StimulusView,
     View,
+    view_to_dict,
 )
 
 DIGITS = frozenset("0123456789")
@@ -222,6 +223,16 @@ class Engine:
             self._pushed = (mark, t, payload, self._push(payload, t))
         self._current = view
         self._current_photodiode = photodiode
+        # Every screen change is journaled with what was drawn, so audit can time each screen
+        # and replay can redraw it exactly.
+        flip: dict[str, Any] = {"t": t, "kind": kind, "view": view_to_dict(view)}
+        if trial is not None:
+            flip["trial"] = trial.trial
+        if photodiode:
+            flip["photodiode"] = True
+        if at is not None:
+            flip["at"] = at
+        self.journal.append("flip", **flip)
         for obs in self.observers:
             obs.on_view(kind, t, trial, view)
         return t

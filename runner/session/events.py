@@ -44,6 +44,7 @@ MARKED_EVENTS = frozenset(
 JOURNAL_ONLY_EVENTS = frozenset(
     {
         "header",
+        "flip",
         "trial_start",
         "trial_end",
         "typing",
