@@ -304,10 +304,40 @@ class Checks(Strict):
     max_upscale: float = Field(
         1.5, ge=1, le=100, description="Warn when a stimulus is enlarged more than this."
     )
-    max_minutes_without_break: float = Field(20, gt=0, le=600)
+    max_minutes_without_break: float = Field(
+        20,
+        gt=0,
+        le=600,
+        description="Warn when the typical time between two pauses (break, page or rest) is longer.",
+    )
     acknowledge_flashes: bool = Field(
         False,
         description="Set true only after ethics approval of content that breaks the three-flash rule.",
+    )
+    min_response_ms: float = Field(
+        200,
+        gt=0,
+        le=60000,
+        description="Shortest time from a screen's onset to a key press that the flash check and"
+        " the shortest session length assume (a fast simple reaction time).",
+    )
+    typical_viewing_s: float = Field(
+        10,
+        gt=0,
+        le=3600,
+        description="Typical viewing time of a stimulus, for the typical session length.",
+    )
+    typical_response_s: float = Field(
+        2,
+        gt=0,
+        le=3600,
+        description="Typical time to type a count or choose a rating, for the typical session length.",
+    )
+    typical_page_s: float = Field(
+        20,
+        gt=0,
+        le=3600,
+        description="Typical time spent reading an instruction page, for the session length.",
     )
 
 
