@@ -28,3 +28,34 @@ os.environ["LSLAPICFG"] = str(_LSL_CFG)
 
 REPO = Path(__file__).resolve().parent.parent
 TEST_DATA = Path(__file__).resolve().parent / "data"
+
+MINI_PROTOCOL = TEST_DATA / "mini" / "mini.yaml"
+DEMO_PROTOCOL = REPO / "configs" / "demo.yaml"
+
+
+def run_pilot(
+    protocol: Path,
+    out: Path,
+    *,
+    participant: str = "P01",
+    session: str = "1",
+    speed: float = 20.0,
+    frames: Path | None = None,
+    **options,
+):
+    """Run a headless pilot in this process and return its RunResult (test helper)."""
+    from runner.present.screen import display_for
+    from runner.protocol.load import load_protocol
+    from runner.session.console import Console
+    from runner.session.run import RunOptions, run_session
+
+    loaded = load_protocol(protocol)
+    opts = RunOptions(
+        participant=participant, session=session, out=out, mode="pilot", speed=speed, **options
+    )
+    return run_session(
+        loaded,
+        opts,
+        open_presenter=lambda: display_for(loaded, fullscreen=False, frames_dir=frames),
+        console=Console(quiet=True),
+    )

@@ -57,9 +57,10 @@ class LoadedProtocol:
 def display_name(path: Path) -> str:
     """How a file is named in problem lines: relative to the working folder when inside it."""
     try:
-        return os.path.relpath(path)
+        rel = os.path.relpath(path)
     except ValueError:
         return str(path)
+    return str(path) if rel.startswith("..") else rel
 
 
 def select_rows(table: TrialTable, where: Where) -> list[TrialRow]:
@@ -109,7 +110,9 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     try:
         model = Protocol.model_validate(doc.data)
     except ValidationError as exc:
-        raise ProtocolError(problems_from_validation(exc, file=name, doc=doc)) from None
+        raise ProtocolError(
+            problems_from_validation(exc, file=name, doc=doc, model=Protocol)
+        ) from None
 
     problems: list[Problem] = []
 
