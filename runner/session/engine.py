@@ -159,6 +159,8 @@ class Engine:
         self.total_trials = len(schedule.trials)
         self.push_delays_us: list[float] = []
         self._pushed: tuple[str, float, str, float] | None = None
+        # Start of the current stretch of trials: breaks.every_minutes counts from here.
+        self._since_pause = 0.0
 
     # -- journaling and markers ---------------------------------------------------------------
     def emit(
@@ -270,6 +272,7 @@ class Engine:
     def run(self) -> None:
         """Run every schedule item. Raises AbortRequested when the experimenter ends the session."""
         self.state.started = self.clock()
+        self._since_pause = self.state.started
         self.emit(
             "session_start",
             self.state.started,
@@ -318,6 +321,7 @@ class Engine:
         assert hit is not None
         self.emit("page_end", hit.t, item=item.index, key=hit.key)
         self._next_at = None
+        self._since_pause = hit.t
 
     def _rest(self, item: Item) -> None:
         view: View = FixationView() if item.show == "fixation" else BlankView()
@@ -332,6 +336,7 @@ class Engine:
         self.emit("rest_end", t1, label=item.label, actual_s=round(t1 - t0, 6))
         self.journal.sync()
         self._next_at = None
+        self._since_pause = t1
 
     def _break(self, item: Item) -> None:
         min_s = item.seconds / self.speed
@@ -360,6 +365,7 @@ class Engine:
         self.emit("break_end", hit.t, item=item.index, actual_s=round(hit.t - t0, 6))
         self.journal.sync()
         self._next_at = None
+        self._since_pause = hit.t
 
     def _block(self, item: Item) -> None:
         t = self.clock()
@@ -373,9 +379,22 @@ class Engine:
         for trial in item.trials:
             if trial.trial in self.skip:
                 continue
+            if item.part == "main":
+                self._timed_break(item)
             self._trial(trial)
         self.emit("block_end", self.clock(), block=item.label, part=item.part)
         self.journal.sync()
+
+    def _timed_break(self, item: Item) -> None:
+        """A break once breaks.every_minutes have passed since the last pause (item -1 in the journal)."""
+        breaks = self.model.breaks
+        if breaks is None or not breaks.every_minutes:
+            return
+        if self.clock() - self._since_pause < breaks.every_minutes * 60.0 / self.speed:
+            return
+        self._break(
+            Item("break", -1, item.step, text=breaks.text, key=breaks.key, seconds=breaks.min_s)
+        )
 
     # -- one trial ------------------------------------------------------------------------------
     def _prompt(self, trial: ScheduledTrial) -> str:
