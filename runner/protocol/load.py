@@ -150,6 +150,15 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
         if isinstance(step, PageStep):
             if step.page.file is not None:
                 page_path = (path.parent / step.page.file).resolve()
+                if not model.trials.allow_outside and not page_path.is_relative_to(
+                    path.parent.resolve()
+                ):
+                    at(
+                        ("sequence", i, "page", "file"),
+                        f"the page file {step.page.file!r} lies outside the protocol's folder;"
+                        " set trials.allow_outside: true if that is intended",
+                    )
+                    continue
                 try:
                     data = page_path.read_bytes()
                     if len(data) > MAX_PAGE_BYTES:

@@ -16,6 +16,7 @@ from pydantic import (
     Discriminator,
     Field,
     Tag,
+    ValidationInfo,
     field_validator,
     model_validator,
 )
@@ -36,7 +37,7 @@ class Strict(BaseModel):
 
 def _colour(value: str) -> str:
     if not isinstance(value, str) or not COLOUR_RE.match(value):
-        raise ValueError(f"expected a colour like '#808080', got {value!r}")
+        raise ValueError("expected a colour written '#rrggbb' or '#rgb', like '#808080'")
     return value.lower()
 
 
@@ -49,7 +50,7 @@ class Screen(Strict):
     resolution: tuple[
         Annotated[int, Field(ge=320, le=MAX_SCREEN_PX)],
         Annotated[int, Field(ge=240, le=MAX_SCREEN_PX)],
-    ] = Field(description="Width and height of the display in pixels, at its native resolution.")
+    ] = Field(description="a list [width, height] in pixels, the display's native resolution")
     refresh_hz: float = Field(ge=30, le=500, description="Refresh rate the display must run at.")
     background: Colour = Field("#8c8c8c", description="Background colour of every screen.")
     text_colour: Colour = Field("#141414", description="Colour of text and the fixation cross.")
@@ -134,12 +135,20 @@ class Answer(Strict):
         None, description="Trial-table column that overrides the prompt."
     )
 
+    @model_validator(mode="after")
+    def _distinct_keys(self) -> Answer:
+        if self.unsure_key == self.decision_key:
+            raise ValueError(
+                f"unsure_key and decision_key are both {self.unsure_key!r}; give them different keys"
+            )
+        return self
+
     @field_validator("unsure_key", "decision_key")
     @classmethod
     def _key(cls, v: str) -> str:
         if v not in KEY_NAMES:
             raise ValueError(
-                f"expected a letter a-z or one of space, return, tab, period, comma, slash; got {v!r}"
+                "expected a letter a-z or one of space, return, tab, period, comma, slash"
             )
         return v
 
@@ -361,26 +370,33 @@ class Protocol(Strict):
     @classmethod
     def _study(cls, v: str) -> str:
         if not STUDY_RE.match(v):
-            raise ValueError(f"expected letters, digits and hyphens (at most 63), got {v!r}")
+            raise ValueError(
+                "expected letters, digits and hyphens (at most 63), starting with a letter or digit"
+            )
         return v
 
-    @model_validator(mode="after")
-    def _cross(self) -> Protocol:
-        if self.answer.unsure_key == self.answer.decision_key:
-            raise ValueError("answer.unsure_key and answer.decision_key must differ")
-        uses_deg = (
-            self.stimulus_size.width_deg is not None or self.stimulus_size.height_deg is not None
-        )
-        if uses_deg and (self.screen.width_cm is None or self.screen.distance_cm is None):
+    # Cross-field rules are field validators (not one model validator) so that each error
+    # points at the setting it concerns; fields are validated in order, so screen comes first.
+    @field_validator("stimulus_size")
+    @classmethod
+    def _size_needs_screen(cls, v: StimulusSize, info: ValidationInfo) -> StimulusSize:
+        screen = info.data.get("screen")
+        if screen is None:
+            return v
+        if (v.width_deg is not None or v.height_deg is not None) and (
+            screen.width_cm is None or screen.distance_cm is None
+        ):
             raise ValueError("a size in degrees needs screen.width_cm and screen.distance_cm")
-        uses_cm = (
-            self.stimulus_size.width_cm is not None or self.stimulus_size.height_cm is not None
-        )
-        if uses_cm and self.screen.width_cm is None:
+        if (v.width_cm is not None or v.height_cm is not None) and screen.width_cm is None:
             raise ValueError("a size in cm needs screen.width_cm")
-        if not any(isinstance(s, (PracticeStep, BlocksStep, TrialsStep)) for s in self.sequence):
+        return v
+
+    @field_validator("sequence")
+    @classmethod
+    def _has_trials(cls, v: list[Step]) -> list[Step]:
+        if not any(isinstance(s, (PracticeStep, BlocksStep, TrialsStep)) for s in v):
             raise ValueError("the sequence has no trials: add a practice, blocks or trials step")
-        return self
+        return v
 
 
 def step_kind(step: Step) -> str:
