@@ -406,8 +406,15 @@ class _Checker:
             first_row[file] = row.line
             try:
                 stats = self.cache.stats(file)
-            except InputFileError as exc:
-                errors.append((row.line, f"stimulus {row.stimulus!r} cannot be decoded: {exc}"))
+            except InputFileError:
+                # The reader's own message names a temporary buffer; say what to do instead.
+                errors.append(
+                    (
+                        row.line,
+                        f"stimulus {row.stimulus!r} cannot be decoded as an image ({file});"
+                        " check that it is a PNG or JPEG file and not damaged",
+                    )
+                )
                 continue
             w, h, scale = _fit(stats.width, stats.height, box)
             lum = stats.mean_luminance(model.screen.background)
