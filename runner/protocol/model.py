@@ -350,6 +350,25 @@ class Checks(Strict):
     )
 
 
+class Triggers(Strict):
+    """Optional hardware trigger codes: one byte per marked event, sent over a serial port."""
+
+    port: str | None = Field(
+        None,
+        min_length=1,
+        description="Serial port of the trigger interface (COM3, /dev/ttyUSB0); --trigger-port"
+        " overrides it.",
+    )
+    baud: int = Field(115200, ge=300, le=4000000, description="Serial speed in bits per second.")
+    codes: dict[
+        Annotated[str, Field(pattern=r"^[a-z_]{1,40}$")], Annotated[int, Field(ge=1, le=255)]
+    ] = Field(
+        min_length=1,
+        description="Code (1-255) per marker event name, e.g. stimulus_onset: 10. 0 is left"
+        " free as the interface's resting state.",
+    )
+
+
 class Protocol(Strict):
     """A whole study protocol."""
 
@@ -365,6 +384,7 @@ class Protocol(Strict):
     sequence: list[Step] = Field(min_length=1)
     breaks: Breaks | None = None
     checks: Checks = Field(default_factory=Checks)
+    triggers: Triggers | None = None
 
     @field_validator("study")
     @classmethod
