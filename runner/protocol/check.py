@@ -284,7 +284,7 @@ def check_protocol(
     except ProtocolError as exc:
         report.problems.extend(exc.problems)
         return report
-    checker = _Checker(loaded, schedule, report, cache or LuminanceCache())
+    checker = _Checker(loaded, schedule, report, cache if cache is not None else LuminanceCache())
     checker.run(participants)
     return report
 
