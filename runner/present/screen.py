@@ -9,13 +9,13 @@ Timing rules (see docs/timing.md):
   vsync), flips are paced by a frame clock at the protocol's refresh rate, so headless runs keep
   the lab display's frame-quantised timing.
 * While waiting for a key nothing is redrawn, and input is polled every 0.3 ms (over 1 kHz).
+* On opening, :func:`runner.present.timing.measure_refresh` flips 120 times to measure the
+  refresh interval and whether flips block; the measured interval is then used for frame counts.
 """
 
 from __future__ import annotations
 
-import math
 import os
-import statistics
 import time
 from pathlib import Path
 
@@ -24,13 +24,20 @@ import pygame
 from runner.errors import DisplayError
 from runner.present.images import ImageCache
 from runner.present.screens import Painter, Style
+from runner.present.timing import (
+    LATE_INTERVALS,
+    MIN_MEASURE_FLIPS,
+    FramePacer,
+    RefreshCheck,
+    is_late,
+    measure_refresh,
+)
 from runner.session.markers import local_clock
 from runner.session.views import KeyHit, View
 
 POLL_S = 0.0003  # input polling period while waiting: about 3 kHz
 SPIN_S = 0.0015  # the last part of a wait is a busy spin, because sleep overshoots
-BLOCK_TEST_FLIPS = 12
-LATE_FRACTION = 0.5  # a flip landing more than half a frame after its target missed its frame
+EARLY_ISSUE = 0.6  # with blocking flips, issue the flip this many intervals before its target
 KEYPAD = {f"[{d}]": d for d in "0123456789"} | {"enter": "return", "[enter]": "return"}
 
 
@@ -67,17 +74,23 @@ class Display:
         frames_dir: Path | None = None,
         cache_bytes: int | None = None,
         clock=local_clock,
+        measure_flips: int = MIN_MEASURE_FLIPS,
     ):
         self.clock = clock
         self.size = (int(resolution[0]), int(resolution[1]))
         self.interval = 1.0 / float(refresh_hz)
         self.late_flips = 0
+        self.last_late = False
         self.flips = 0
+        self.polls = 0  # input polls while waiting (the self-test reports their rate)
+        self.hold: frozenset[str] = frozenset()
+        self.held: list[KeyHit] = []
         self.frames_dir = frames_dir
         self.frames_written: list[Path] = []
         self._last_saved: View | None = None
         self._pending: View | None = None
-        self._slot0: float | None = None
+        self._pacer = FramePacer(self.interval)
+        self.nominal_interval = self.interval
         try:
             pygame.display.init()
             pygame.font.init()
@@ -111,41 +124,54 @@ class Display:
             **({"max_bytes": cache_bytes} if cache_bytes else {}),
         )
         self.painter = Painter(style, self.size, box, self.images.get)
-        self.blocking = self._flips_block() if self.vsync_requested else False
+        self.blocking = False
+        self.refresh: RefreshCheck = self.measure(measure_flips)
 
     # -- flipping ---------------------------------------------------------------------------
-    def _flips_block(self) -> bool:
-        """True when a flip waits for the vertical blank (median gap over half an interval)."""
+    def measure(self, flips: int = MIN_MEASURE_FLIPS) -> RefreshCheck:
+        """Flip a plain background ``flips`` times; adopt the measured interval if flips block.
+
+        Without blocking flips (SDL dummy driver, vsync off) the protocol's interval is kept and
+        flips are paced by a frame clock instead.
+        """
         self.surface.fill(self.painter.style.background)
-        stamps = []
-        for _ in range(BLOCK_TEST_FLIPS):
-            pygame.display.flip()
-            stamps.append(self.clock())
-        gaps = [b - a for a, b in zip(stamps, stamps[1:], strict=False)]
-        return statistics.median(gaps) > 0.5 * self.interval
+        check = measure_refresh(pygame.display.flip, self.clock, self.nominal_interval, flips)
+        self.blocking = check.blocking
+        self.interval = check.interval_s if check.blocking else self.nominal_interval
+        self._pacer = FramePacer(self.interval)
+        self.refresh = check
+        return check
+
+    @property
+    def paced(self) -> bool:
+        """True when flips are paced by trialdeck's frame clock (flips do not block)."""
+        return not self.blocking
 
     def _flip(self, at: float | None) -> float:
         now = self.clock()
         if self.blocking:
             if at is not None:
-                sleep_until(at - 0.6 * self.interval, self.clock)
+                sleep_until(at - EARLY_ISSUE * self.interval, self.clock)
             pygame.display.flip()
             t = self.clock()
         else:
-            if self._slot0 is None:
-                self._slot0 = now
-            # The frame slot nearest the requested time, but never one already past.
-            k = round(((now if at is None else at) - self._slot0) / self.interval)
-            if self._slot0 + k * self.interval < now:
-                k = math.ceil((now - self._slot0) / self.interval)
-            slot = self._slot0 + k * self.interval
-            sleep_until(slot, self.clock)
+            sleep_until(self._pacer.slot(now, at), self.clock)
             pygame.display.flip()
             t = self.clock()
         self.flips += 1
-        if at is not None and t - at > LATE_FRACTION * self.interval:
-            self.late_flips += 1
+        if at is not None:
+            late = is_late(t, at, self.interval)
+        else:
+            # Asked for "now": it should land within the next refresh.
+            late = t - now > LATE_INTERVALS * self.interval
+        self.last_late = late
+        self.late_flips += late
         return t
+
+    @property
+    def last_load_wait_ms(self) -> float:
+        """How long the last drawing waited for a stimulus decode, in ms (0 when it was ready)."""
+        return self.images.last_wait_s * 1000.0
 
     def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
         self._save_pending()
@@ -187,6 +213,9 @@ class Display:
                     name = key_name(ev)
                     if accept is None or name in accept or name == "escape":
                         return KeyHit(name, t)
+                    if name in self.hold:
+                        self.held.append(KeyHit(name, t))
+            self.polls += 1
             if deadline is not None and self.clock() >= deadline:
                 return None
             time.sleep(POLL_S)
@@ -206,6 +235,7 @@ class Display:
 
     def close(self) -> None:
         self._save_pending()
+        self.images.close()
         pygame.display.quit()
 
 
