@@ -1,13 +1,21 @@
 """Stimulus images: decoded, scaled to the stimulus size and converted for display ahead of time.
 
 A least-recently-used cache bounded in bytes keeps memory flat however many stimuli a protocol
-has; the engine asks for the next trial's image during the gap before it, so no onset waits on
-the disk.
+has. :meth:`ImageCache.prepare` hands the decoding to one background thread, so the engine can
+ask for the next trials' images during the gap before them and carry on timing its screens; an
+onset then finds its image ready (:meth:`ImageCache.get` counts and times any wait).
+
+The work is split so that the background thread holds Python's interpreter lock as little as
+possible: PNG decoding and smooth scaling of 24/32-bit images run with the lock released in
+pygame-ce, and only the final conversion of the (already scaled) image to the display's pixel
+format holds it, for about a millisecond.
 """
 
 from __future__ import annotations
 
+import time
 from collections import OrderedDict
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
 import pygame
@@ -15,6 +23,7 @@ import pygame
 from runner.errors import InputFileError
 
 DEFAULT_CACHE_BYTES = 256 * 1024 * 1024
+SCALABLE_BITS = (24, 32)  # smoothscale works on these depths only
 
 
 def fit_within(w: int, h: int, box_w: int, box_h: int) -> tuple[int, int]:
@@ -23,23 +32,58 @@ def fit_within(w: int, h: int, box_w: int, box_h: int) -> tuple[int, int]:
     return max(1, round(w * scale)), max(1, round(h * scale))
 
 
+def surface_bytes(surf: pygame.Surface) -> int:
+    """Memory held by a surface's pixels."""
+    return surf.get_width() * surf.get_height() * surf.get_bytesize()
+
+
 class ImageCache:
-    """Decoded, scaled, display-ready stimulus surfaces, bounded by ``max_bytes``."""
+    """Decoded, scaled, display-ready stimulus surfaces, bounded by ``max_bytes``.
+
+    Parameters
+    ----------
+    box
+        The stimulus area (width, height) in pixels; images are scaled to fit it.
+    max_bytes
+        Upper bound of the pixel memory kept; least recently used images are dropped first.
+    background
+        Colour transparent parts are flattened onto, so blitting at onset is a plain copy.
+    threaded
+        Decode in a background thread (the default); False decodes inside :meth:`prepare`.
+    """
 
     def __init__(
-        self, box: tuple[int, int], *, max_bytes: int = DEFAULT_CACHE_BYTES, background=(0, 0, 0)
+        self,
+        box: tuple[int, int],
+        *,
+        max_bytes: int = DEFAULT_CACHE_BYTES,
+        background=(0, 0, 0),
+        threaded: bool = True,
     ):
         self.box = box
         self.max_bytes = max_bytes
         self.background = background
         self._items: OrderedDict[str, pygame.Surface] = OrderedDict()
+        self._pending: dict[str, Future[pygame.Surface]] = {}
         self._bytes = 0
+        self._pool = (
+            ThreadPoolExecutor(max_workers=1, thread_name_prefix="stimulus-decode")
+            if threaded
+            else None
+        )
         self.loads = 0
-        self.misses_at_onset = 0
+        self.peak_bytes = 0
+        self.misses_at_onset = 0  # onsets whose image had not even been asked for
+        self.waits_at_onset = 0  # onsets that had to wait for a decode still running
+        self.wait_s_total = 0.0
+        self.last_wait_s = 0.0
 
     @property
     def bytes_used(self) -> int:
         return self._bytes
+
+    def __len__(self) -> int:
+        return len(self._items)
 
     def _load(self, path: str) -> pygame.Surface:
         try:
@@ -49,38 +93,78 @@ class ImageCache:
                 f"the stimulus {path} cannot be decoded as an image ({exc})."
             ) from None
         size = fit_within(raw.get_width(), raw.get_height(), *self.box)
-        scaled = pygame.transform.smoothscale(
-            raw.convert_alpha() if pygame.display.get_surface() else raw, size
-        )
-        if pygame.display.get_surface() is not None:
-            # Flatten transparency onto the background once, so blitting at onset is a plain copy.
-            flat = pygame.Surface(size).convert()
+        if raw.get_bitsize() not in SCALABLE_BITS:
+            raw = raw.convert(32)  # palette images: expand once before scaling
+        scaled = pygame.transform.smoothscale(raw, size)
+        del raw
+        display = pygame.display.get_surface()
+        if display is not None:
+            # Flatten transparency onto the background in the display's own pixel format.
+            flat = pygame.Surface(size, 0, display)
             flat.fill(self.background)
             flat.blit(scaled, (0, 0))
             scaled = flat
         self.loads += 1
         return scaled
 
-    def prepare(self, path: str) -> pygame.Surface:
-        """Return the display-ready surface for ``path``, decoding it now if needed."""
+    def _store(self, path: str, surf: pygame.Surface) -> pygame.Surface:
+        self._items[path] = surf
+        self._bytes += surface_bytes(surf)
+        while self._bytes > self.max_bytes and len(self._items) > 1:
+            _, old = self._items.popitem(last=False)
+            self._bytes -= surface_bytes(old)
+        self.peak_bytes = max(self.peak_bytes, self._bytes)
+        return surf
+
+    def _harvest(self) -> None:
+        # Finished decodes join the cache (and its byte count) as soon as they are seen, so
+        # memory stays bounded; failed ones stay pending and raise at their onset.
+        for path in [p for p, f in self._pending.items() if f.done() and f.exception() is None]:
+            self._store(path, self._pending.pop(path).result())
+
+    def prepare(self, path: str) -> None:
+        """Start decoding ``path`` now (in the background) unless it is ready or on its way."""
+        self._harvest()
+        if path in self._items:
+            self._items.move_to_end(path)
+            return
+        if path in self._pending:
+            return
+        if self._pool is None:
+            self._store(path, self._load(path))
+            return
+        self._pending[path] = self._pool.submit(self._load, path)
+
+    def get(self, path: str) -> pygame.Surface:
+        """The surface for an onset, waiting for its decode if it is still running.
+
+        Decoding errors (a damaged file) are raised here as :class:`InputFileError`.
+        """
+        t0 = time.perf_counter()
+        self._harvest()
         surf = self._items.get(path)
         if surf is not None:
             self._items.move_to_end(path)
+            self.last_wait_s = 0.0
             return surf
-        surf = self._load(path)
-        cost = surf.get_width() * surf.get_height() * surf.get_bytesize()
-        self._items[path] = surf
-        self._bytes += cost
-        while self._bytes > self.max_bytes and len(self._items) > 1:
-            _, old = self._items.popitem(last=False)
-            self._bytes -= old.get_width() * old.get_height() * old.get_bytesize()
-        return surf
-
-    def get(self, path: str) -> pygame.Surface:
-        """The surface for an onset; counts a miss when it was not prepared in advance."""
-        if path not in self._items:
+        future = self._pending.pop(path, None)
+        if future is None:
             self.misses_at_onset += 1
-        return self.prepare(path)
+            surf = self._load(path)
+        else:
+            if not future.done():
+                self.waits_at_onset += 1
+            surf = future.result()
+        self.last_wait_s = time.perf_counter() - t0
+        self.wait_s_total += self.last_wait_s
+        return self._store(path, surf)
+
+    def close(self) -> None:
+        """Stop the background thread (pending decodes are dropped)."""
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+        self._pending.clear()
 
     @staticmethod
     def exists(path: str) -> bool:
