@@ -27,6 +27,7 @@ from runner.session.views import (
     FixationView,
     KeyHit,
     PageView,
+    PauseView,
     Presenter,
     RatingView,
     StimulusView,
@@ -48,12 +49,26 @@ PAYLOAD_FIELDS = (
     "status",
 )
 RATING_SHOW_CHOICE_S = 0.15  # the chosen rating box stays lit this long, so the choice is seen
+PREFETCH_AHEAD = 2  # stimuli decoded ahead, so a slow decode never reaches an onset
+WATCH_S = 0.5  # untimed waits (pages, breaks, pauses) look at the recorder this often
+STORAGE_RETRY_S = 1.0  # while the journal cannot be written, try again this often
+DEFAULT_PAUSE_KEY = "p"
+STORAGE_PAUSE_TEXT = "The session is paused. Please wait for the experimenter."
+RESUME_TEXT = "The session continues where it stopped."
 
 
 class MarkerSink(Protocol):
     def push(self, payload: str, timestamp: float) -> float: ...
 
     def have_consumers(self) -> bool: ...
+
+
+class TriggerSink(Protocol):
+    """Hardware trigger output (runner.session.triggers.SerialTriggers in practice)."""
+
+    def send(self, event: str) -> int | None:
+        """Send the event's code, if it has one; return the code sent (or None)."""
+        ...
 
 
 class Observer(Protocol):
@@ -89,6 +104,13 @@ class SessionState:
     last_rt_ms: float | None = None
     recorder_connected: bool | None = None
     started: float = 0.0
+    attempt: int = 1
+    paused: bool = False
+    storage_problem: str | None = None
+    current_part: str = ""
+    current_block: str = ""
+    current_trial: int | None = None
+    trial_seconds: list[float] = field(default_factory=list)
 
 
 def outcome_of(expected: int | None, answer: int | None, unsure: bool) -> str:
@@ -123,6 +145,15 @@ class Engine:
         Trials already completed in an earlier attempt (resume).
     extra_row
         Adds pilot columns (``sim_rt_ms``) to each trial record.
+    on_recorder_change
+        Called with True/False when a recorder connects to or drops from the marker stream.
+    pause_key
+        The experimenter's pause key, taken between trials and during untimed waits (None: off).
+    triggers
+        Optional hardware trigger output; each marked event with a code sends it.
+    resume_attempt
+        On resume, the attempt number (2 for the first resume): the session continues at the
+        first incomplete trial with a ``session_resume`` marker instead of ``session_start``.
     """
 
     def __init__(
@@ -139,6 +170,9 @@ class Engine:
         skip_trials: set[int] | None = None,
         extra_row: Callable[[ScheduledTrial], dict[str, Any]] | None = None,
         on_recorder_change: Callable[[bool], None] | None = None,
+        pause_key: str | None = DEFAULT_PAUSE_KEY,
+        triggers: TriggerSink | None = None,
+        resume_attempt: int | None = None,
     ):
         self.loaded = loaded
         self.model = loaded.model
@@ -158,9 +192,29 @@ class Engine:
         self._current_photodiode = False
         self.total_trials = len(schedule.trials)
         self.push_delays_us: list[float] = []
-        self._pushed: tuple[str, float, str, float] | None = None
+        self._pushed: tuple[str, float, str, float, int | None] | None = None
+        self.pause_key = pause_key
+        self.triggers = triggers
+        self.resume_attempt = resume_attempt
+        self._screen_t: float | None = None
+        self._screen_frames: int | None = None
+        self._interrupted = False
+        self._trial_t0 = 0.0
+        self._storage_pause: tuple[float, str, float, int | None] | None = None
+        if pause_key is not None and hasattr(presenter, "hold"):
+            # Keys the display keeps when pressed while another screen waits for input, so a
+            # pause asked for during a trial starts when that trial ends.
+            presenter.hold = frozenset({pause_key})
+        journal.on_error = self._storage_failed
+        journal.on_recover = self._storage_recovered
         # Start of the current stretch of trials: breaks.every_minutes counts from here.
         self._since_pause = 0.0
+
+    def _notify(self, hook: str, *args: Any) -> None:
+        for obs in self.observers:
+            fn = getattr(obs, hook, None)
+            if fn is not None:
+                fn(*args)
 
     # -- journaling and markers ---------------------------------------------------------------
     def emit(
@@ -174,13 +228,15 @@ class Engine:
         if event in MARKED_EVENTS:
             pushed = self._pushed
             if pushed is not None and pushed[0] == event and pushed[1] == t:
-                payload, delay = pushed[2], pushed[3]
+                payload, delay, code = pushed[2], pushed[3], pushed[4]
                 self._pushed = None
             else:
                 payload = self._payload(event, trial, fields)
-                delay = self._push(payload, t)
+                delay, code = self._push(event, payload, t)
             record["marker"] = payload
             record["push_us"] = round(delay, 1)
+            if code is not None:
+                record["trigger"] = code
         return self.journal.append(event, **record)
 
     @staticmethod
@@ -189,17 +245,16 @@ class Engine:
         payload_fields.update({k: v for k, v in fields.items() if k in PAYLOAD_FIELDS})
         return encode_marker(event, **payload_fields)
 
-    def _push(self, payload: str, t: float) -> float:
+    def _push(self, event: str, payload: str, t: float) -> tuple[float, int | None]:
         after = self.markers.push(payload, t)
         delay = (after - t) * 1e6
         self.push_delays_us.append(delay)
-        return delay
+        code = self.triggers.send(event) if self.triggers is not None else None
+        return delay, code
 
     def _frames(self, ms: float) -> int:
         """A requested duration as whole frames at the display's refresh interval."""
-        if ms <= 0:
-            return 0
-        return max(1, round(ms / 1000.0 / self.speed / self.view.interval))
+        return frames_for(ms, self.view.interval, self.speed)
 
     def _show(
         self,
@@ -210,19 +265,22 @@ class Engine:
         at: float | None = None,
         photodiode: bool = False,
         mark: str | None = None,
+        frames: int | None = None,
         **mark_fields: Any,
     ) -> float:
         """Show a view; with ``mark``, push that event's marker straight after the flip.
 
         The marker goes out before anything else runs (observers, journal), so the delay from
         flip to push stays small; :meth:`emit` then journals it with the same timestamp.
+        ``frames`` is the screen's requested duration in whole frames, when it has one; the
+        next flip journals it next to the duration the screen actually had.
         """
         payload = None
         if mark is not None:
             payload = self._payload(mark, trial.trial if trial is not None else None, mark_fields)
         t = self.view.show(view, at=at, photodiode=photodiode)
         if mark is not None and payload is not None:
-            self._pushed = (mark, t, payload, self._push(payload, t))
+            self._pushed = (mark, t, payload, *self._push(mark, payload, t))
         self._current = view
         self._current_photodiode = photodiode
         # Every screen change is journaled with what was drawn, so audit can time each screen
@@ -234,6 +292,20 @@ class Engine:
             flip["photodiode"] = True
         if at is not None:
             flip["at"] = at
+        if frames is not None:
+            flip["frames"] = frames
+        if self._screen_t is not None:
+            shown = t - self._screen_t
+            flip["prev_ms"] = round(shown * 1000, 3)
+            if self._screen_frames is not None:
+                flip["prev_requested_frames"] = self._screen_frames
+                flip["prev_frames"] = round(shown / self.view.interval)
+        if getattr(self.view, "last_late", False):
+            flip["late"] = True
+        wait_ms = getattr(self.view, "last_load_wait_ms", 0.0)
+        if wait_ms:
+            flip["load_wait_ms"] = round(wait_ms, 3)
+        self._screen_t, self._screen_frames = t, frames
         self.journal.append("flip", **flip)
         for obs in self.observers:
             obs.on_view(kind, t, trial, view)
@@ -249,19 +321,138 @@ class Engine:
         deadline: float | None,
         outcome: TrialOutcome | None = None,
         trial: ScheduledTrial | None = None,
+        *,
+        pausable: bool = False,
     ) -> KeyHit | None:
+        pause = self.pause_key if pausable and accept is not None else None
+        if pause is not None and accept is not None and pause in accept:
+            pause = None  # the screen's own key wins
+        wanted = accept if pause is None or accept is None else accept | {pause}
         while True:
-            hit = self.view.wait_key(accept, deadline)
+            hit = self.view.wait_key(wanted, deadline)
+            if hit is not None and pause is not None and hit.key == pause:
+                self._pause(trial)
+                continue
             if hit is None or hit.key != "escape":
                 return hit
             self._confirm_abort(trial)
             if outcome is not None:
                 outcome.interrupted = True
 
+    def _wait(self, accept: frozenset[str], trial: ScheduledTrial | None = None) -> KeyHit:
+        """An untimed wait (page, break, pause): pausable, and watching the recorder."""
+        while True:
+            self._watch_recorder(self.clock())
+            hit = self._key(accept, self.clock() + WATCH_S, trial=trial, pausable=True)
+            if hit is not None:
+                return hit
+
+    def _pause(self, trial: ScheduledTrial | None, *, between_trials: bool = False) -> None:
+        """The experimenter's pause: the participant sees a pause page until the key again."""
+        assert self.pause_key is not None
+        previous, photodiode = self._current, self._current_photodiode
+        number = trial.trial if trial is not None else None
+        t0 = self._show(PauseView(), "pause", trial, mark="pause_start", reason="experimenter")
+        self.emit("pause_start", t0, trial=number, reason="experimenter")
+        self.journal.sync()
+        self.state.paused = True
+        self._notify("on_pause", True, self)
+        while True:
+            self._watch_recorder(self.clock())
+            hit = self.view.wait_key(frozenset({self.pause_key}), self.clock() + WATCH_S)
+            if hit is None:
+                continue
+            if hit.key == "escape":
+                self._confirm_abort(trial)
+                continue
+            break
+        if between_trials:
+            t1 = self._show(BlankView(), "pause-end", mark="pause_end", reason="experimenter")
+            self._next_at = t1 + self._frames(self.model.timing.gap_ms) * self.view.interval
+        else:
+            t1 = self._show(
+                previous,
+                "pause-end",
+                trial,
+                photodiode=photodiode,
+                mark="pause_end",
+                reason="experimenter",
+            )
+        self.emit("pause_end", t1, trial=number, reason="experimenter", paused_s=round(t1 - t0, 6))
+        self.journal.sync()
+        self.state.paused = False
+        self._notify("on_pause", False, self)
+
+    def _between_trials(self, trial: ScheduledTrial) -> None:
+        """Take a pause (or abort) asked for since the last trial; drop keys pressed in the gap."""
+        if self.pause_key is None:
+            return
+        held = getattr(self.view, "held", None)
+        wanted = bool(held) and any(h.key == self.pause_key for h in held)
+        if held:
+            held.clear()
+        hit = self.view.wait_key(frozenset({self.pause_key}), self.clock())
+        if hit is not None and hit.key == "escape":
+            self._confirm_abort(trial)
+        elif hit is not None:
+            wanted = True
+        if wanted:
+            self._pause(trial, between_trials=True)
+
+    # -- storage failures -------------------------------------------------------------------------
+    def _storage_failed(self, err: Exception) -> None:
+        """The journal cannot be written: pause (without journaling) and let it try again.
+
+        Called by the journal for every failed attempt; returning asks it to retry. Nothing is
+        journaled from here (that is what fails); the pause is journaled once writing works.
+        """
+        if self._storage_pause is None:
+            t = self.view.show(PauseView(STORAGE_PAUSE_TEXT))
+            payload = self._payload("pause_start", None, {"reason": "storage"})
+            delay, code = self._push("pause_start", payload, t)
+            self._storage_pause = (t, payload, delay, code)
+            self._interrupted = True
+            self.state.paused = True
+            self.state.storage_problem = str(err)
+            self._notify("on_storage", str(err), self)
+        hit = self.view.wait_key(frozenset(), self.clock() + STORAGE_RETRY_S)
+        if hit is not None and hit.key == "escape":
+            self.view.show(ConfirmView())
+            answer = self.view.wait_key(None, None)
+            if answer is not None and answer.key == CONFIRM_KEY:
+                # Give up: from here a failed write raises, so the session ends with what is
+                # on disk.
+                self.journal.on_error = None
+                raise AbortRequested()
+            self.view.show(PauseView(STORAGE_PAUSE_TEXT))
+
+    def _storage_recovered(self) -> None:
+        if self._storage_pause is None:
+            return
+        t0, payload, delay, code = self._storage_pause
+        self._storage_pause = None
+        problem = self.state.storage_problem
+        t1 = self.view.show(self._current, photodiode=self._current_photodiode)
+        end_payload = self._payload("pause_end", None, {"reason": "storage"})
+        end_delay, end_code = self._push("pause_end", end_payload, t1)
+        start: dict[str, Any] = {"marker": payload, "push_us": round(delay, 1)}
+        end: dict[str, Any] = {"marker": end_payload, "push_us": round(end_delay, 1)}
+        if code is not None:
+            start["trigger"] = code
+        if end_code is not None:
+            end["trigger"] = end_code
+        self.journal.append("pause_start", t=t0, reason="storage", message=problem, **start)
+        self.journal.append("pause_end", t=t1, reason="storage", paused_s=round(t1 - t0, 6), **end)
+        self.journal.append("flip", t=t1, kind="storage-resume", view=view_to_dict(self._current))
+        self.journal.sync()
+        self.state.paused, self.state.storage_problem = False, None
+        self._notify("on_storage", None, self)
+
     def _confirm_abort(self, trial: ScheduledTrial | None) -> None:
         previous, photodiode = self._current, self._current_photodiode
         t = self._show(ConfirmView(), "confirm", trial)
         self.journal.append("abort_requested", t=t, trial=trial.trial if trial else None)
+        self.journal.sync()
         hit = self.view.wait_key(None, None)
         if hit is not None and hit.key == CONFIRM_KEY:
             raise AbortRequested()
@@ -273,14 +464,32 @@ class Engine:
         """Run every schedule item. Raises AbortRequested when the experimenter ends the session."""
         self.state.started = self.clock()
         self._since_pause = self.state.started
-        self.emit(
-            "session_start",
-            self.state.started,
-            participant=self.schedule.participant,
-            session=self.schedule.session,
-        )
+        self._prefetch(None)
+        items = list(self.schedule.items)
+        first = 0
+        if self.resume_attempt is None:
+            self.emit(
+                "session_start",
+                self.state.started,
+                participant=self.schedule.participant,
+                session=self.schedule.session,
+            )
+        else:
+            self.state.attempt = self.resume_attempt
+            first = resume_index(self.schedule, self.skip)
+            self.emit(
+                "session_resume",
+                self.state.started,
+                participant=self.schedule.participant,
+                session=self.schedule.session,
+                attempt=self.resume_attempt,
+                trials_done=len(self.skip),
+                item=first,
+            )
         self.journal.sync()
-        for item in self.schedule.items:
+        if self.resume_attempt is not None and first < len(items):
+            self._resume_page()
+        for item in items[first:]:
             if item.kind == "block" and all(t.trial in self.skip for t in item.trials):
                 continue
             if item.kind == "page":
@@ -295,6 +504,15 @@ class Engine:
         t = self._show(BlankView(), "end", mark="session_end", status="completed")
         self.emit("session_end", t, status="completed")
         self.journal.sync()
+
+    def _resume_page(self) -> None:
+        """After a crash the participant is told the session goes on, and starts it with a key."""
+        t = self._show(PageView(RESUME_TEXT), "page", mark="page_onset")
+        self.emit("page_onset", t, item=None, step=None, resume=True)
+        hit = self._wait(frozenset({"space"}))
+        self.emit("page_end", hit.t, item=None, key=hit.key)
+        self._next_at = None
+        self._since_pause = hit.t
 
     def _break_already_done(self, item: Item) -> bool:
         # On resume, a break between two completed trials is not repeated.
@@ -317,21 +535,23 @@ class Engine:
         )
         self.emit("page_onset", t, item=item.index, step=item.step)
         self.journal.sync()
-        hit = self._key(frozenset({item.key}), None)
-        assert hit is not None
+        hit = self._wait(frozenset({item.key}))
         self.emit("page_end", hit.t, item=item.index, key=hit.key)
         self._next_at = None
         self._since_pause = hit.t
 
     def _rest(self, item: Item) -> None:
         view: View = FixationView() if item.show == "fixation" else BlankView()
-        t0 = self._show(view, "rest", at=self._next_at, mark="rest_start", label=item.label)
         frames = self._frames(item.seconds * 1000.0)
+        t0 = self._show(
+            view, "rest", at=self._next_at, mark="rest_start", frames=frames, label=item.label
+        )
         self.emit("rest_start", t0, label=item.label, requested_s=item.seconds, frames=frames)
         self.journal.sync()
         end = t0 + frames * self.view.interval
         while self.clock() < end - self.view.interval * 0.75:
-            self._key(frozenset(), end - self.view.interval * 0.75)
+            self._watch_recorder(self.clock())
+            self._key(frozenset(), min(end - self.view.interval * 0.75, self.clock() + WATCH_S))
         t1 = self._show(BlankView(), "rest-end", at=end, mark="rest_end", label=item.label)
         self.emit("rest_end", t1, label=item.label, actual_s=round(t1 - t0, 6))
         self.journal.sync()
@@ -358,10 +578,10 @@ class Engine:
             if math.ceil(left) != shown:
                 shown = math.ceil(left)
                 self._show(BreakView(item.text, shown), "break-tick")
-            self._key(frozenset(), min(self.clock() + 0.25, t0 + min_s))
+            self._watch_recorder(self.clock())
+            self._key(frozenset(), min(self.clock() + 0.25, t0 + min_s), pausable=True)
         self._show(BreakView(item.text, 0, hint=hint_ready), "break-ready")
-        hit = self._key(frozenset({item.key}), None)
-        assert hit is not None
+        hit = self._wait(frozenset({item.key}))
         self.emit("break_end", hit.t, item=item.index, actual_s=round(hit.t - t0, 6))
         self.journal.sync()
         self._next_at = None
@@ -376,11 +596,13 @@ class Engine:
             part=item.part,
             block_index=item.trials[0].block_index,
         )
+        self.state.current_part, self.state.current_block = item.part, item.label
         for trial in item.trials:
             if trial.trial in self.skip:
                 continue
             if item.part == "main":
                 self._timed_break(item)
+            self._between_trials(trial)
             self._trial(trial)
         self.emit("block_end", self.clock(), block=item.label, part=item.part)
         self.journal.sync()
@@ -418,6 +640,9 @@ class Engine:
         ans = model.answer
         interval = self.view.interval
         path = str(self.loaded.table.stimulus_path(self.loaded.table.rows[trial.row - 1]))
+        self._interrupted = False
+        self.state.current_trial = trial.trial
+        self._trial_t0 = self.clock()
         self.journal.append(
             "trial_start",
             t=self.clock(),
@@ -428,13 +653,18 @@ class Engine:
             expected=trial.expected,
             row=trial.row,
         )
-        self.view.prepare(path)  # decoded during the gap, before the fixation onset
+        self.view.prepare(path)  # normally already decoded during an earlier gap
         out = TrialOutcome()
 
-        t_fix = self._show(
-            FixationView(), "fixation", trial, at=self._next_at, mark="fixation_onset"
-        )
         fix_frames = self._frames(trial.fixation_ms)
+        t_fix = self._show(
+            FixationView(),
+            "fixation",
+            trial,
+            at=self._next_at,
+            mark="fixation_onset",
+            frames=fix_frames,
+        )
         self.emit(
             "fixation_onset",
             t_fix,
@@ -468,6 +698,7 @@ class Engine:
             trial=trial.trial,
             stimulus=trial.stimulus,
             fixation_actual_ms=round((t_on - t_fix) * 1000, 3),
+            load_wait_ms=round(getattr(self.view, "last_load_wait_ms", 0.0), 3),
         )
 
         limit = self._limit(model.timing.stimulus_limit_s)
@@ -661,16 +892,14 @@ class Engine:
                 rating=choice,
                 rt_ms=round((hit.t - t_r) * 1000, 3),
             )
+            frames = max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.view.interval))
             t = self._show(
                 RatingView(base.question, r.points, r.low, r.high, r.mid, choice, hint),
                 "rating-chosen",
                 trial,
+                frames=frames,
             )
-            self._next_at = (
-                t
-                + max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.view.interval))
-                * self.view.interval
-            )
+            self._next_at = t + frames * self.view.interval
             return
 
     def _finish(self, trial: ScheduledTrial, out: TrialOutcome, t_on: float, t_fix: float) -> None:
@@ -683,20 +912,25 @@ class Engine:
                 text, good = f"The answer was {trial.expected}.", False
             else:
                 text, good = "Thank you.", True
+            fb_frames = self._frames(timing.feedback_ms)
             t_fb = self._show(
-                FeedbackView(text, good), "feedback", trial, at=self._next_at, mark="feedback_onset"
+                FeedbackView(text, good),
+                "feedback",
+                trial,
+                at=self._next_at,
+                mark="feedback_onset",
+                frames=fb_frames,
             )
             self.emit("feedback_onset", t_fb, trial=trial.trial, outcome=outcome)
-            self._next_at = t_fb + self._frames(timing.feedback_ms) * self.view.interval
-        t_gap = self._show(BlankView(), "gap", trial, at=self._next_at, mark="gap_onset")
+            self._next_at = t_fb + fb_frames * self.view.interval
+        gap_frames = self._frames(timing.gap_ms)
+        t_gap = self._show(
+            BlankView(), "gap", trial, at=self._next_at, mark="gap_onset", frames=gap_frames
+        )
         self.emit("gap_onset", t_gap, trial=trial.trial)
-        self._next_at = t_gap + self._frames(timing.gap_ms) * self.view.interval
-        # Decode the next trial's stimulus now, inside the gap.
-        nxt = self._next_trial(trial)
-        if nxt is not None:
-            self.view.prepare(
-                str(self.loaded.table.stimulus_path(self.loaded.table.rows[nxt.row - 1]))
-            )
+        self._next_at = t_gap + gap_frames * self.view.interval
+        # Start decoding the next trials' stimuli now, inside the gap.
+        self._prefetch(trial)
 
         rt_ms = None if out.decision_t is None else round((out.decision_t - t_on) * 1000, 3)
         correct = None if outcome not in ("correct", "wrong") else int(outcome == "correct")
@@ -725,7 +959,7 @@ class Engine:
             "rating_rt_ms": rating_rt,
             "timed_out": int(out.timed_out),
             "fixation_ms": round((t_on - t_fix) * 1000, 3),
-            "interrupted": int(out.interrupted),
+            "interrupted": int(out.interrupted or self._interrupted),
             "values": trial.values,
         }
         if self.extra_row is not None:
@@ -733,6 +967,8 @@ class Engine:
         self.journal.append("trial_end", t=t_gap, trial=trial.trial, record=row)
         self.journal.sync()
         self.state.done_trials.add(trial.trial)
+        self.state.trial_seconds.append(t_gap - self._trial_t0)
+        self.state.current_trial = None
         self._tally(outcome, rt_ms)
         self._watch_recorder(t_gap)
         for obs in self.observers:
@@ -746,6 +982,14 @@ class Engine:
             if a.trial == trial.trial:
                 return b
         return None
+
+    def _prefetch(self, after: ScheduledTrial | None) -> None:
+        """Ask the display to decode the next trials' stimuli (after ``after``, or the first)."""
+        todo = [t for t in self.schedule.trials if t.trial not in self.skip]
+        if after is not None:
+            todo = [t for t in todo if t.trial > after.trial]
+        for t in todo[:PREFETCH_AHEAD]:
+            self.view.prepare(str(stimulus_abspath(self.loaded, t)))
 
     def _tally(self, outcome: str, rt_ms: float | None) -> None:
         s = self.state
@@ -769,3 +1013,42 @@ class Engine:
 
 def stimulus_abspath(loaded: LoadedProtocol, trial: ScheduledTrial) -> Path:
     return loaded.table.stimulus_path(loaded.table.rows[trial.row - 1])
+
+
+def frames_for(ms: float, interval: float, speed: float = 1.0) -> int:
+    """A requested duration in ms as whole refresh frames (at least 1 for any positive duration).
+
+    Parameters
+    ----------
+    ms
+        The requested duration in milliseconds (0 or less means no screen at all).
+    interval
+        The display's refresh interval in seconds (measured, or 1 / refresh_hz).
+    speed
+        Pilots only: the duration is divided by this first.
+
+    Returns
+    -------
+    int
+        The nearest whole number of frames.
+    """
+    if ms <= 0:
+        return 0
+    return max(1, round(ms / 1000.0 / speed / interval))
+
+
+def resume_index(schedule: Schedule, done: set[int]) -> int:
+    """Index of the schedule item a resumed session starts at.
+
+    That is the block holding the first incomplete trial (its completed trials are skipped);
+    every page, rest and break before it was already seen. When every trial is done, the
+    session continues after the last block (closing pages).
+    """
+    items = list(schedule.items)
+    last_block = -1
+    for i, item in enumerate(items):
+        if item.kind == "block":
+            last_block = i
+            if any(t.trial not in done for t in item.trials):
+                return i
+    return last_block + 1

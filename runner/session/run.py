@@ -1,10 +1,14 @@
 """Start, run and close one session: the order of the steps is what keeps data safe.
 
 1. Load and schedule (bad input stops here; nothing has been created).
-2. Refuse an existing session folder.
-3. Open the display and the marker outlet; optionally wait for a recorder.
-4. Create the journal with its header and the frozen protocol and trial table.
-5. Run the engine. On every exit path (completed, aborted, exception, Ctrl+C) the journal gets a
+2. Refuse an existing session folder (unless resuming it), check the output folder takes writes
+   and has room.
+3. Open the display and measure its refresh; refuse a live run whose flips do not block or whose
+   rate is off by more than 2 % (unless the mismatch is explicitly allowed, then journal it).
+4. Open the marker outlet (and the trigger port); optionally wait for a recorder.
+5. Create the journal with its header and the frozen protocol and trial table (or, on resume,
+   reopen it and journal the interrupted attempt).
+6. Run the engine. On every exit path (completed, aborted, exception, Ctrl+C) the journal gets a
    closing line and is fsynced, and trials.csv is written from it.
 """
 
@@ -12,29 +16,42 @@ from __future__ import annotations
 
 import datetime as _dt
 import hashlib
+import os
 import platform
 import shutil
 import sys
+import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
 
 from runner import __version__
-from runner.errors import RecorderError, SessionExistsError, StorageError
+from runner.errors import (
+    DisplayError,
+    JournalError,
+    RecorderError,
+    SessionExistsError,
+    StorageError,
+    UsageError,
+)
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Schedule, build_schedule
 from runner.session.engine import AbortRequested, Engine
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
 from runner.session.markers import MarkerOutlet, local_clock, make_source_id, station_name
 from runner.session.records import write_trials_csv
+from runner.session.resume import ResumePlan, plan_resume, schedule_summary
 from runner.session.simulate import SimulatedParticipant
+from runner.session.triggers import SerialTriggers, trigger_map
 from runner.session.views import Presenter
 
 FROZEN_PROTOCOL = "protocol.yaml"
 FROZEN_TABLE = "trial_table.csv"
 HASH_CHUNK = 1 << 20
 SWITCH_INTERVAL_S = 0.0002
+MIN_FREE_BYTES = 200 * 2**20  # room to spare: a long session's journal is a few MB
+TORN_SUFFIX = ".torn"
 
 
 @dataclass
@@ -47,6 +64,11 @@ class RunOptions:
     wait_for_recorder: float | None = None
     station: str | None = None
     abort_at: int | None = None
+    resume: bool = False
+    allow_timing_mismatch: bool = False
+    pause_key: str | None = "p"
+    trigger_port: str | None = None
+    pause_at: int | None = None
 
 
 @dataclass
@@ -58,6 +80,8 @@ class RunResult:
     trials_done: int
     trials_total: int
     late_flips: int = 0
+    attempt: int = 1
+    timing: dict[str, Any] = field(default_factory=dict)
     push_delays_us: list[float] = field(default_factory=list)
     sim_posts: list[tuple[str, float, float]] = field(default_factory=list)
     error: BaseException | None = None
@@ -127,22 +151,13 @@ def _header(
         "stimulus_hashes": hashes,
         "seed": schedule.seed,
         "participant_index": schedule.participant_index,
-        "schedule": [
-            {
-                "trial": t.trial,
-                "part": t.part,
-                "block": t.block,
-                "row": t.row,
-                "stimulus": t.stimulus,
-                "fixation_ms": t.fixation_ms,
-            }
-            for t in schedule.trials
-        ],
+        "schedule": schedule_summary(schedule),
         "screen": {
             "resolution": list(model.screen.resolution),
             "refresh_hz": model.screen.refresh_hz,
             "interval_s": presenter.interval,
             "flips_block": bool(getattr(presenter, "blocking", False)),
+            "frame_clock": "paced" if getattr(presenter, "paced", True) else "vsync",
             "stimulus_box": list(getattr(presenter, "stimulus_rect", (0, 0, 0, 0))[2:]),
             "video_driver": _video_driver(),
         },
@@ -159,12 +174,19 @@ def _video_driver() -> str:
 
 
 def _freeze(loaded: LoadedProtocol, folder: Path) -> None:
-    (folder / FROZEN_PROTOCOL).write_bytes(loaded.raw)
-    (folder / FROZEN_TABLE).write_bytes(loaded.table.raw)
+    # Written whole and renamed into place, so a kill mid-write never leaves half a copy.
+    for name, data in ((FROZEN_PROTOCOL, loaded.raw), (FROZEN_TABLE, loaded.table.raw)):
+        tmp = folder / (name + ".tmp")
+        tmp.write_bytes(data)
+        os.replace(tmp, folder / name)
 
 
-def check_writable(out: Path) -> None:
-    """Refuse to start when the output folder cannot take a session (without creating it)."""
+def check_writable(out: Path, *, min_free: int = MIN_FREE_BYTES) -> None:
+    """Refuse to start when the output folder cannot take a session.
+
+    The nearest existing folder on the way to ``out`` must take a test file (written, fsynced
+    and removed again) and have at least ``min_free`` bytes free. Nothing is created.
+    """
     probe = out
     while not probe.exists():
         if probe.parent == probe:
@@ -172,10 +194,112 @@ def check_writable(out: Path) -> None:
         probe = probe.parent
     if probe.exists() and not probe.is_dir():
         raise StorageError(f"{probe} is a file, so the session folder cannot be created under it.")
-    free = shutil.disk_usage(probe).free
-    if free < 50 * 2**20:
+    try:
+        fd, name = tempfile.mkstemp(prefix=".trialdeck-probe-", dir=probe)
+        try:
+            os.write(fd, b"probe\n")
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+            os.unlink(name)
+    except OSError as exc:
         raise StorageError(
-            f"only {free // 2**20} MB are free under {probe}; free some space before starting."
+            f"the folder {probe} does not take new files ({exc.strerror}); choose another --out"
+            " folder or fix its permissions before starting."
+        ) from None
+    free = shutil.disk_usage(probe).free
+    if free < min_free:
+        raise StorageError(
+            f"only {free // 2**20} MB are free under {probe} (at least {min_free // 2**20} MB"
+            " are needed); free some space or choose another --out folder before starting."
+        )
+
+
+def _check_display(presenter: Presenter, opts: RunOptions, console: ConsoleLike) -> dict[str, Any]:
+    """Apply the refresh check to this run: refuse, warn, or note the paced frame clock."""
+    check = getattr(presenter, "refresh", None)
+    if check is None:
+        return {"decision": "not measured"}
+    info: dict[str, Any] = {"refresh": check.as_dict()}
+    problems = check.problems()
+    dummy = _video_driver() in ("dummy", "offscreen")
+    if dummy:
+        info["decision"] = "paced"
+        console.info(
+            "Headless display (SDL dummy driver): flips are paced by trialdeck's frame clock at"
+            f" {1.0 / check.nominal_interval_s:g} Hz."
+        )
+    elif not problems:
+        info["decision"] = "ok"
+        console.info(
+            f"Display refresh measured at {check.measured_hz:.2f} Hz over {check.flips} flips"
+            f" (jitter {check.jitter_ms:.2f} ms)."
+        )
+    elif opts.mode == "live" and not opts.allow_timing_mismatch:
+        raise DisplayError(
+            f"the display timing does not match the protocol: {'; '.join(problems)}. Set the"
+            " display to its native resolution and the protocol's refresh rate with vsync on"
+            " (see docs/lab-setup.md), or run with --allow-timing-mismatch to go on anyway."
+        )
+    else:
+        info["decision"] = "mismatch allowed"
+        info["problems"] = problems
+        console.warn(f"display timing does not match the protocol: {'; '.join(problems)}.")
+    return info
+
+
+def _open_journal(
+    folder: Path,
+    plan: ResumePlan | None,
+    header: Any,
+) -> Journal:
+    if plan is None:
+        return Journal.create(folder, header())
+    journal = Journal.reopen(folder / JOURNAL_NAME)
+    journal.append("session_interrupted", t=local_clock(), **plan.interrupted)
+    journal.sync()
+    return journal
+
+
+def _prepare_resume(
+    folder: Path, loaded: LoadedProtocol, schedule: Schedule, opts: RunOptions
+) -> ResumePlan | None:
+    path = folder / JOURNAL_NAME
+    if not opts.resume:
+        if path.exists():
+            raise SessionExistsError(
+                f"a session already exists at {folder}; trialdeck never overwrites a session."
+                " If it was interrupted, continue it with --resume; otherwise use another"
+                " --session label."
+            )
+        return None
+    if not path.exists():
+        raise JournalError(f"there is no session to resume at {folder}; start it without --resume.")
+    read = read_journal(path)
+    if not read.records and not read.chain_errors:
+        # Killed while the header was being written: nothing of the session exists yet. Keep
+        # the torn bytes under another name and start afresh.
+        n = 1
+        while (folder / f"{JOURNAL_NAME}{TORN_SUFFIX}{n}").exists():
+            n += 1
+        os.replace(path, folder / f"{JOURNAL_NAME}{TORN_SUFFIX}{n}")
+        return None
+    return plan_resume(path, loaded, schedule)
+
+
+RESERVED_KEYS = frozenset({"escape", "return", "backspace", "y"} | set("0123456789"))
+
+
+def check_pause_key(loaded: LoadedProtocol, key: str | None) -> None:
+    """Refuse a pause key the participant also uses (answers, unsure, decision, confirm)."""
+    if key is None:
+        return
+    ans = loaded.model.answer
+    taken = RESERVED_KEYS | {ans.unsure_key, ans.decision_key}
+    if key in taken or len(key) != 1 or not key.isalpha():
+        raise UsageError(
+            f"the pause key {key!r} cannot be used: choose a letter that is not a response key"
+            f" of this protocol (not {', '.join(sorted(k for k in taken if len(k) == 1))})."
         )
 
 
@@ -188,20 +312,27 @@ def run_session(
     observers: list[Any] | None = None,
 ) -> RunResult:
     """Run one session from start to closed journal and trials.csv. See the module docstring."""
+    check_pause_key(loaded, opts.pause_key)
     schedule = build_schedule(loaded, opts.participant, opts.session)
     folder = session_folder(opts.out, loaded.model.study, schedule.participant, schedule.session)
-    if (folder / JOURNAL_NAME).exists():
-        raise SessionExistsError(
-            f"a session already exists at {folder}; trialdeck never overwrites a session."
-            " Use another --session label."
-        )
+    plan = _prepare_resume(folder, loaded, schedule, opts)
     check_writable(opts.out)
+    codes = trigger_map(loaded)
     hashes = stimulus_hashes(loaded)
     presenter = open_presenter()
     outlet: MarkerOutlet | None = None
     sim: SimulatedParticipant | None = None
     journal: Journal | None = None
+    triggers: SerialTriggers | None = None
     try:
+        timing = _check_display(presenter, opts, console)
+        port = opts.trigger_port or (
+            loaded.model.triggers.port if loaded.model.triggers is not None else None
+        )
+        if codes and port:
+            assert loaded.model.triggers is not None
+            triggers = SerialTriggers.open(port, codes, baud=loaded.model.triggers.baud)
+            console.info(f"Trigger codes go to {port}.")
         station = station_name(opts.station or loaded.model.markers.station)
         outlet = MarkerOutlet(
             loaded.model.markers.stream,
@@ -229,8 +360,28 @@ def run_session(
                 f"No recorder is connected to the marker stream '{loaded.model.markers.stream}' yet;"
                 " markers sent before it connects are lost. Use --wait-for-recorder SECONDS to wait for it."
             )
-        header = _header(loaded, schedule, opts, presenter, outlet, hashes)
-        journal = Journal.create(folder, header)
+        journal = _open_journal(
+            folder,
+            plan,
+            lambda: {
+                **_header(loaded, schedule, opts, presenter, outlet, hashes),
+                "timing": timing,
+                "triggers": {"port": port, "codes": codes} if triggers is not None else None,
+            },
+        )
+        if plan is not None:
+            journal.append(
+                "display_check",
+                t=local_clock(),
+                mode=opts.mode,
+                speed=opts.speed,
+                interval_s=presenter.interval,
+                **timing,
+            )
+            console.info(
+                f"Resuming: {len(plan.done)} of {len(schedule.trials)} trials were done; the"
+                f" session goes on at attempt {plan.attempt}."
+            )
         _freeze(loaded, folder)
         all_observers = list(observers or [])
         if opts.mode == "pilot":
@@ -246,6 +397,8 @@ def run_session(
                 post=presenter.post_key,
                 clock=local_clock,
                 abort_at=opts.abort_at,
+                pause_at=opts.pause_at,
+                pause_key=opts.pause_key or "p",
             )
             sim.start()
             all_observers.insert(0, sim)
@@ -269,6 +422,10 @@ def run_session(
             observers=all_observers,
             extra_row=sim.extra_row if sim is not None else None,
             on_recorder_change=recorder_change,
+            skip_trials=set(plan.done) if plan is not None else None,
+            pause_key=opts.pause_key,
+            triggers=triggers,
+            resume_attempt=plan.attempt if plan is not None and plan.attempt > 1 else None,
         )
         status, error = "completed", None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
@@ -280,8 +437,11 @@ def run_session(
         except AbortRequested:
             status = "aborted"
             t = local_clock()
-            engine.emit("abort", t, status="aborted")
-            engine.emit("session_end", t, status="aborted")
+            try:
+                engine.emit("abort", t, status="aborted")
+                engine.emit("session_end", t, status="aborted")
+            except StorageError as exc:  # aborted because the journal could not be written
+                error = exc
         except KeyboardInterrupt as exc:
             status, error = "interrupted", exc
             t = local_clock()
@@ -301,19 +461,27 @@ def run_session(
             sys.setswitchinterval(old_switch)
             if sim is not None:
                 sim.stop()
+            journal.on_error = None
             try:
                 journal.close()
+            except StorageError as exc:
+                error = error or exc
             finally:
                 read = read_journal(folder / JOURNAL_NAME)
-                trials_csv = write_trials_csv(read, folder)
+                try:
+                    trials_csv: Path | None = write_trials_csv(read, folder)
+                except OSError:
+                    trials_csv = None
         return RunResult(
             folder=folder,
             journal=folder / JOURNAL_NAME,
             trials_csv=trials_csv,
             status=status,
-            trials_done=len(engine.state.done_trials),
+            trials_done=len(engine.state.done_trials | engine.skip),
             trials_total=engine.total_trials,
             late_flips=int(getattr(presenter, "late_flips", 0)),
+            attempt=plan.attempt if plan is not None else 1,
+            timing=timing,
             push_delays_us=engine.push_delays_us,
             sim_posts=list(sim.keys.posted) if sim is not None else [],
             error=error,
@@ -321,6 +489,8 @@ def run_session(
     finally:
         if sim is not None:
             sim.stop()
+        if triggers is not None:
+            triggers.close()
         presenter.close()
         if outlet is not None:
             outlet.close()

@@ -122,7 +122,9 @@ class SimulatedParticipant:
     """Observer of the engine's screens that answers like a (simple, seeded) participant.
 
     ``abort_at`` makes it press Escape and confirm at that trial's stimulus onset, to pilot the
-    abort path.
+    abort path. ``pause_at`` makes it press the pause key during that trial's stimulus (the
+    pause starts when the trial ends) and press it again ``pause_s`` (divided by speed) after
+    the pause page appears, to pilot the experimenter's pause.
     """
 
     def __init__(
@@ -138,6 +140,9 @@ class SimulatedParticipant:
         post: Callable[[str], float],
         clock: Callable[[], float],
         abort_at: int | None = None,
+        pause_at: int | None = None,
+        pause_key: str = "p",
+        pause_s: float = 2.0,
     ):
         self.seed = seed
         self.points = points
@@ -147,6 +152,9 @@ class SimulatedParticipant:
         self.mode = mode
         self.speed = float(speed)
         self.abort_at = abort_at
+        self.pause_at = pause_at
+        self.pause_key = pause_key
+        self.pause_s = pause_s
         self.keys = KeyScheduler(post, clock)
         self.plans: dict[int, TrialPlan] = {}
         self.intended_rt_ms: dict[int, float] = {}
@@ -187,9 +195,11 @@ class SimulatedParticipant:
     def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
         if kind == "page":
             self.keys.at(t + self._s(PAGE_READ_S), "space")
-        elif kind == "break":
-            seconds_left = getattr(view, "seconds_left", 0)
-            self.keys.at(t + seconds_left + self._s(BREAK_EXTRA_S), "space")
+        elif kind == "break-ready":
+            # The break's minimum is over and the screen says so: go on after a moment.
+            self.keys.at(t + self._s(BREAK_EXTRA_S), getattr(view, "key", None) or "space")
+        elif kind == "pause":
+            self.keys.at(t + self._s(self.pause_s), self.pause_key)
         elif kind == "stimulus" and trial is not None:
             plan = plan_trial(self.seed, trial, points=self.points, max_answer=self.max_answer)
             self.plans[trial.trial] = plan
@@ -199,6 +209,8 @@ class SimulatedParticipant:
                 self.keys.at(t + rt / 2, "escape")
                 self.keys.at(t + rt / 2 + self._s(0.3), "y")
                 return
+            if self.pause_at == trial.trial:
+                self.keys.at(t + rt / 2, self.pause_key)
             if self.mode == "after":
                 self.keys.at(t + rt, self.unsure_key if plan.unsure else self.decision_key)
             else:
