@@ -95,6 +95,29 @@ def _session_args(p: argparse.ArgumentParser, *, pilot: bool) -> None:
     p.add_argument(
         "--station", metavar="NAME", help="name of this presenter machine in the stream's source_id"
     )
+    p.add_argument(
+        "--resume",
+        action="store_true",
+        help="continue an interrupted session at its first incomplete trial",
+    )
+    p.add_argument(
+        "--pause-key",
+        default="p",
+        metavar="KEY",
+        help="the experimenter's pause key, taken between trials and on waiting screens (default p)",
+    )
+    p.add_argument(
+        "--trigger-port",
+        metavar="PORT",
+        help="serial port for the protocol's trigger codes (overrides triggers.port)",
+    )
+    if not pilot:
+        p.add_argument(
+            "--allow-timing-mismatch",
+            action="store_true",
+            help="start even when the measured refresh is off by more than 2%% or flips do not"
+            " block (the mismatch is journaled)",
+        )
     if pilot:
         p.add_argument(
             "--speed",
@@ -110,6 +133,7 @@ def _session_args(p: argparse.ArgumentParser, *, pilot: bool) -> None:
             "--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR"
         )
         p.add_argument("--sim-abort-at", type=int, metavar="TRIAL", help=argparse.SUPPRESS)
+        p.add_argument("--sim-pause-at", type=int, metavar="TRIAL", help=argparse.SUPPRESS)
 
 
 def _run(
@@ -130,7 +154,10 @@ def _run(
     from runner.present.screen import display_for
 
     loaded = load_protocol(protocol)
-    console = Console(quiet=console_quiet)
+    pause_key = getattr(args, "pause_key", "p")
+    console = Console(
+        quiet=console_quiet, live=mode == "live" and sys.stdout.isatty(), pause_key=pause_key
+    )
     if mode == "live":
         console.warn(SAFETY_REMINDER)
     frames = Path(args.frames) if getattr(args, "frames", None) else None
@@ -144,14 +171,23 @@ def _run(
         wait_for_recorder=args.wait_for_recorder,
         station=args.station,
         abort_at=getattr(args, "sim_abort_at", None),
+        resume=getattr(args, "resume", False),
+        allow_timing_mismatch=getattr(args, "allow_timing_mismatch", False),
+        pause_key=pause_key,
+        trigger_port=getattr(args, "trigger_port", None),
+        pause_at=getattr(args, "sim_pause_at", None),
     )
-    result = run_session(
-        loaded,
-        opts,
-        open_presenter=lambda: display_for(loaded, fullscreen=fullscreen, frames_dir=frames),
-        console=console,
-        observers=[console],
-    )
+    console.start()
+    try:
+        result = run_session(
+            loaded,
+            opts,
+            open_presenter=lambda: display_for(loaded, fullscreen=fullscreen, frames_dir=frames),
+            console=console,
+            observers=[console],
+        )
+    finally:
+        console.stop()
     print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")
@@ -262,6 +298,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR")
     p.add_argument("--verbose", action="store_true", help="print a line per trial")
     verbs["demo"] = cmd_demo
+
+    from runner.present import selftest
+
+    p = sub.add_parser("selftest", help="measure this machine's display, input and marker timing")
+    selftest.add_arguments(p)
+    verbs["selftest"] = selftest.run
 
     p = sub.add_parser("schema", help="print the protocol's JSON Schema")
     verbs["schema"] = cmd_schema

@@ -98,3 +98,33 @@ class MarkerOutlet:
     def close(self) -> None:
         # Dropping the outlet closes the stream; keep the object alive until the journal is done.
         self._outlet = None  # type: ignore[assignment]
+
+
+def loopback_latency(outlet: MarkerOutlet, samples: int, *, timeout: float = 5.0) -> list[float]:
+    """Delivery latency of markers to an inlet on this machine, in seconds, one per sample.
+
+    Opens an inlet on ``outlet``'s own stream (resolved by its source_id), corrects its clock
+    first (a correction during delivery would delay the pulls), then pushes ``samples`` markers
+    stamped at the push and times each until it is pulled.
+    """
+    found = pylsl.resolve_byprop("source_id", outlet.details.source_id, timeout=timeout)
+    if not found:
+        raise RecorderError("the self-test could not see its own marker stream on this machine.")
+    inlet = pylsl.StreamInlet(found[0], max_buflen=10)
+    try:
+        inlet.open_stream(timeout=timeout)
+        inlet.time_correction(timeout=timeout)
+        deadline = time.monotonic() + timeout
+        while not outlet.have_consumers() and time.monotonic() < deadline:
+            time.sleep(CONSUMER_POLL_S)
+        out = []
+        for i in range(samples):
+            sent = pylsl.local_clock()
+            outlet.push(f'{{"event":"selftest","n":{i}}}', sent)
+            sample, _ = inlet.pull_sample(timeout=timeout)
+            if sample is None:
+                raise RecorderError("a self-test marker did not arrive within the time limit.")
+            out.append(pylsl.local_clock() - sent)
+        return out
+    finally:
+        inlet.close_stream()
