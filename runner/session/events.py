@@ -55,6 +55,8 @@ JOURNAL_ONLY_EVENTS = frozenset(
         "recorder_lost",
         "error",
         "warning",
+        "session_interrupted",
+        "display_check",
     }
 )
 
