@@ -159,7 +159,7 @@ def test_answer_over_stimulus_with_overrides_timeout_and_size(tmp_path: Path, ca
     widths = set()
     for png in frames.glob("*.png"):
         pixels = np.asarray(Image.open(png).convert("RGB")).astype(int)
-        dark = np.all(pixels == (200, 60, 60), axis=2)
+        dark = np.all(np.abs(pixels - (200, 60, 60)) <= 3, axis=2)  # smoothscale rounds
         if dark.sum() > 1000:
             cols = np.flatnonzero(dark.any(axis=0))
             widths.add(int(cols[-1] - cols[0] + 1))
