@@ -12,6 +12,7 @@ from pathlib import Path
 from runner.data.export import (
     DATATYPES,
     DEFAULT_DATATYPE,
+    SUMMARY_EVENTS,
     export_sessions,
     factor_union,
     level_orders,
@@ -136,7 +137,7 @@ def run_summary(args: argparse.Namespace) -> int:
     """
     from runner.data.summary import write_summary
 
-    sessions = load_sessions(args.sessions)
+    sessions = load_sessions(args.sessions, decode=SUMMARY_EVENTS, keep_records=False)
     trials = pooled_trials(sessions)
     if trials.empty:
         raise InputFileError(

@@ -17,6 +17,7 @@ Two outputs (documented column by column in docs/analysis.md):
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 import json
 import math
@@ -40,13 +41,24 @@ from runner.errors import (
 )
 from runner.protocol.model import BlocksStep, Protocol
 from runner.protocol.yamlsafe import read_yaml_text
-from runner.session.journal import JOURNAL_NAME, JournalRead, read_journal
+from runner.session.journal import (
+    GENESIS,
+    HASH_CHARS,
+    JOURNAL_NAME,
+    JournalRead,
+    read_journal,
+)
 from runner.session.records import CONTRACT_COLUMNS, EXTRA_COLUMNS, PILOT_COLUMNS
 
 __all__ = [
     "BIDS_COLUMNS",
     "DATATYPES",
     "EVENT_COLUMNS",
+    "ROW_COLUMNS",
+    "TRIAL_COLUMNS",
+    "EventRows",
+    "event_rows",
+    "events_tsv",
     "ExportResult",
     "ExportSession",
     "Origin",
@@ -56,6 +68,9 @@ __all__ = [
     "export_sessions",
     "find_session_folders",
     "load_session",
+    "read_journal_for_export",
+    "SUMMARY_EVENTS",
+    "EXPORT_EVENTS",
     "load_sessions",
     "pooled_columns",
     "pooled_rows",
@@ -88,9 +103,9 @@ SOFTWARE_NAME = "trialdeck"
 
 # BIDS columns first (onset and duration must lead), then trialdeck's own, then table columns.
 BIDS_COLUMNS = ["onset", "duration", "trial_type", "response_time", "stim_file"]
-EVENT_COLUMNS = [
-    "event",
-    "trial",
+# Columns that belong to the row (the event), then columns shared by every row of one trial.
+ROW_COLUMNS = ["event", "trial", "key", "label", "timed_out", "attempt"]
+TRIAL_COLUMNS = [
     "block",
     "part",
     "stimulus",
@@ -100,12 +115,10 @@ EVENT_COLUMNS = [
     "correct",
     "outcome",
     "rating",
-    "key",
-    "label",
-    "timed_out",
     "completed",
-    "attempt",
 ]
+EVENT_COLUMNS = ROW_COLUMNS + TRIAL_COLUMNS
+RESERVED_EVENT_COLUMNS = frozenset(BIDS_COLUMNS + EVENT_COLUMNS)
 
 # trial_type values: which journal event opens the row, which closes it, and what it means.
 # Rows without a closing event are instantaneous (duration 0). "next flip" rows last until the
@@ -147,6 +160,8 @@ CLOSERS: dict[str, list[str]] = {}
 for _kind, (_opener, _closer, _text) in ROW_KINDS.items():
     if _closer is not None and _closer != NEXT_FLIP:
         CLOSERS.setdefault(_closer, []).append(_kind)
+SESSION_KINDS = ("session", "resume")
+ROW_EVENTS = frozenset(OPENERS) | frozenset(CLOSERS) | {"trial_start", "session_resume"}
 TRIAL_KINDS = frozenset(
     {
         "fixation",
@@ -190,6 +205,15 @@ class ExportSession:
     status: str
     duration_s: float
     table_rows: list[dict[str, str]] = field(default_factory=list, repr=False)
+    start_lsl: float | None = None
+
+    def release(self) -> None:
+        """Drop the journal lines (keeping header, trials and facts) to free memory.
+
+        Exporting hundreds of sessions keeps only one session's lines in memory at a time;
+        after this, :func:`event_rows` and :meth:`markers` have nothing left to read.
+        """
+        self.read = JournalRead(path=self.read.path, header=self.header, records=[self.header])
 
     @property
     def participant(self) -> str:
@@ -220,8 +244,8 @@ class ExportSession:
     @property
     def start_t(self) -> float:
         """``t`` of the first ``session_start`` line (presenter LSL clock, seconds)."""
-        for rec in self.read.events("session_start"):
-            return float(rec["t"])
+        if self.start_lsl is not None:
+            return self.start_lsl
         raise JournalError(
             f"{self.read.path} has no session_start line, so its events have no origin; "
             "the session did not start."
@@ -234,6 +258,108 @@ class ExportSession:
             for r in self.read.records
             if "marker" in r and "t" in r
         ]
+
+
+# Sessions of one study share their frozen protocol text; parsing it once saves most of the
+# per-session set-up time. Models are frozen, so sharing them is safe.
+PROTOCOL_CACHE_SIZE = 64
+_PROTOCOL_CACHE: dict[str, Protocol] = {}
+
+# Journal lines the exports never look inside: screen redraws and keystrokes. Their hash chain
+# is still verified and their event name and time kept; only their JSON is not decoded.
+UNDECODED_EVENTS = frozenset({"flip", "typing", "rating_select"})
+# Lines the BIDS events need decoded; every other line only needs its event, t and trial.
+EXPORT_EVENTS = frozenset(
+    {
+        "trial_start",
+        "trial_end",
+        "decision",
+        "answer",
+        "rating",
+        "block_start",
+        "rest_start",
+        "session_start",
+        "session_resume",
+        "session_end",
+        "abort",
+    }
+)
+# Lines the summary needs decoded (the header is always decoded).
+SUMMARY_EVENTS = frozenset({"trial_end", "session_start", "session_resume", "session_end"})
+# encode_line writes {"seq":N,"prev":"<hash>","event":"<name>","t":<t>,"trial":<n>,...}
+# (``t`` and ``trial`` first among the event's own fields, as the engine passes them).
+FAST_FIELDS_RE = re.compile(rb',"t":(-?[0-9][0-9.eE+-]*)(?:,"trial":([0-9]+))?[,}]')
+HASH_FIELD = b',"h":"'
+HASH_TAIL = len(HASH_FIELD) + HASH_CHARS + len(b'"}')
+
+
+def read_journal_for_export(path: Path, *, decode: frozenset[str] | None = None) -> JournalRead:
+    """Read and verify a journal like :func:`runner.session.journal.read_journal`, faster.
+
+    Every line's hash, sequence number and link to the previous line are checked as there.
+    Only the header and lines whose event is in ``decode`` (default: all but
+    :data:`UNDECODED_EVENTS`) are decoded from JSON; the others become ``{"seq", "event", "t",
+    "trial"}`` records. Lines are expected in the layout the journal writer uses; at the first
+    line that is not, or when the file is torn or damaged, this falls back to ``read_journal``
+    itself, so every problem is reported exactly as it reports it.
+
+    Parameters
+    ----------
+    path : Path
+        The ``journal.jsonl`` file.
+    decode : frozenset of str, optional
+        Events to decode fully.
+
+    Returns
+    -------
+    JournalRead
+    """
+    try:
+        data = path.read_bytes()
+    except OSError:
+        return read_journal(path)
+    if not data.endswith(b"\n"):
+        return read_journal(path)
+    records: list[dict[str, Any]] = []
+    prev = GENESIS.encode("ascii")
+    sha256 = hashlib.sha256
+    for n, line in enumerate(data[:-1].split(b"\n")):
+        if line[-HASH_TAIL : -HASH_CHARS - 2] != HASH_FIELD or not line.endswith(b'"}'):
+            return read_journal(path)
+        body = line[:-HASH_TAIL] + b"}"
+        h = line[-HASH_CHARS - 2 : -2]
+        head = b'{"seq":%d,"prev":"%s","event":"' % (n, prev)
+        if (
+            not body.startswith(head)
+            or sha256(prev + body).hexdigest()[:HASH_CHARS].encode("ascii") != h
+        ):
+            return read_journal(path)
+        stop = body.find(b'"', len(head))
+        event = body[len(head) : stop].decode("utf-8", errors="replace")
+        wanted = event not in UNDECODED_EVENTS if decode is None else event in decode
+        if n == 0 or wanted:
+            try:
+                obj = json.loads(line)
+            except ValueError:
+                return read_journal(path)
+            if not isinstance(obj, dict):
+                return read_journal(path)
+            records.append(obj)
+        else:
+            rec: dict[str, Any] = {"seq": n, "event": event}
+            found = FAST_FIELDS_RE.match(body, stop + 1)
+            if found:
+                rec["t"] = float(found.group(1))
+                if found.group(2) is not None:
+                    rec["trial"] = int(found.group(2))
+            records.append(rec)
+        prev = h
+    out = JournalRead(path=path, header=None, records=records, good_bytes=len(data))
+    if records and records[0].get("event") == "header":
+        out.header = records[0]
+    elif records:
+        out.chain_errors.insert(0, "line 1 is not a journal header")
+    return out
 
 
 def find_session_folders(paths: Iterable[str | Path]) -> list[Path]:
@@ -283,6 +409,8 @@ def find_session_folders(paths: Iterable[str | Path]) -> list[Path]:
 
 def _protocol_from_header(header: dict[str, Any], path: Path) -> Protocol:
     text = header.get("protocol_text")
+    if isinstance(text, str) and text in _PROTOCOL_CACHE:
+        return _PROTOCOL_CACHE[text]
     if not isinstance(text, str):
         raise JournalError(
             f"the header of {path} holds no protocol text, so the session cannot be exported; "
@@ -290,13 +418,17 @@ def _protocol_from_header(header: dict[str, Any], path: Path) -> Protocol:
         )
     doc = read_yaml_text(text, filename=f"{path} (frozen protocol)")
     try:
-        return Protocol.model_validate(doc.data)
+        model = Protocol.model_validate(doc.data)
     except ValidationError as exc:
         raise JournalError(
             f"the frozen protocol in {path} no longer passes validation "
             f"({exc.errors()[0].get('msg', 'invalid')}); export it with the trialdeck version "
             f"that ran it ({header.get('version', 'unknown')})."
         ) from None
+    if len(_PROTOCOL_CACHE) >= PROTOCOL_CACHE_SIZE:
+        _PROTOCOL_CACHE.clear()
+    _PROTOCOL_CACHE[text] = model
+    return model
 
 
 def _winning_records(read: JournalRead) -> list[dict[str, Any]]:
@@ -335,7 +467,7 @@ def _attempts(read: JournalRead) -> tuple[str, float]:
     return status, total
 
 
-def load_session(folder: str | Path) -> ExportSession:
+def load_session(folder: str | Path, *, decode: frozenset[str] | None = None) -> ExportSession:
     """Read one session folder's journal and its frozen protocol.
 
     A torn last line (a crash mid-write) is tolerated: the intact lines are used. A broken
@@ -345,6 +477,9 @@ def load_session(folder: str | Path) -> ExportSession:
     ----------
     folder : str or Path
         The session folder (``.../sub-P01/ses-1``).
+    decode : frozenset of str, optional
+        Journal events to decode (see :func:`read_journal_for_export`); default all that the
+        BIDS events need.
 
     Returns
     -------
@@ -357,7 +492,7 @@ def load_session(folder: str | Path) -> ExportSession:
     """
     folder = Path(folder)
     path = folder / JOURNAL_NAME
-    read = read_journal(path)
+    read = read_journal_for_export(path, decode=decode)
     if read.chain_errors:
         raise JournalError(
             f"{path} fails its integrity check ({read.chain_errors[0]}); it is not exported. "
@@ -377,6 +512,7 @@ def load_session(folder: str | Path) -> ExportSession:
     table_text = header.get("trial_table_text")
     table_rows = list(csv.DictReader(io.StringIO(table_text))) if table_text else []
     status, duration = _attempts(read)
+    start = next((float(r["t"]) for r in read.events("session_start") if "t" in r), None)
     return ExportSession(
         folder=folder,
         read=read,
@@ -386,11 +522,37 @@ def load_session(folder: str | Path) -> ExportSession:
         status=status,
         duration_s=duration,
         table_rows=table_rows,
+        start_lsl=start,
     )
 
 
-def load_sessions(paths: Iterable[str | Path]) -> list[ExportSession]:
+def _check_unique(session: ExportSession, seen: dict[tuple[str, str, str], Path]) -> None:
+    key = (session.study, session.participant, session.session)
+    if key in seen:
+        raise InputFileError(
+            f"{seen[key]} and {session.folder} both hold study {session.study!r}, participant "
+            f"{session.participant!r}, session {session.session!r}; give only one of them."
+        )
+    seen[key] = session.folder
+
+
+def load_sessions(
+    paths: Iterable[str | Path],
+    *,
+    decode: frozenset[str] | None = None,
+    keep_records: bool = True,
+) -> list[ExportSession]:
     """Find and read every session under ``paths`` (see :func:`find_session_folders`).
+
+    Parameters
+    ----------
+    paths : iterable of str or Path
+        Session folders, or folders above them.
+    decode : frozenset of str, optional
+        Passed to :func:`load_session`.
+    keep_records : bool, optional
+        Keep every session's journal lines (default); False releases them after reading
+        (:meth:`ExportSession.release`), which is all the summary needs.
 
     Raises
     ------
@@ -400,16 +562,14 @@ def load_sessions(paths: Iterable[str | Path]) -> list[ExportSession]:
     JournalError
         If a journal cannot be exported (see :func:`load_session`).
     """
-    sessions = [load_session(f) for f in find_session_folders(paths)]
+    sessions = []
     seen: dict[tuple[str, str, str], Path] = {}
-    for s in sessions:
-        key = (s.study, s.participant, s.session)
-        if key in seen:
-            raise InputFileError(
-                f"{seen[key]} and {s.folder} both hold study {s.study!r}, participant "
-                f"{s.participant!r}, session {s.session!r}; give only one of them."
-            )
-        seen[key] = s.folder
+    for folder in find_session_folders(paths):
+        session = load_session(folder, decode=decode)
+        _check_unique(session, seen)
+        if not keep_records:
+            session.release()
+        sessions.append(session)
     return sessions
 
 
@@ -696,160 +856,207 @@ def _stim_file(stimulus: str) -> str:
     return "/".join(parts) if parts else stimulus
 
 
-class _EventBuilder:
-    """Walks one journal once and collects event rows (see :data:`ROW_KINDS`)."""
+@dataclass
+class EventRows:
+    """One session's event rows before formatting (see :func:`event_rows`).
 
-    def __init__(self, session: ExportSession):
-        self.session = session
-        self.rows: list[dict[str, Any]] = []
-        self.open: dict[str, dict[str, Any]] = {}  # session-level kind -> open row
-        self.open_trial: dict[tuple[int, str], dict[str, Any]] = {}
-        self.next_flip: list[dict[str, Any]] = []
-        self.occurrence: dict[int, int] = {}  # trial -> occurrence number of its current run
-        self.attempt = 0
-        winners: dict[int, int] = {}
-        occ: dict[int, int] = {}
-        for rec in session.read.records:
-            event = rec.get("event")
+    ``rows`` are tuples ``(t, end, trial_type, event, trial, key, label, timed_out, attempt,
+    response_time, stim_file, tail)`` on the presenter clock (``end`` None: never journaled);
+    ``tails[tail]`` holds the values of :data:`TRIAL_COLUMNS` and then ``table_columns``, shared
+    by every row of one trial (None: a row outside trials).
+    """
+
+    rows: list[tuple[Any, ...]]
+    tails: dict[Any, tuple[Any, ...]]
+    table_columns: list[str]
+
+    @property
+    def columns(self) -> list[str]:
+        return BIDS_COLUMNS + ROW_COLUMNS + TRIAL_COLUMNS + self.table_columns
+
+    def kinds(self) -> set[str]:
+        return {r[2] for r in self.rows}
+
+
+def _winners(records: Sequence[dict[str, Any]]) -> dict[int, int]:
+    """For each trial number, which of its runs (1, 2, ... in journal order) completed last."""
+    runs: dict[int, int] = {}
+    winners: dict[int, int] = {}
+    for rec in records:
+        event = rec.get("event")
+        if event == "trial_start":
             trial = rec.get("trial")
-            if event == "trial_start" and isinstance(trial, int):
-                occ[trial] = occ.get(trial, 0) + 1
-            elif event == "trial_end" and isinstance(trial, int):
-                winners[trial] = occ.get(trial, 1)
-        self.winners = winners
-        self.by_trial = {int(r["trial"]): r for r in session.trials}
-        self.starts: dict[tuple[int, int], dict[str, Any]] = {}
+            if isinstance(trial, int):
+                runs[trial] = runs.get(trial, 0) + 1
+        elif event == "trial_end":
+            trial = rec.get("trial")
+            if isinstance(trial, int):
+                winners[trial] = runs.get(trial, 1)
+    return winners
 
-    def _row(self, kind: str, rec: dict[str, Any]) -> dict[str, Any]:
-        row: dict[str, Any] = {
-            "t": float(rec["t"]),
-            "end": None,
-            "trial_type": kind,
-            "event": rec.get("event"),
-            "attempt": self.attempt,
-        }
-        trial = rec.get("trial")
-        if kind in TRIAL_KINDS and isinstance(trial, int):
-            row["trial"] = trial
-            row["_occ"] = self.occurrence.get(trial, 1)
-        if kind in ("block",):
-            row["block"] = rec.get("block")
-            row["part"] = rec.get("part")
-        if kind == "rest":
-            row["label"] = rec.get("label")
-        if kind == "decision":
-            row["key"] = rec.get("key")
-        if kind == "answer":
-            row["answer"] = rec.get("answer")
-            row["unsure"] = rec.get("unsure")
-            row["timed_out"] = rec.get("timed_out", False)
-        if kind == "rating":
-            row["rating"] = rec.get("rating")
-            row["timed_out"] = rec.get("timed_out", False)
-        if kind in ("session", "resume") or kind == "abort":
-            row["label"] = rec.get("status")
-        self.rows.append(row)
-        return row
 
-    def feed(self, rec: dict[str, Any]) -> None:
+def event_rows(session: ExportSession) -> EventRows:
+    """Walk the journal once and pair opening and closing events into rows (:data:`ROW_KINDS`).
+
+    Rows of a trial run that a later completion of the same trial replaced are left out; runs
+    never completed are kept with ``completed`` 0. A resume starts a new attempt; what the
+    previous attempt left open keeps an unknown end.
+    """
+    records = session.read.records
+    winners = _winners(records)
+    # Row lists: [t, end, kind, event, trial, key, label, timed_out, attempt, run, block, part]
+    rows: list[list[Any]] = []
+    open_rows: dict[str, list[Any]] = {}
+    open_trial: dict[tuple[int, str], list[Any]] = {}
+    next_flip: list[list[Any]] = []
+    runs: dict[int, int] = {}
+    starts: dict[tuple[int, int], dict[str, Any]] = {}
+    attempt = 0
+    for rec in records:
         event = rec.get("event")
         t = rec.get("t")
         if event == "flip":
-            if self.next_flip and isinstance(t, (int, float)):
-                for row in self.next_flip:
-                    if float(t) > row["t"]:
-                        row["end"] = float(t)
-                self.next_flip = [r for r in self.next_flip if r["end"] is None]
-            return
-        if not isinstance(t, (int, float)):
-            return
+            if next_flip and t is not None:
+                still = [r for r in next_flip if not t > r[0]]
+                for r in next_flip:
+                    if t > r[0]:
+                        r[1] = t
+                next_flip = still
+            continue
+        if t is None or event not in ROW_EVENTS:
+            continue
         trial = rec.get("trial")
-        if event == "trial_start" and isinstance(trial, int):
-            self.occurrence[trial] = self.occurrence.get(trial, 0) + 1
-            self.starts[(trial, self.occurrence[trial])] = rec
-            return
-        if event in ("session_start", "session_resume"):
-            self.attempt += 1
-            self._new_attempt()
-        # Close first: "answer" and "rating" close their prompt rows and open instant rows.
-        for kind in CLOSERS.get(str(event), []):
-            key_trial = (trial, kind) if kind in TRIAL_KINDS and isinstance(trial, int) else None
-            row = self.open_trial.pop(key_trial, None) if key_trial else self.open.pop(kind, None)
-            if row is not None and row["end"] is None:
-                row["end"] = float(t)
-                if kind in ("session", "resume"):
-                    row["label"] = rec.get("status")
-        kind = OPENERS.get(str(event))
+        if event == "trial_start":
+            if isinstance(trial, int):
+                runs[trial] = runs.get(trial, 0) + 1
+                starts[(trial, runs[trial])] = rec
+            continue
+        if event == "session_start" or event == "session_resume":
+            attempt += 1
+            open_rows.clear()
+            open_trial.clear()
+            next_flip = []
+        for kind in CLOSERS.get(event, ()):
+            if kind in TRIAL_KINDS:
+                row = open_trial.pop((trial, kind), None) if isinstance(trial, int) else None
+            else:
+                row = open_rows.pop(kind, None)
+            if row is not None:
+                row[1] = t
+                if kind in SESSION_KINDS:
+                    row[6] = rec.get("status")
+        kind = OPENERS.get(event)
         if kind is None:
-            return
-        row = self._row(kind, rec)
+            continue
+        in_trial = kind in TRIAL_KINDS and isinstance(trial, int)
+        row = [
+            t,
+            None,
+            kind,
+            event,
+            trial if in_trial else None,
+            rec.get("key") if kind == "decision" else None,
+            rec.get("label") if kind == "rest" else rec.get("status"),
+            rec.get("timed_out", False) if kind in ("answer", "rating") else None,
+            attempt,
+            runs.get(trial, 1) if in_trial else None,
+            rec.get("block") if kind == "block" else None,
+            rec.get("part") if kind == "block" else None,
+        ]
+        rows.append(row)
         closer = ROW_KINDS[kind][1]
         if closer is None:
-            row["end"] = row["t"]
+            row[1] = t
         elif closer == NEXT_FLIP:
-            self.next_flip.append(row)
-        elif kind in TRIAL_KINDS and isinstance(trial, int):
-            self.open_trial[(trial, kind)] = row
+            next_flip.append(row)
+        elif in_trial:
+            open_trial[(trial, kind)] = row
         else:
-            if kind == "session" or kind == "resume":
-                self.open.pop("session", None)
-                self.open.pop("resume", None)
-            self.open[kind] = row
+            if kind in SESSION_KINDS:
+                for other in SESSION_KINDS:
+                    open_rows.pop(other, None)
+            open_rows[kind] = row
 
-    def _new_attempt(self) -> None:
-        # A resume starts a new attempt: whatever the crashed attempt left open stays open
-        # (duration n/a), because its end was never journaled.
-        self.open.clear()
-        self.open_trial.clear()
-        self.next_flip = []
+    table_cols = [c for c in session.table_columns if c not in RESERVED_EVENT_COLUMNS]
+    by_trial = {int(r["trial"]): r for r in session.trials}
+    table_rows = session.table_rows
+    tails: dict[Any, tuple[Any, ...]] = {}
+    out: list[tuple[Any, ...]] = []
+    for t, end, kind, event, trial, key, label, timed, att, run, block, part in rows:
+        rt = None
+        stim = None
+        tail: Any = None
+        if trial is not None:
+            winner = winners.get(trial)
+            if winner is not None and run != winner:
+                continue  # superseded by a later completion of the same trial
+            rec = by_trial.get(trial) if winner is not None else None
+            tail = (trial, run)
+            if tail not in tails:
+                tails[tail] = _trial_tail(rec, starts.get(tail, {}), table_rows, table_cols)
+            if kind == "stimulus":
+                stimulus = tails[tail][2]
+                stim = _stim_file(str(stimulus)) if stimulus else None
+                if rec is not None and rec.get("rt_ms") is not None:
+                    rt = float(rec["rt_ms"]) / MS_PER_S
+            elif kind == "rating_prompt":
+                if rec is not None and rec.get("rating_rt_ms") is not None:
+                    rt = float(rec["rating_rt_ms"]) / MS_PER_S
+            elif kind == "answer_prompt" and end is not None:
+                rt = end - t
+        elif kind == "block":
+            tail = ("block", block, part)
+            if tail not in tails:
+                tails[tail] = (block, part) + (None,) * (len(TRIAL_COLUMNS) - 2 + len(table_cols))
+        if kind not in SESSION_KINDS and kind != "abort" and kind != "rest":
+            label = None
+        out.append((t, end, kind, event, trial, key, label, timed, att, rt, stim, tail))
+    out.sort(key=lambda r: r[0])  # stable: journal order breaks ties
+    return EventRows(rows=out, tails=tails, table_columns=table_cols)
 
-    def finish(self) -> list[dict[str, Any]]:
-        out = []
-        for row in self.rows:
-            trial = row.get("trial")
-            if isinstance(trial, int) and "_occ" in row:
-                winner = self.winners.get(trial)
-                if winner is not None and row["_occ"] != winner:
-                    continue  # superseded by a later completion of the same trial
-                row["completed"] = int(winner is not None)
-                self._trial_columns(row, trial, winner is not None)
-            out.append(row)
-        out.sort(key=lambda r: r["t"])  # stable: journal order breaks ties
-        return out
 
-    def _trial_columns(self, row: dict[str, Any], trial: int, completed: bool) -> None:
-        rec = self.by_trial.get(trial) if completed else None
-        start = self.starts.get((trial, row["_occ"]), {})
-        values: dict[str, Any] = {}
-        if rec is not None:
-            values = dict(rec.get("values") or {})
-            for c in ("block", "part", "stimulus", "expected", "outcome", "correct"):
-                row.setdefault(c, rec.get(c))
-            if row["trial_type"] == "stimulus":
-                rt_ms = rec.get("rt_ms")
-                row["response_time"] = None if rt_ms is None else float(rt_ms) / MS_PER_S
-            if row["trial_type"] == "rating_prompt":
-                rt_ms = rec.get("rating_rt_ms")
-                row["response_time"] = None if rt_ms is None else float(rt_ms) / MS_PER_S
-            for c in ("answer", "unsure", "rating"):
-                row.setdefault(c, rec.get(c))
-        else:
-            for c in ("block", "part", "stimulus", "expected"):
-                row.setdefault(c, start.get(c))
-            table_row = start.get("row")
-            rows = self.session.table_rows
-            if isinstance(table_row, int) and 1 <= table_row <= len(rows):
-                values = dict(rows[table_row - 1])
-        if row["trial_type"] == "answer_prompt" and row.get("end") is not None:
-            row["response_time"] = row["end"] - row["t"]
-        if row["trial_type"] == "stimulus" and row.get("stimulus"):
-            row["stim_file"] = _stim_file(str(row["stimulus"]))
-        for c in self.session.table_columns:
-            row.setdefault("v:" + c, values.get(c))
+def _trial_tail(
+    rec: dict[str, Any] | None,
+    start: dict[str, Any],
+    table_rows: list[dict[str, str]],
+    table_cols: list[str],
+) -> tuple[Any, ...]:
+    """Values of TRIAL_COLUMNS and the table columns for one trial run."""
+    if rec is not None:
+        values = rec.get("values") or {}
+        head = (
+            rec.get("block"),
+            rec.get("part"),
+            rec.get("stimulus"),
+            rec.get("expected"),
+            rec.get("answer"),
+            rec.get("unsure"),
+            rec.get("correct"),
+            rec.get("outcome"),
+            rec.get("rating"),
+            1,
+        )
+    else:
+        # Never completed (abort or crash inside the trial): only what trial_start knew.
+        row = start.get("row")
+        values = table_rows[row - 1] if isinstance(row, int) and 1 <= row <= len(table_rows) else {}
+        head = (
+            start.get("block"),
+            start.get("part"),
+            start.get("stimulus"),
+            start.get("expected"),
+            None,
+            None,
+            None,
+            None,
+            None,
+            0,
+        )
+    return head + tuple(values.get(c) for c in table_cols)
 
 
 def bids_events(session: ExportSession, origin: Origin | None = None) -> pd.DataFrame:
-    """The BIDS events table of one session: one row per screen, response and pause.
+    """The BIDS events table of one session as a DataFrame (what the TSV file holds).
 
     Parameters
     ----------
@@ -861,37 +1068,58 @@ def bids_events(session: ExportSession, origin: Origin | None = None) -> pd.Data
     Returns
     -------
     pd.DataFrame
-        Columns :data:`BIDS_COLUMNS`, then :data:`EVENT_COLUMNS`, then the trial table's own
-        columns; missing values are None. Rows sorted by onset (journal order for ties).
+        Columns :data:`BIDS_COLUMNS`, :data:`ROW_COLUMNS`, :data:`TRIAL_COLUMNS`, then the
+        trial table's own columns; missing values are None; rows sorted by onset.
     """
     origin = origin or session_origin(session)
-    builder = _EventBuilder(session)
-    for rec in session.read.records:
-        builder.feed(rec)
-    rows = builder.finish()
-    table_cols = [c for c in session.table_columns if c not in BIDS_COLUMNS + EVENT_COLUMNS]
-    columns = BIDS_COLUMNS + EVENT_COLUMNS + table_cols
-    out = []
-    for row in rows:
-        values = {c: row.get(c) for c in BIDS_COLUMNS + EVENT_COLUMNS}
-        values["onset"] = row["t"] - origin.t0
-        values["duration"] = None if row["end"] is None else max(0.0, row["end"] - row["t"])
-        for c in table_cols:
-            values[c] = row.get("v:" + c)
-        out.append(values)
-    return pd.DataFrame(out, columns=columns, dtype=object)
+    ev = event_rows(session)
+    width = len(TRIAL_COLUMNS) + len(ev.table_columns)
+    empty = (None,) * width
+    data = []
+    for t, end, kind, event, trial, key, label, timed, att, rt, stim, tail in ev.rows:
+        duration = None if end is None else max(0.0, end - t)
+        data.append(
+            (t - origin.t0, duration, kind, rt, stim, event, trial, key, label, timed, att)
+            + (ev.tails[tail] if tail is not None else empty)
+        )
+    return pd.DataFrame(data, columns=ev.columns, dtype=object)
 
 
-def _tsv_cell(value: Any, column: str) -> str:
-    if value is None or (isinstance(value, float) and math.isnan(value)) or value is pd.NA:
+def _tsv_cell(value: Any) -> str:
+    if value is None or value is pd.NA or (isinstance(value, float) and math.isnan(value)):
         return NA
-    if column in ("onset", "duration", "response_time"):
-        return f"{float(value):.{SECONDS_DECIMALS}f}"
     if isinstance(value, bool):
         return str(int(value))
     text = str(value)
     # TSV has no quoting: tabs and line breaks inside a value would break the row.
-    return text.replace("\t", " ").replace("\r", " ").replace("\n", " ") or NA
+    if "\t" in text or "\n" in text or "\r" in text:
+        text = text.replace("\t", " ").replace("\r", " ").replace("\n", " ")
+    return text or NA
+
+
+def _seconds(value: float | None) -> str:
+    return NA if value is None else f"{value:.{SECONDS_DECIMALS}f}"
+
+
+def events_tsv(ev: EventRows, origin: Origin) -> str:
+    """The text of an ``_events.tsv`` file: header line, one line per row, ``n/a`` for missing."""
+    width = len(TRIAL_COLUMNS) + len(ev.table_columns)
+    empty = "\t".join([NA] * width)
+    tail_text = {k: "\t".join(_tsv_cell(v) for v in vals) for k, vals in ev.tails.items()}
+    t0 = origin.t0
+    lines = ["\t".join(ev.columns)]
+    append = lines.append
+    for t, end, kind, event, trial, key, label, timed, att, rt, stim, tail in ev.rows:
+        append(
+            f"{t - t0:.{SECONDS_DECIMALS}f}\t"
+            + ("n/a" if end is None else f"{max(0.0, end - t):.{SECONDS_DECIMALS}f}")
+            + f"\t{kind}\t{_seconds(rt)}\t{NA if stim is None else _tsv_cell(stim)}\t{event}\t"
+            + f"{NA if trial is None else trial}\t{NA if key is None else _tsv_cell(key)}\t"
+            + f"{NA if label is None else _tsv_cell(label)}\t"
+            + f"{NA if timed is None else int(bool(timed))}\t{att}\t"
+            + (empty if tail is None else tail_text[tail])
+        )
+    return "\n".join(lines) + "\n"
 
 
 def _levels(values: Iterable[Any]) -> list[str]:
@@ -906,11 +1134,11 @@ def _level_key(text: str) -> tuple[int, float, str]:
         return (1, 0.0, text)
 
 
-def events_sidecar(session: ExportSession, origin: Origin, events: pd.DataFrame) -> dict[str, Any]:
+def events_sidecar(session: ExportSession, origin: Origin, ev: EventRows) -> dict[str, Any]:
     """The JSON sidecar: Description, Levels and Units of each column, and how it was made."""
     model = session.protocol
     screen = model.screen
-    kinds_present = set(events["trial_type"].dropna().astype(str))
+    kinds_present = ev.kinds()
     sidecar: dict[str, Any] = {
         "onset": {"Description": origin.description, "Units": "s"},
         "duration": {
@@ -985,12 +1213,10 @@ def events_sidecar(session: ExportSession, origin: Origin, events: pd.DataFrame)
         },
     }
     factors = set(session.factors)
-    for c in events.columns:
-        if c in sidecar:
-            continue
-        levels = _levels(events[c].tolist())
+    for i, c in enumerate(ev.table_columns):
         what = "a factor of the protocol" if c in factors else "a column of the trial table"
         entry: dict[str, Any] = {"Description": f"Trial-table column {c!r} ({what}) on trial rows."}
+        levels = _levels(tail[len(TRIAL_COLUMNS) + i] for tail in ev.tails.values())
         if c in factors and levels:
             entry["Levels"] = {lv: f"{c} = {lv}" for lv in levels}
         sidecar[c] = entry
@@ -1007,7 +1233,7 @@ def events_sidecar(session: ExportSession, origin: Origin, events: pd.DataFrame)
     if screen.distance_cm is not None:
         presentation["ScreenDistance"] = round(screen.distance_cm / 100.0, 4)
     sidecar["StimulusPresentation"] = presentation
-    return {k: v for k, v in sidecar.items() if k in events.columns or k[0].isupper()}
+    return sidecar
 
 
 def events_paths(
@@ -1051,15 +1277,12 @@ def write_bids_events(
     label = task_label(session.study, task)
     tsv, side = events_paths(out, session.participant, session.session, label, datatype)
     origin = origin or session_origin(session)
-    events = bids_events(session, origin)
-    columns = list(events.columns)
-    lines = ["\t".join(columns)]
-    for row in events.itertuples(index=False, name=None):
-        lines.append("\t".join(_tsv_cell(v, c) for v, c in zip(row, columns, strict=True)))
-    sidecar = events_sidecar(session, origin, events)
+    ev = event_rows(session)
+    text = events_tsv(ev, origin)
+    sidecar = events_sidecar(session, origin, ev)
     try:
         tsv.parent.mkdir(parents=True, exist_ok=True)
-        tsv.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        tsv.write_text(text, encoding="utf-8")
         side.write_text(json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
     except OSError as exc:
         raise StorageError(
@@ -1150,28 +1373,35 @@ def export_sessions(
             f"the datatype {datatype!r} is not supported; use one of {', '.join(DATATYPES)}."
         )
     out = Path(out)
-    sessions = load_sessions(paths)
-    if recordings and len(recordings) != len(sessions):
+    folders = find_session_folders(paths)
+    if recordings and len(recordings) != len(folders):
         raise UsageError(
-            f"{len(recordings)} recording(s) were given for {len(sessions)} session(s); give "
+            f"{len(recordings)} recording(s) were given for {len(folders)} session(s); give "
             "one --recording per session, in the same order as the session folders."
         )
-    labels = {s.study: task_label(s.study, task) for s in sessions}
-    origins = [
-        recording_origin(s, recordings[i]) if recordings else session_origin(s)
-        for i, s in enumerate(sessions)
-    ]
     if out.exists() and not out.is_dir():
         raise StorageError(f"{out} is a file; give a folder for the export.")
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StorageError(f"cannot create the export folder {out}: {exc.strerror}.") from None
+    sessions: list[ExportSession] = []
+    origins: list[Origin] = []
+    events: list[tuple[Path, Path]] = []
+    seen: dict[tuple[str, str, str], Path] = {}
+    # One session at a time: read, write its events, then let its journal lines go, so memory
+    # stays at one session's worth however many are exported.
+    for i, folder in enumerate(folders):
+        # With a recording every marker payload is needed to match the recorder's clock.
+        session = load_session(folder, decode=None if recordings else EXPORT_EVENTS)
+        _check_unique(session, seen)
+        origin = recording_origin(session, recordings[i]) if recordings else session_origin(session)
+        label = task_label(session.study, task)
+        events.append(write_bids_events(session, out, task=label, datatype=datatype, origin=origin))
+        session.release()
+        sessions.append(session)
+        origins.append(origin)
     pooled = write_pooled_trials(sessions, out / POOLED_NAME)
-    events = [
-        write_bids_events(s, out, task=labels[s.study], datatype=datatype, origin=o)
-        for s, o in zip(sessions, origins, strict=True)
-    ]
     try:
         others = _dataset_files(out, sessions)
     except OSError as exc:
