@@ -18,7 +18,10 @@ from dataclasses import asdict, dataclass
 
 MIN_MEASURE_FLIPS = 120  # at least two seconds at 60 Hz: enough for a sub-0.1 % interval estimate
 RATE_TOLERANCE = 0.02  # refuse a live run when the measured rate is off by more than 2 %
-BLOCKING_FRACTION = 0.5  # flips block when their median gap exceeds half a nominal interval
+# Flips block when their median gap exceeds this: shorter than the fastest refresh a protocol may
+# ask for (500 Hz, 2 ms), longer than a non-blocking flip of a full-HD frame takes. An absolute
+# bound, so a 120 Hz panel under a 60 Hz protocol is reported as a rate mismatch, not as no vsync.
+BLOCKING_MIN_GAP_S = 0.0015
 LATE_INTERVALS = 1.5  # a flip is late when it lands more than 1.5 intervals after the last frame
 MS = 1000.0
 
@@ -88,7 +91,7 @@ def summarise_flips(stamps: list[float], nominal_interval: float) -> RefreshChec
         raise ValueError("need at least 3 flip times to measure a refresh interval")
     gaps = [b - a for a, b in zip(stamps, stamps[1:], strict=False)]
     median = statistics.median(gaps)
-    blocking = median > BLOCKING_FRACTION * nominal_interval
+    blocking = median > BLOCKING_MIN_GAP_S
     if blocking:
         per_frame = [g / max(1, round(g / median)) for g in gaps]
         interval = statistics.fmean(per_frame)
