@@ -27,6 +27,7 @@ from runner.protocol.table import TrialRow, TrialTable, read_trial_table
 from runner.protocol.yamlsafe import YamlDoc, read_yaml
 
 MAX_PAGE_BYTES = 256 * 1024
+CONTROL_LIMIT = 0x20  # characters below this (NUL, tab, newline ...) never belong in a path
 
 
 @dataclass(frozen=True)
@@ -224,6 +225,18 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 )
             )
         if check_stimuli:
+            if any(ord(ch) < CONTROL_LIMIT for ch in row.stimulus):
+                # The file system refuses such names outright (a NUL byte raises ValueError).
+                problems.append(
+                    Problem(
+                        "error",
+                        display_name(table_path),
+                        row.line,
+                        1,
+                        f"stimulus {row.stimulus!r} contains a control character; retype the path",
+                    )
+                )
+                continue
             stim = table.stimulus_path(row)
             if not model.trials.allow_outside and not stim.is_relative_to(path.parent.resolve()):
                 problems.append(

@@ -429,6 +429,14 @@ CASES = [
         6,
         "outside the protocol's folder",
     ),
+    (
+        "table: NUL in path",
+        BASE,
+        TABLE.replace("img/e.png", "img/e\x00.png"),
+        T,
+        6,
+        "control character",
+    ),
     ("table: empty", BASE, "", T, 1, "the trial table is empty"),
     ("table: header only", BASE, "stimulus,expected,set,density\n", T, 1, "header but no rows"),
     (
