@@ -289,6 +289,8 @@ SUMMARY_EVENTS = frozenset({"trial_end", "session_start", "session_resume", "ses
 # encode_line writes {"seq":N,"prev":"<hash>","event":"<name>","t":<t>,"trial":<n>,...}
 # (``t`` and ``trial`` first among the event's own fields, as the engine passes them).
 FAST_FIELDS_RE = re.compile(rb',"t":(-?[0-9][0-9.eE+-]*)(?:,"trial":([0-9]+))?[,}]')
+EVENT_FIELD = b',"event":"'
+UNDECODED_BYTES = frozenset(e.encode("ascii") for e in UNDECODED_EVENTS)
 HASH_FIELD = b',"h":"'
 HASH_TAIL = len(HASH_FIELD) + HASH_CHARS + len(b'"}')
 
@@ -299,7 +301,8 @@ def read_journal_for_export(path: Path, *, decode: frozenset[str] | None = None)
     Every line's hash, sequence number and link to the previous line are checked as there.
     Only the header and lines whose event is in ``decode`` (default: all but
     :data:`UNDECODED_EVENTS`) are decoded from JSON; the others become ``{"seq", "event", "t",
-    "trial"}`` records. Lines are expected in the layout the journal writer uses; at the first
+    "trial"}`` records (``trial`` only where it directly follows ``t``, as in every engine event
+    but not in ``flip`` lines). Lines are expected in the layout the journal writer uses; at the first
     line that is not, or when the file is torn or damaged, this falls back to ``read_journal``
     itself, so every problem is reported exactly as it reports it.
 
@@ -323,37 +326,37 @@ def read_journal_for_export(path: Path, *, decode: frozenset[str] | None = None)
     records: list[dict[str, Any]] = []
     prev = GENESIS.encode("ascii")
     sha256 = hashlib.sha256
+    skip = UNDECODED_BYTES if decode is None else None
+    want = None if decode is None else frozenset(e.encode("utf-8") for e in decode)
     for n, line in enumerate(data[:-1].split(b"\n")):
-        if line[-HASH_TAIL : -HASH_CHARS - 2] != HASH_FIELD or not line.endswith(b'"}'):
-            return read_journal(path)
-        body = line[:-HASH_TAIL] + b"}"
+        # The hash covers the previous line's hash and this line's text (seq and prev fields
+        # included), so a hash match proves the line is intact and in its place; on any
+        # mismatch read_journal says exactly what is wrong.
         h = line[-HASH_CHARS - 2 : -2]
-        head = b'{"seq":%d,"prev":"%s","event":"' % (n, prev)
-        if (
-            not body.startswith(head)
-            or sha256(prev + body).hexdigest()[:HASH_CHARS].encode("ascii") != h
+        if line[-HASH_TAIL : -HASH_CHARS - 2] != HASH_FIELD or (
+            sha256(prev + line[:-HASH_TAIL] + b"}").hexdigest()[:HASH_CHARS].encode("ascii") != h
         ):
             return read_journal(path)
-        stop = body.find(b'"', len(head))
-        event = body[len(head) : stop].decode("utf-8", errors="replace")
-        wanted = event not in UNDECODED_EVENTS if decode is None else event in decode
-        if n == 0 or wanted:
+        prev = h
+        start = line.find(EVENT_FIELD) + len(EVENT_FIELD)
+        stop = line.find(b'"', start)
+        event = line[start:stop]
+        if n == 0 or (event not in skip if skip is not None else event in want):  # type: ignore[operator]
             try:
                 obj = json.loads(line)
             except ValueError:
                 return read_journal(path)
-            if not isinstance(obj, dict):
+            if not isinstance(obj, dict) or obj.get("seq") != n:
                 return read_journal(path)
             records.append(obj)
-        else:
-            rec: dict[str, Any] = {"seq": n, "event": event}
-            found = FAST_FIELDS_RE.match(body, stop + 1)
-            if found:
-                rec["t"] = float(found.group(1))
-                if found.group(2) is not None:
-                    rec["trial"] = int(found.group(2))
-            records.append(rec)
-        prev = h
+            continue
+        rec: dict[str, Any] = {"seq": n, "event": event.decode("utf-8", errors="replace")}
+        found = FAST_FIELDS_RE.match(line, stop + 1)
+        if found:
+            rec["t"] = float(found.group(1))
+            if found.group(2) is not None:
+                rec["trial"] = int(found.group(2))
+        records.append(rec)
     out = JournalRead(path=path, header=None, records=records, good_bytes=len(data))
     if records and records[0].get("event") == "header":
         out.header = records[0]
