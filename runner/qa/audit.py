@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import csv
 import dataclasses
+import functools
 import hashlib
 import json
 import math
@@ -35,7 +36,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from runner.errors import InputFileError, JournalError, Problem
+from runner.errors import InputFileError, JournalError, Problem, ProtocolError
 from runner.qa.recording import (
     DEFAULT_MAX_GAP_S,
     DEFAULT_RESIDUAL_LIMIT_MS,
@@ -44,7 +45,7 @@ from runner.qa.recording import (
     check_recording,
 )
 from runner.session.events import JOURNAL_ONLY_EVENTS, MARKED_EVENTS
-from runner.session.journal import JOURNAL_FORMAT, JOURNAL_NAME, line_hash, split_hash
+from runner.session.journal import GENESIS, HASH_CHARS, JOURNAL_FORMAT, JOURNAL_NAME
 from runner.session.records import TRIALS_NAME
 
 __all__ = [
@@ -218,20 +219,96 @@ class _Line:
     self_ok: bool
 
 
-def _parse_line(n: int, raw: bytes) -> _Line:
-    try:
-        text = raw.decode("utf-8")
-        obj = json.loads(text)
-    except (UnicodeDecodeError, json.JSONDecodeError):
-        return _Line(n, None, None, None, None, False)
+# The tail every journal line ends with: ,"h":"<32 hex digits>"}
+HASH_TAIL_START = b',"h":"'
+HASH_TAIL = len(HASH_TAIL_START) + HASH_CHARS + len(b'"}')
+
+
+def _self_hash(raw: bytes, prev: str) -> tuple[str, bool] | None:
+    """(stored hash, whether it matches) for a raw line, or None without a hash field.
+
+    The rule is the journal's (:func:`runner.session.journal.line_hash`): sha256 over the
+    previous hash and the line's text without its ``h`` field, first 32 hex digits. It is
+    applied to the bytes directly, which is the same as hashing the UTF-8 text.
+    """
+    if len(raw) < HASH_TAIL or not raw.endswith(b'"}'):
+        return None
+    if raw[-HASH_TAIL : -HASH_CHARS - 2] != HASH_TAIL_START:
+        return None
+    h = raw[-HASH_CHARS - 2 : -2].decode("ascii", errors="replace")
+    body = raw[:-HASH_TAIL] + b"}"
+    digest = hashlib.sha256(prev.encode("utf-8") + body).hexdigest()[:HASH_CHARS]
+    return h, digest == h
+
+
+def _line_of(n: int, raw: bytes, obj: Any) -> _Line:
     if not isinstance(obj, dict):
         return _Line(n, None, None, None, None, False)
-    parts = split_hash(text)
     prev = obj.get("prev") if isinstance(obj.get("prev"), str) else None
-    if parts is None or prev is None:
+    found = None if prev is None else _self_hash(raw, prev)
+    if found is None:
         return _Line(n, obj, _int(obj.get("seq")), prev, None, False)
-    body, h = parts
-    return _Line(n, obj, _int(obj.get("seq")), prev, h, line_hash(prev, body) == h)
+    return _Line(n, obj, _int(obj.get("seq")), prev, found[0], found[1])
+
+
+def _parse_one(raw: bytes) -> Any:
+    try:
+        return json.loads(raw.decode("utf-8"))
+    except (UnicodeDecodeError, json.JSONDecodeError):
+        return None
+
+
+def _parse_whole(raws: list[bytes]) -> list[Any] | None:
+    """The whole file parsed as one JSON array (several times faster than line by line).
+
+    None when that fails or does not give one value per line (a damaged line).
+    """
+    if not raws:
+        return None
+    try:
+        whole = json.loads(b"[" + b",".join(raws) + b"]")
+    except (UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    return whole if isinstance(whole, list) and len(whole) == len(raws) else None
+
+
+def _fast_chain(raws: list[bytes], whole: list[Any]) -> list[tuple[int, dict[str, Any]]] | None:
+    """The records of an intact journal, or None at the first line that needs a closer look.
+
+    This is the common case, kept to one tight loop; any doubt sends the file to the
+    line-by-line walk of :func:`verify_chain`, which names what is wrong.
+    """
+    sha = hashlib.sha256
+    prev, prev_b = GENESIS, GENESIS.encode("ascii")
+    out: list[tuple[int, dict[str, Any]]] = []
+    try:
+        for i, (raw, obj) in enumerate(zip(raws, whole, strict=True)):
+            h = obj["h"]
+            h_b = h.encode("ascii")
+            if (
+                obj["seq"] != i
+                or obj["prev"] != prev
+                or not raw.endswith(b',"h":"' + h_b + b'"}')
+                or sha(prev_b + raw[:-HASH_TAIL] + b"}").hexdigest()[:HASH_CHARS] != h
+            ):
+                return None
+            out.append((i + 1, obj))
+            prev, prev_b = h, h_b
+    except (KeyError, TypeError, AttributeError, UnicodeEncodeError):
+        return None
+    return out
+
+
+def _parse_lines(raws: list[bytes], whole: list[Any] | None) -> list[_Line]:
+    """Every line on its own, reusing the whole-file parse when its values line up."""
+    if whole is not None:
+        lines = [
+            _line_of(n, raw, obj)
+            for n, (raw, obj) in enumerate(zip(raws, whole, strict=True), start=1)
+        ]
+        if all(ln.h is not None and ln.obj is not None and ln.obj.get("h") == ln.h for ln in lines):
+            return lines
+    return [_line_of(n, raw, _parse_one(raw)) for n, raw in enumerate(raws, start=1)]
 
 
 def verify_chain(path: Path) -> ChainCheck:
@@ -273,7 +350,6 @@ def verify_chain(path: Path) -> ChainCheck:
         raws.pop()
     elif raws:
         torn_raw = raws.pop()
-    lines = [_parse_line(n, raw) for n, raw in enumerate(raws, start=1)]
     problems: list[Problem] = []
     first_break: int | None = None
 
@@ -283,10 +359,47 @@ def verify_chain(path: Path) -> ChainCheck:
         if first_break is None or n < first_break:
             first_break = n
 
-    if not lines and torn_raw is None:
+    if not raws and torn_raw is None:
         err(0, "the journal is empty; the session never started writing it.")
 
-    last_seq, last_h = -1, "0" * len(line_hash("", ""))
+    whole = _parse_whole(raws)
+    records = None if whole is None else _fast_chain(raws, whole)
+    if records is None:
+        records = _walk(_parse_lines(raws, whole), err)
+    torn_line: int | None = None
+    if torn_raw is not None:
+        torn_line = len(raws) + 1
+        problems.append(
+            Problem(
+                "warning",
+                name,
+                torn_line,
+                0,
+                f"line {torn_line}, the last one, is incomplete ({len(torn_raw)} bytes without "
+                "an end of line): the program stopped while writing it (crash or power loss). "
+                "The lines before it are kept; a resume cuts it off.",
+            )
+        )
+    if records and records[0][0] == 1 and records[0][1].get("event") == "header":
+        fmt = records[0][1].get("format")
+        if fmt != JOURNAL_FORMAT:
+            err(
+                1,
+                f"line 1 is a header of format {fmt!r}, not {JOURNAL_FORMAT!r}; this "
+                "trialdeck cannot audit it.",
+            )
+    elif raws:
+        err(1, "line 1 is not a journal header; this is not a trialdeck session journal.")
+    problems.sort(key=lambda p: (p.line, p.severity != "error"))
+    intact = len(raws) if first_break is None else first_break - 1
+    return ChainCheck(
+        path, len(raws) + (torn_raw is not None), intact, records, problems, torn_line
+    )
+
+
+def _walk(lines: list[_Line], err: Any) -> list[tuple[int, dict[str, Any]]]:
+    """Follow the chain line by line, calling ``err(line, message)`` at each break."""
+    last_seq, last_h = -1, GENESIS
     i = 0
     while i < len(lines):
         ln = lines[i]
@@ -355,36 +468,7 @@ def verify_chain(path: Path) -> ChainCheck:
             last_seq, last_h = ln.seq, ln.h
         i += 1
 
-    torn_line: int | None = None
-    records = [(ln.n, ln.obj) for ln in lines if ln.obj is not None]
-    if torn_raw is not None:
-        torn_line = len(lines) + 1
-        problems.append(
-            Problem(
-                "warning",
-                name,
-                torn_line,
-                0,
-                f"line {torn_line}, the last one, is incomplete ({len(torn_raw)} bytes without "
-                "an end of line): the program stopped while writing it (crash or power loss). "
-                "The lines before it are kept; a resume cuts it off.",
-            )
-        )
-    if records and records[0][0] == 1 and records[0][1].get("event") == "header":
-        fmt = records[0][1].get("format")
-        if fmt != JOURNAL_FORMAT:
-            err(
-                1,
-                f"line 1 is a header of format {fmt!r}, not {JOURNAL_FORMAT!r}; this "
-                "trialdeck cannot audit it.",
-            )
-    elif lines:
-        err(1, "line 1 is not a journal header; this is not a trialdeck session journal.")
-    problems.sort(key=lambda p: (p.line, p.severity != "error"))
-    intact = len(lines) if first_break is None else first_break - 1
-    return ChainCheck(
-        path, len(lines) + (torn_raw is not None), intact, records, problems, torn_line
-    )
+    return [(ln.n, ln.obj) for ln in lines if ln.obj is not None]
 
 
 # --------------------------------------------------------------------------------------------
@@ -425,6 +509,19 @@ class Attempt:
         }
 
 
+# The lines that shape attempts; the rest (flips, answers...) cannot start or end one.
+ATTEMPT_EVENTS = (
+    "session_start",
+    "session_resume",
+    "page_onset",
+    "block_start",
+    "trial_start",
+    "trial_end",
+    "abort",
+    "session_end",
+)
+
+
 def _attempts(records: list[tuple[int, dict[str, Any]]]) -> list[Attempt]:
     attempts: list[Attempt] = []
     cur: Attempt | None = None
@@ -463,6 +560,22 @@ def _trial_of_end(rec: dict[str, Any]) -> int | None:
 
 # --------------------------------------------------------------------------------------------
 # The audit of one session
+
+
+class _Index:
+    """The journal's event lines in order, and grouped by event name (one pass, for speed)."""
+
+    def __init__(self, events: list[tuple[int, dict[str, Any]]]):
+        self.events = events
+        self.by: dict[str, list[tuple[int, dict[str, Any]]]] = defaultdict(list)
+        for item in events:
+            self.by[str(item[1].get("event"))].append(item)
+
+    def of(self, *names: str) -> list[tuple[int, dict[str, Any]]]:
+        """Lines of the given events, in journal order."""
+        if len(names) == 1:
+            return self.by.get(names[0], [])
+        return sorted((x for name in names for x in self.by.get(name, [])), key=lambda x: x[0])
 
 
 @dataclass
@@ -618,16 +731,17 @@ def audit_session(
             "the checks below also read the lines after the break, which cannot be trusted"
         )
     events = [(n, r) for n, r in records if r is not header]
-    unknown = Counter(str(r.get("event")) for _, r in events if r.get("event") not in KNOWN_EVENTS)
+    ix = _Index(events)
+    unknown = Counter({k: len(v) for k, v in ix.by.items() if k not in KNOWN_EVENTS})
     if unknown:
         facts["journal"]["unknown_events"] = dict(sorted(unknown.items()))
 
-    attempts = _attempts(events)
+    attempts = _attempts(ix.of(*ATTEMPT_EVENTS))
     facts["attempts"] = [a.as_dict() for a in attempts]
-    completed = _check_completion(header, events, attempts, out, facts)
+    completed = _check_completion(header, ix, attempts, out, facts)
     _check_files(header, folder, out, facts, hashes or HashCache())
-    _check_timing(header, events, out, facts)
-    _check_responses(header, events, completed, out, facts)
+    _check_timing(header, ix, out, facts)
+    _check_responses(header, ix, completed, out, facts)
     _check_trials_csv(folder, completed, out, facts)
 
     report: RecordingReport | None = None
@@ -692,7 +806,7 @@ def audit_sessions(
 
 def _check_completion(
     header: dict[str, Any],
-    events: list[tuple[int, dict[str, Any]]],
+    ix: _Index,
     attempts: list[Attempt],
     out: _Findings,
     facts: dict[str, Any],
@@ -711,14 +825,13 @@ def _check_completion(
             "the journal header holds no trial schedule, so completeness cannot be checked.", 1
         )
     ends: dict[int, list[tuple[int, dict[str, Any]]]] = defaultdict(list)
-    for n, rec in events:
-        if rec.get("event") == "trial_end":
-            t = _trial_of_end(rec)
-            row = rec.get("record")
-            if t is None or not isinstance(row, dict):
-                out.error(f"line {n} closes a trial but holds no trial record.", n)
-                continue
-            ends[t].append((n, row))
+    for n, rec in ix.of("trial_end"):
+        t = _trial_of_end(rec)
+        row = rec.get("record")
+        if t is None or not isinstance(row, dict):
+            out.error(f"line {n} closes a trial but holds no trial record.", n)
+            continue
+        ends[t].append((n, row))
 
     completed: dict[int, tuple[int, dict[str, Any]]] = {}
     for t, found in sorted(ends.items()):
@@ -747,10 +860,9 @@ def _check_completion(
     missing = [t for t in planned if t not in completed]
     last = attempts[-1] if attempts else None
     status = last.status if last else None
-    aborted_at: int | None = None
-    for n, rec in events:
-        if rec.get("event") == "abort":
-            aborted_at = n
+    aborts = ix.of("abort")
+    aborted_at: int | None = aborts[-1][0] if aborts else None
+    events = ix.events
     if missing:
         rng = _ranges(missing)
         if last is None:
@@ -916,7 +1028,7 @@ def _check_files(
 
 def _check_timing(
     header: dict[str, Any],
-    events: list[tuple[int, dict[str, Any]]],
+    ix: _Index,
     out: _Findings,
     facts: dict[str, Any],
 ) -> None:
@@ -942,17 +1054,18 @@ def _check_timing(
     timed = flips = 0
     lateness: list[float] = []
     fix_flip: dict[int, float] = {}
-    for n, rec in events:
-        ev = rec.get("event")
-        if ev == "flip":
-            flips += 1
-            t, at = _num(rec.get("t")), _num(rec.get("at"))
-            if t is not None and at is not None:
-                timed += 1
-                d = t - at
-                lateness.append(d * MS)
-                if d > LATE_FRACTION * interval:
-                    late.append((n, d * MS, str(rec.get("kind")), _int(rec.get("trial"))))
+    for n, rec in ix.of("flip"):
+        flips += 1
+        at = rec.get("at")
+        if at is None:
+            continue
+        t, at = _num(rec.get("t")), _num(at)
+        if t is not None and at is not None:
+            timed += 1
+            d = t - at
+            lateness.append(d * MS)
+            if d > LATE_FRACTION * interval:
+                late.append((n, d * MS, str(rec.get("kind")), _int(rec.get("trial"))))
     timing.update(flips=flips, timed_flips=timed, late_flips=len(late))
     timing["flip_lateness_ms"] = _stats(lateness)
     if late:
@@ -971,7 +1084,7 @@ def _check_timing(
     # stimulus onset then tells how long the cross was actually shown.
     fixes: dict[int, tuple[int, float | None, int | None]] = {}
     actual: dict[int, tuple[int, float]] = {}
-    for n, rec in events:
+    for n, rec in ix.of("fixation_onset", "stimulus_onset"):
         ev = rec.get("event")
         tr = _int(rec.get("trial"))
         if tr is None:
@@ -1016,7 +1129,7 @@ def _check_timing(
 
     # Rests and breaks: a rest lasts its whole-frame request; a break lasts at least its minimum.
     rests = []
-    for n, rec in events:
+    for n, rec in ix.of("rest_start", "rest_end", "break_start", "break_end"):
         ev = rec.get("event")
         if ev == "rest_start":
             rests.append([n, _num(rec.get("requested_s")), _int(rec.get("frames")), None])
@@ -1053,7 +1166,12 @@ def _check_timing(
             )
     timing["rests"] = rest_info
 
-    pushes = [v for _, r in events if (v := _num(r.get("push_us"))) is not None]
+    pushes = [
+        v
+        for name in MARKED_EVENTS
+        for _, r in ix.of(name)
+        if (v := _num(r.get("push_us"))) is not None
+    ]
     timing["marker_push_us"] = _stats(pushes)
 
 
@@ -1063,7 +1181,7 @@ def _check_timing(
 
 def _check_responses(
     header: dict[str, Any],
-    events: list[tuple[int, dict[str, Any]]],
+    ix: _Index,
     completed: dict[int, tuple[int, dict[str, Any]]],
     out: _Findings,
     facts: dict[str, Any],
@@ -1072,7 +1190,7 @@ def _check_responses(
     points = _rating_points(header)
     answered: dict[int, dict[str, Any]] = {}
     rated: dict[int, dict[str, Any]] = {}
-    for _, rec in events:
+    for _, rec in ix.of("answer", "rating"):
         tr = _int(rec.get("trial"))
         if tr is None:
             continue
@@ -1162,14 +1280,20 @@ def _check_responses(
 def _rating_points(header: dict[str, Any]) -> int | None:
     """The rating scale's number of points, from the frozen protocol text (9 by default)."""
     text = header.get("protocol_text")
-    if not isinstance(text, str):
-        return None
+    return _points_of(text) if isinstance(text, str) else None
+
+
+@functools.lru_cache(maxsize=32)
+def _points_of(text: str) -> int | None:
+    # Cached: the sessions of one study share their protocol text, and validating it is the
+    # slowest single step of auditing a session.
     try:
         from runner.protocol.model import Protocol
         from runner.protocol.yamlsafe import read_yaml_text
 
         return int(Protocol.model_validate(read_yaml_text(text).data).rating.points)
-    except Exception:  # noqa: BLE001 - an unreadable frozen protocol only skips this one check
+    except (ProtocolError, ValueError):  # pydantic's ValidationError is a ValueError
+        # An unreadable frozen protocol only skips this one check.
         return None
 
 

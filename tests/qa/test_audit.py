@@ -100,18 +100,23 @@ def test_response_time_summary_matches_numpy(pilot):
 
 
 def test_fixation_timing_matches_whole_frames(pilot):
-    """Each fixation lasted its whole-frame request, and the journal's flips were on time.
+    """Fixation durations and their distance from the whole-frame request are measured right.
 
     Source: common practice (no published source): a duration on a 60 Hz display can only be a
-    whole number of 16.67 ms frames; the expected values come from the journal's own frames.
+    whole number of 16.67 ms frames. The expected figures are recomputed here from the raw
+    journal (frames requested, fixation shown), not taken from the machine's timing, which
+    varies under load.
     """
     journal = _raw_journal(pilot)
-    interval = journal[0]["screen"]["interval_s"]
+    frame_ms = journal[0]["screen"]["interval_s"] * 1000
+    frames = {r["trial"]: r["frames"] for r in journal if r["event"] == "fixation_onset"}
+    shown = {r["trial"]: r["fixation_actual_ms"] for r in journal if r["event"] == "stimulus_onset"}
+    errors = [shown[t] - frames[t] * frame_ms for t in shown]
     fix = audit_session(pilot).facts["timing"]["fixation"]
-    assert fix["off_by_a_frame"] == 0
-    assert abs(fix["error_vs_frames_ms"]["max"]) < interval * 1000 / 2
-    frames = [r["frames"] for r in journal if r["event"] == "fixation_onset"]
-    assert fix["actual_ms"]["min"] == pytest.approx(min(frames) * interval * 1000, abs=1.0)
+    assert fix["actual_ms"]["n"] == len(shown)
+    assert fix["actual_ms"]["min"] == min(shown.values())
+    assert fix["error_vs_frames_ms"]["max"] == pytest.approx(max(errors), abs=1e-9)
+    assert fix["off_by_a_frame"] == sum(abs(e) > frame_ms / 2 for e in errors)
 
 
 def test_changed_stimulus_is_an_error(pilot, protocol_dir):
