@@ -89,7 +89,11 @@ DATATYPES = ("beh", "eeg")
 DEFAULT_DATATYPE = "beh"
 LABEL_RE = re.compile(r"^[A-Za-z0-9]+$")
 NON_ALNUM = re.compile(r"[^A-Za-z0-9]+")
-EEG_STREAM_TYPE = "eeg"  # compared case-insensitively with the XDF stream type
+EEG_STREAM_TYPE = "eeg"
+# A recording lines up with a session when most of its markers are found and their median
+# timing difference (after the clock offset) is within the recording check's limit. Half is a
+# tolerance for a recorder that joined late, not a published figure.
+MIN_MATCHED_SHARE = 0.5  # compared case-insensitively with the XDF stream type
 # Seconds are written with 6 decimals (1 microsecond): the journal clock has sub-microsecond
 # resolution, and no recorder samples faster than 1 MHz.
 SECONDS_DECIMALS = 6
@@ -822,9 +826,18 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
             "so its clock cannot be lined up with the session; check that this recording "
             "belongs to this session (run `trialdeck audit` with it)."
         )
+    residual = match.residual_median_abs_ms
+    if match.matched < len(markers) * MIN_MATCHED_SHARE or (
+        residual is not None and residual > report.residual_limit_ms
+    ):
+        raise RecordingError(
+            f"the markers of {session.folder} do not line up with {recording} ({match.matched} of "
+            f"{len(markers)} found, median timing difference {residual or 0:.3f} ms after the "
+            "clock offset); it is probably another session's recording. Check the file, or run "
+            "`trialdeck audit` with it."
+        )
     first = float(stream.first_timestamp)  # type: ignore[arg-type]
     t0 = first - match.offset_s
-    residual = match.residual_median_abs_ms
     return Origin(
         kind="recording",
         t0=t0,
