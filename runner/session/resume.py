@@ -21,6 +21,10 @@ from runner.session.journal import JournalRead, read_journal
 START_EVENTS = ("session_start", "session_resume")
 
 
+class SessionComplete(JournalError):
+    """The session asked to resume already ended as completed."""
+
+
 @dataclass
 class ResumePlan:
     """What an interrupted session did, and how it goes on."""

@@ -41,7 +41,7 @@ from runner.session.engine import AbortRequested, Engine
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
 from runner.session.markers import MarkerOutlet, local_clock, make_source_id, station_name
 from runner.session.records import write_trials_csv
-from runner.session.resume import ResumePlan, plan_resume, schedule_summary
+from runner.session.resume import ResumePlan, SessionComplete, plan_resume, schedule_summary
 from runner.session.simulate import SimulatedParticipant
 from runner.session.triggers import SerialTriggers, trigger_map
 from runner.session.views import Presenter
@@ -284,7 +284,12 @@ def _prepare_resume(
             n += 1
         os.replace(path, folder / f"{JOURNAL_NAME}{TORN_SUFFIX}{n}")
         return None
-    return plan_resume(path, loaded, schedule)
+    try:
+        return plan_resume(path, loaded, schedule)
+    except SessionComplete as exc:
+        # It may have been stopped after its last line but before trials.csv was written.
+        write_trials_csv(read, folder)
+        raise SessionComplete(f"{exc} Its trials.csv was rewritten from the journal.") from None
 
 
 RESERVED_KEYS = frozenset({"escape", "return", "backspace", "y"} | set("0123456789"))
