@@ -117,7 +117,9 @@ def plan_resume(path: Path, loaded: LoadedProtocol, schedule: Schedule) -> Resum
     starts = [r for r in read.records if r.get("event") in START_EVENTS]
     ends = [r for r in read.records if r.get("event") == "session_end"]
     if ends and ends[-1].get("status") == "completed" and read.records[-1] is ends[-1]:
-        raise JournalError(f"the session at {path.parent} is complete; there is nothing to resume.")
+        raise SessionComplete(
+            f"the session at {path.parent} is complete; there is nothing to resume."
+        )
     with open(path, "rb") as fh:
         size = fh.seek(0, 2)
     return ResumePlan(
