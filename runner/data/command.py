@@ -24,6 +24,7 @@ from runner.data.export import (
 from runner.errors import EXIT_OK, InputFileError
 
 SUMMARY_TITLE = "Pilot summary"
+MAX_LISTED = 10  # events files named one by one; more are counted
 
 
 def add_export_arguments(parser: argparse.ArgumentParser) -> None:
@@ -86,11 +87,16 @@ def run_export(args: argparse.Namespace) -> int:
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     print(f"Pooled trials table: {result.pooled}")
+    listed = 0
     for (tsv, _side), origin, s in zip(result.events, result.origins, result.sessions, strict=True):
         where = "session start" if origin.kind == "session_start" else "first EEG sample"
-        print(f"Events (onsets from the {where}): {tsv}")
+        if listed < MAX_LISTED or s.status != "completed":
+            print(f"Events (onsets from the {where}): {tsv}")
+            listed += 1
         if s.status != "completed":
             print(f"  note: this session ended as {s.status!r}; its last rows may lack a duration.")
+    if len(result.events) > listed:
+        print(f"... and {len(result.events) - listed} more events files under {args.out}.")
     return EXIT_OK
 
 
