@@ -31,7 +31,6 @@ from typing import Any
 import pandas as pd
 from pydantic import ValidationError
 
-from runner.data.summary import DEFAULT_RATING_POINTS
 from runner.errors import (
     InputFileError,
     JournalError,
@@ -84,6 +83,7 @@ __all__ = [
 ]
 
 POOLED_NAME = "trials.csv"
+DEFAULT_RATING_POINTS = 9  # the protocol's default scale, used when no session is given
 NA = "n/a"
 DATATYPES = ("beh", "eeg")
 DEFAULT_DATATYPE = "beh"
