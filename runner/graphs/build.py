@@ -26,7 +26,7 @@ from runner.graphs.geometry import (
     crossing_pairs,
     node_link_overlaps,
 )
-from runner.graphs.layout import Readability, links_array, readable_layout
+from runner.graphs.layout import Readability, links_array, readable_layout, repair
 from runner.graphs.paths import choose_pair, expected_count, route_links, shortest_route
 from runner.graphs.render import (
     figure,
@@ -160,7 +160,13 @@ def plan(spec: StimulusSpec) -> list[Cell]:
 
 
 def layout_features(
-    g: nx.Graph, pos: np.ndarray, targets: tuple[int, int], *, clearance: float, min_distance: float
+    g: nx.Graph,
+    pos: np.ndarray,
+    targets: tuple[int, int],
+    *,
+    clearance: float,
+    min_distance: float,
+    extra: np.ndarray | None = None,
 ) -> dict[str, float | int]:
     """Measure the drawing features that tend to explain how hard a stimulus is.
 
@@ -174,6 +180,8 @@ def layout_features(
         The two marked nodes.
     clearance, min_distance : float
         Readability limits used to count node-link overlaps and close node pairs.
+    extra : numpy.ndarray, optional
+        Extra room per node (see :func:`target_extra`).
 
     Returns
     -------
@@ -195,11 +203,39 @@ def layout_features(
         "crossings": int(len(pairs)),
         "crossings_on_routes": int(np.sum(on_route[pairs[:, 0]] | on_route[pairs[:, 1]])),
         "min_crossing_angle_deg": float(angles.min()) if len(angles) else math.nan,
-        "node_link_overlaps": int(len(node_link_overlaps(pos, links, clearance))),
-        "close_node_pairs": int(len(close_node_pairs(pos, min_distance))),
+        "node_link_overlaps": int(len(node_link_overlaps(pos, links, clearance, extra))),
+        "close_node_pairs": int(len(close_node_pairs(pos, min_distance, extra))),
         "link_length_mean_px": float(lengths.mean()),
         "link_length_sd_px": float(lengths.std()),
     }
+
+
+def target_extra(spec: StimulusSpec, n: int, targets: tuple[int, int]) -> np.ndarray:
+    """Extra room, in pixels, each node needs beyond an ordinary node's (non-zero at targets).
+
+    A target marker reaches ``target_size_px / sqrt(2)`` plus half its outline from its
+    centre (the half-diagonal of the square, and of a diamond of the same area); an ordinary
+    node reaches half of ``node_size_px``.
+
+    Parameters
+    ----------
+    spec : StimulusSpec
+        For the style's sizes.
+    n : int
+        Number of nodes.
+    targets : tuple of int
+        The two marked nodes.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape ``(n,)``.
+    """
+    style = spec.style
+    reach = style.target_size_px / math.sqrt(2) + style.target_edge_px / 2
+    extra = np.zeros(n)
+    extra[list(targets)] = max(0.0, reach - style.node_size_px / 2)
+    return extra
 
 
 def _graph_for(cell: Cell, draw: int) -> nx.Graph:
@@ -252,6 +288,22 @@ def make_stimulus(cell: Cell, spec: StimulusSpec) -> Stimulus:
         if targets is None:
             no_pair += 1
             continue
+        # The target markers are bigger than nodes: repair once more with room for them, so
+        # no node hides under a marker and no link clips one.
+        extra = target_extra(spec, graph.number_of_nodes(), targets)
+        pos, readability = repair(
+            pos,
+            links_array(graph),
+            min_distance=rule.min_node_distance,
+            clearance=rule.link_clearance,
+            box=(
+                canvas.margin,
+                canvas.margin,
+                canvas.width - canvas.margin,
+                canvas.height - canvas.margin,
+            ),
+            extra=extra,
+        )
         links, routes = shortest_route(graph, *targets)
         stim = Stimulus(
             cell=cell,
@@ -327,6 +379,7 @@ def write_stimulus(stim: Stimulus, spec: StimulusSpec, out: Path) -> dict[str, o
         stim.targets,
         clearance=spec.readability.link_clearance,
         min_distance=spec.readability.min_node_distance,
+        extra=target_extra(spec, stim.graph.number_of_nodes(), stim.targets),
     )
     features["ink_coverage"] = ink_coverage(pixels, spec.canvas.background)
     features["mean_luminance"] = mean_luminance(pixels)

@@ -181,7 +181,76 @@ def paired_point_segment(points: np.ndarray, seg: np.ndarray) -> tuple[np.ndarra
     return points - (seg[:, 0] + t[:, None] * d), t
 
 
-def node_link_overlaps(pos: np.ndarray, links: np.ndarray, clearance: float) -> np.ndarray:
+def node_link_candidates(
+    pos: np.ndarray, links: np.ndarray, reach: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Node-link pairs whose node lies in the link's bounding box grown by ``reach`` pixels.
+
+    Only these pairs can be closer than ``reach``; in a spread-out drawing they are a small
+    share of all pairs. A node is never paired with its own links.
+
+    Parameters
+    ----------
+    pos : numpy.ndarray
+        Node positions, shape ``(n, 2)``.
+    links : numpy.ndarray
+        Node index pairs, shape ``(m, 2)``.
+    reach : float
+        Box growth in pixels.
+
+    Returns
+    -------
+    nodes, link_indices : numpy.ndarray
+        Two equal-length integer arrays.
+    """
+    seg = segments(pos, links)
+    lo = seg.min(axis=1) - reach
+    hi = seg.max(axis=1) + reach
+    near = (
+        (pos[:, 0:1] > lo[None, :, 0])
+        & (pos[:, 0:1] < hi[None, :, 0])
+        & (pos[:, 1:2] > lo[None, :, 1])
+        & (pos[:, 1:2] < hi[None, :, 1])
+    )
+    v, e = np.nonzero(near)
+    own = (links[e, 0] == v) | (links[e, 1] == v)
+    return v[~own], e[~own]
+
+
+def overlaps_among(
+    pos: np.ndarray,
+    links: np.ndarray,
+    v: np.ndarray,
+    e: np.ndarray,
+    clearance: float,
+    extra: np.ndarray,
+) -> np.ndarray:
+    """Of the candidate pairs ``(v[k], e[k])``, those closer than the node's clearance.
+
+    Parameters
+    ----------
+    pos, links : numpy.ndarray
+        Positions ``(n, 2)`` and links ``(m, 2)``.
+    v, e : numpy.ndarray
+        Candidate nodes and link indices (from :func:`node_link_candidates`).
+    clearance : float
+        Base clearance in pixels.
+    extra : numpy.ndarray
+        Shape ``(n,)``, extra clearance per node.
+
+    Returns
+    -------
+    numpy.ndarray
+        Shape ``(k, 2)``: ``(node, link index)`` pairs that are too close.
+    """
+    away, _ = paired_point_segment(pos[v], segments(pos, links)[e])
+    too_close = np.hypot(away[:, 0], away[:, 1]) < clearance + extra[v]
+    return np.column_stack([v[too_close], e[too_close]]).astype(int)
+
+
+def node_link_overlaps(
+    pos: np.ndarray, links: np.ndarray, clearance: float, extra: np.ndarray | None = None
+) -> np.ndarray:
     """Find nodes that lie within ``clearance`` pixels of a link they are not an end of.
 
     Such a link seems to pass through the node, which makes counting the nodes on a route
@@ -195,6 +264,9 @@ def node_link_overlaps(pos: np.ndarray, links: np.ndarray, clearance: float) -> 
         Node index pairs, shape ``(m, 2)``.
     clearance : float
         Smallest allowed distance, in pixels, between a node centre and a foreign link.
+    extra : numpy.ndarray, optional
+        Shape ``(n,)``: pixels added to the clearance of each node (for larger glyphs such as
+        the target markers).
 
     Returns
     -------
@@ -205,26 +277,14 @@ def node_link_overlaps(pos: np.ndarray, links: np.ndarray, clearance: float) -> 
     links = np.asarray(links, dtype=int).reshape(-1, 2)
     if len(links) == 0:
         return np.zeros((0, 2), dtype=int)
-    seg = segments(pos, links)
-    # Cheap box test first: only nodes inside a link's bounding box grown by the clearance can
-    # be too close to it, and in a spread-out drawing that is a small share of all pairs.
-    lo = seg.min(axis=1) - clearance
-    hi = seg.max(axis=1) + clearance
-    near = (
-        (pos[:, 0:1] > lo[None, :, 0])
-        & (pos[:, 0:1] < hi[None, :, 0])
-        & (pos[:, 1:2] > lo[None, :, 1])
-        & (pos[:, 1:2] < hi[None, :, 1])
-    )
-    v, e = np.nonzero(near)
-    own = (links[e, 0] == v) | (links[e, 1] == v)
-    v, e = v[~own], e[~own]
-    away, _ = paired_point_segment(pos[v], seg[e])
-    too_close = np.hypot(away[:, 0], away[:, 1]) < clearance
-    return np.column_stack([v[too_close], e[too_close]]).astype(int)
+    extra = np.zeros(len(pos)) if extra is None else np.asarray(extra, dtype=float)
+    v, e = node_link_candidates(pos, links, clearance + float(extra.max(initial=0.0)))
+    return overlaps_among(pos, links, v, e, clearance, extra)
 
 
-def close_node_pairs(pos: np.ndarray, min_distance: float) -> np.ndarray:
+def close_node_pairs(
+    pos: np.ndarray, min_distance: float, extra: np.ndarray | None = None
+) -> np.ndarray:
     """Find node pairs closer than ``min_distance`` pixels.
 
     Parameters
@@ -233,6 +293,8 @@ def close_node_pairs(pos: np.ndarray, min_distance: float) -> np.ndarray:
         Node positions, shape ``(n, 2)``.
     min_distance : float
         Smallest allowed centre-to-centre distance in pixels.
+    extra : numpy.ndarray, optional
+        Shape ``(n,)``: pixels added to the distance a node needs (both nodes' extras add up).
 
     Returns
     -------
@@ -240,9 +302,11 @@ def close_node_pairs(pos: np.ndarray, min_distance: float) -> np.ndarray:
         Shape ``(k, 2)``, node pairs ``(i, j)`` with ``i < j``.
     """
     pos = np.asarray(pos, dtype=float)
-    diff = pos[:, None, :] - pos[None, :, :]
-    dist = np.linalg.norm(diff, axis=2)
-    i, j = np.nonzero(np.triu(dist < min_distance, k=1))
+    need = np.full(len(pos), 0.0) if extra is None else np.asarray(extra, dtype=float)
+    limit = min_distance + need[:, None] + need[None, :]
+    dx = pos[:, 0:1] - pos[None, :, 0]
+    dy = pos[:, 1:2] - pos[None, :, 1]
+    i, j = np.nonzero(np.triu(dx * dx + dy * dy < limit * limit, k=1))
     return np.column_stack([i, j]).astype(int)
 
 

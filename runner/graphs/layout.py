@@ -17,18 +17,24 @@ from runner.errors import UsageError
 from runner.graphs.geometry import (
     close_node_pairs,
     fit_to_canvas,
+    node_link_candidates,
     node_link_overlaps,
+    overlaps_among,
     paired_point_segment,
     segments,
 )
+from runner.graphs.paths import all_pairs_counts
 
 LAYOUTS = ("spring", "stress")
 
 SPRING_ITERATIONS = 200
 STRESS_MAX_ITERATIONS = 400
 # SMACOF stops once the stress falls by less than this fraction in one iteration.
-STRESS_TOLERANCE = 1e-5
+STRESS_TOLERANCE = 1e-4
 REPAIR_ROUNDS = 150
+REPAIR_PATIENCE = 20
+# Extra box growth, in pixels, for the reusable list of node-link pairs checked in repair.
+VERLET_SKIN_PX = 12.0
 # Each repair push overshoots by this many pixels so a fixed problem does not come straight back.
 REPAIR_SLACK_PX = 0.5
 # Share of a node-link push taken by the node; the link's two ends take the rest.
@@ -96,16 +102,16 @@ def stress_layout(
         Shape ``(n, 2)``, in hop units.
     """
     n = g.number_of_nodes()
-    d = np.zeros((n, n))
-    for src, lengths in nx.all_pairs_shortest_path_length(g):
-        for dst, hops in lengths.items():
-            d[src, dst] = hops
+    d = all_pairs_counts(g)[0].astype(float)
     off = ~np.eye(n, dtype=bool)
     w = np.zeros((n, n))
     w[off] = 1.0 / d[off] ** 2
     v = -w.copy()
     v[np.diag_indices(n)] = w.sum(axis=1)
-    v_pinv = np.linalg.pinv(v)
+    # V is a Laplacian whose null space is the constant vector, so its pseudo-inverse is
+    # inv(V + J/n) - J/n (J all ones): one inversion instead of a slower SVD.
+    j = np.full((n, n), 1.0 / n)
+    v_pinv = np.linalg.inv(v + j) - j
     x = np.random.default_rng(seed).uniform(0.0, np.sqrt(n), size=(n, 2))
     last = np.inf
     wd = w * d
@@ -169,6 +175,7 @@ def repair(
     clearance: float,
     box: tuple[float, float, float, float],
     rounds: int = REPAIR_ROUNDS,
+    extra: np.ndarray | None = None,
 ) -> tuple[np.ndarray, Readability]:
     """Nudge nodes apart until the drawing is readable, or the rounds run out.
 
@@ -190,6 +197,9 @@ def repair(
         ``(x_min, y_min, x_max, y_max)`` the nodes must stay in.
     rounds : int, optional
         Most repair rounds.
+    extra : numpy.ndarray, optional
+        Shape ``(n,)``: pixels of extra room each node needs (larger glyphs such as targets);
+        added to ``clearance`` and, for each pair, to ``min_distance``.
 
     Returns
     -------
@@ -199,13 +209,33 @@ def repair(
         Problems left after the last round.
     """
     pos = np.array(pos, dtype=float)
+    extra = np.zeros(len(pos)) if extra is None else np.asarray(extra, dtype=float)
     lo = np.array(box[:2], dtype=float)
     hi = np.array(box[2:], dtype=float)
+    links = np.asarray(links, dtype=int).reshape(-1, 2)
+    reach = clearance + float(extra.max(initial=0.0))
+    # Candidate node-link pairs are found with a wider box (reach + skin) and reused until some
+    # node has moved half the skin: no pair can come within reach unnoticed before then.
+    anchor = pos.copy()
+    cand_v, cand_e = node_link_candidates(pos, links, reach + VERLET_SKIN_PX)
+    best, stale = np.inf, 0
     for _ in range(rounds):
-        pairs = close_node_pairs(pos, min_distance)
-        hits = node_link_overlaps(pos, links, clearance)
-        if len(pairs) == 0 and len(hits) == 0:
+        if np.max(np.abs(pos - anchor), initial=0.0) > VERLET_SKIN_PX / 2:
+            anchor = pos.copy()
+            cand_v, cand_e = node_link_candidates(pos, links, reach + VERLET_SKIN_PX)
+        pairs = close_node_pairs(pos, min_distance, extra)
+        hits = overlaps_among(pos, links, cand_v, cand_e, clearance, extra)
+        left = len(pairs) + len(hits)
+        if left == 0:
             break
+        # Give up early when the count of problems stops falling: a drawing too crowded to
+        # repair would otherwise use every round for nothing.
+        if left < best:
+            best, stale = left, 0
+        else:
+            stale += 1
+            if stale >= REPAIR_PATIENCE:
+                break
         move = np.zeros_like(pos)
         if len(pairs):
             i, j = pairs[:, 0], pairs[:, 1]
@@ -214,7 +244,8 @@ def repair(
             # Coincident nodes get a fixed direction so the push is still defined.
             diff[gap == 0] = [1.0, 0.0]
             gap[gap == 0] = 1.0
-            push = ((min_distance - gap) / 2 + REPAIR_SLACK_PX)[:, None] * diff / gap[:, None]
+            need = min_distance + extra[i] + extra[j]
+            push = ((need - gap) / 2 + REPAIR_SLACK_PX)[:, None] * diff / gap[:, None]
             np.add.at(move, i, push)
             np.add.at(move, j, -push)
         if len(hits):
@@ -229,7 +260,8 @@ def repair(
             away[flat] = normal[flat]
             length = np.hypot(away[:, 0], away[:, 1])
             length[length == 0] = 1.0
-            push = ((clearance - dist) + REPAIR_SLACK_PX)[:, None] * away / length[:, None]
+            need = clearance + extra[v]
+            push = ((need - dist) + REPAIR_SLACK_PX)[:, None] * away / length[:, None]
             # The node takes most of the push and the link's ends the rest, shared by how near
             # each end is; moving both sides converges where a crowd of links meets.
             np.add.at(move, v, NODE_SHARE * push)
@@ -237,8 +269,8 @@ def repair(
             np.add.at(move, links[e, 1], -(1 - NODE_SHARE) * t[:, None] * push)
         pos = np.clip(pos + move, lo, hi)
     left = Readability(
-        close_pairs=len(close_node_pairs(pos, min_distance)),
-        overlaps=len(node_link_overlaps(pos, links, clearance)),
+        close_pairs=len(close_node_pairs(pos, min_distance, extra)),
+        overlaps=len(node_link_overlaps(pos, links, clearance, extra)),
     )
     return pos, left
 

@@ -57,6 +57,42 @@ def bfs_counts(g: nx.Graph, source: int) -> tuple[np.ndarray, np.ndarray]:
     return dist, count
 
 
+def all_pairs_counts(g: nx.Graph) -> tuple[np.ndarray, np.ndarray]:
+    """Hop distances and shortest-path counts between all node pairs at once.
+
+    Breadth-first search from every node in parallel, as matrix products: the paths of length
+    ``k + 1`` to a node are the paths of length ``k`` to its neighbours.
+
+    Parameters
+    ----------
+    g : networkx.Graph
+        Connected graph on nodes ``0 .. n-1``.
+
+    Returns
+    -------
+    distance : numpy.ndarray
+        ``(n, n)`` integer hop distances (-1 where unreachable).
+    count : numpy.ndarray
+        ``(n, n)`` float counts of distinct shortest paths; exact below 2**53, which any graph
+        the kit draws stays far below (use :func:`shortest_route` for an exact integer).
+    """
+    n = g.number_of_nodes()
+    adj = nx.to_numpy_array(g, nodelist=range(n), weight=None)
+    dist = np.full((n, n), -1, dtype=int)
+    np.fill_diagonal(dist, 0)
+    count = np.eye(n)
+    frontier = np.eye(n)
+    step = 0
+    while frontier.any():
+        step += 1
+        paths = frontier @ adj
+        new = (paths > 0) & (dist < 0)
+        dist[new] = step
+        frontier = np.where(new, paths, 0.0)
+        count += frontier
+    return dist, count
+
+
 def shortest_route(g: nx.Graph, a: int, b: int) -> tuple[int, int]:
     """Length (in links) and number of distinct shortest routes between two nodes.
 
@@ -167,12 +203,7 @@ def choose_pair(
             f"Unknown target strategy {rule.strategy!r}; use one of {', '.join(PAIR_STRATEGIES)}."
         )
     n = g.number_of_nodes()
-    dist = np.zeros((n, n), dtype=int)
-    routes = np.zeros((n, n), dtype=float)
-    for src in range(n):
-        d, c = bfs_counts(g, src)
-        dist[src] = d
-        routes[src] = c.astype(float)
+    dist, routes = all_pairs_counts(g)
     ok = np.triu(np.ones((n, n), dtype=bool), k=1)
     if rule.path_links is not None:
         lo, hi = rule.path_links

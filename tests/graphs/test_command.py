@@ -193,3 +193,23 @@ def test_impossible_pair_rule_points_at_the_set(tmp_path: Path) -> None:
         run(_args(_spec(tmp_path, text=text), tmp_path / "out"))
     line = info.value.lines()[0]
     assert line.startswith(f"{tmp_path / 'spec.yaml'}:7:5: error: No target pair")
+
+
+def test_targets_have_room_for_their_markers(built: Path) -> None:
+    """No node lies under a target marker: others keep the node gap beyond the marker's reach.
+
+    Source: common practice (no published source).
+    """
+    # Defaults: marker 28 px (reach 28 / sqrt 2 + 1 px outline), nodes 9 px; the spec's node
+    # gap is 16 px, so a target's neighbours keep 16 px plus the marker's extra reach.
+    reach = 28 / 2**0.5 + 1.0
+    need = 16 + (reach - 9 / 2)
+    rounding = 0.02  # GraphML coordinates have 2 decimals
+    for r in _rows(built):
+        g = nx.read_graphml(built / r["graphml"])
+        xy = {v: (d["x"], d["y"]) for v, d in g.nodes(data=True)}
+        for t in (v for v, d in g.nodes(data=True) if d["target"]):
+            for v, (x, y) in xy.items():
+                if v != t:
+                    gap = ((x - xy[t][0]) ** 2 + (y - xy[t][1]) ** 2) ** 0.5
+                    assert gap >= need - rounding, (r["stimulus"], v)
