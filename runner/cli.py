@@ -7,6 +7,7 @@ Every verb's work lives in the library; errors the user can act on arrive here a
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
 import os
 import sys
@@ -255,7 +256,56 @@ def cmd_schema(args: argparse.Namespace) -> int:
 
 
 # -- parser ------------------------------------------------------------------------------------
-def build_parser() -> argparse.ArgumentParser:
+# Verbs whose modules are heavy (pygame, pandas, matplotlib, networkx): imported only when used.
+PLUGIN_VERBS = [
+    (
+        "selftest",
+        "measure this machine's display, input and marker timing",
+        "runner.present.selftest",
+        "add_arguments",
+        "run",
+    ),
+    (
+        "audit",
+        "check that sessions are complete and intact (and against a recording)",
+        "runner.qa.command",
+        "add_audit_arguments",
+        "run_audit",
+    ),
+    (
+        "replay",
+        "re-present a session's screens from its journal",
+        "runner.qa.command",
+        "add_replay_arguments",
+        "run_replay",
+    ),
+    (
+        "export",
+        "pooled trials table and BIDS events files",
+        "runner.data.command",
+        "add_export_arguments",
+        "run_export",
+    ),
+    (
+        "summary",
+        "pilot report: tables, plots and report.html",
+        "runner.data.command",
+        "add_summary_arguments",
+        "run_summary",
+    ),
+    (
+        "stimuli",
+        "make node-link stimuli with known answers from a spec",
+        "runner.graphs.command",
+        "add_arguments",
+        "run",
+    ),
+]
+
+
+def build_parser(wanted: str | None = None) -> argparse.ArgumentParser:
+    """The argument parser. With ``wanted``, only that verb's (possibly heavy) module is imported;
+    the other verbs are still listed, so usage and help stay complete."""
     parser = _Parser(
         prog="trialdeck", description="Run, check and analyse diagram-reading lab sessions."
     )
@@ -299,30 +349,30 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--verbose", action="store_true", help="print a line per trial")
     verbs["demo"] = cmd_demo
 
-    from runner.present import selftest
-
-    p = sub.add_parser("selftest", help="measure this machine's display, input and marker timing")
-    selftest.add_arguments(p)
-    verbs["selftest"] = selftest.run
-
     p = sub.add_parser("schema", help="print the protocol's JSON Schema")
     verbs["schema"] = cmd_schema
 
-    try:
-        from runner.graphs import command as stimuli_command
-    except ImportError:
-        stimuli_command = None
-    if stimuli_command is not None:
-        p = sub.add_parser("stimuli", help="make node-link stimuli with known answers from a spec")
-        stimuli_command.add_arguments(p)
-        verbs["stimuli"] = stimuli_command.run
+    for verb, help_text, module, add_name, run_name in PLUGIN_VERBS:
+        p = sub.add_parser(verb, help=help_text)
+        if wanted is None or wanted == verb:
+            mod = importlib.import_module(module)
+            getattr(mod, add_name)(p)
+            verbs[verb] = getattr(mod, run_name)
 
     parser.set_defaults(_verbs=verbs)
     return parser
 
 
+def _wanted_verb(argv: Sequence[str]) -> str | None:
+    for arg in argv:
+        if not arg.startswith("-"):
+            return arg
+    return None
+
+
 def main(argv: Sequence[str] | None = None) -> int:
-    parser = build_parser()
+    argv = list(sys.argv[1:] if argv is None else argv)
+    parser = build_parser(_wanted_verb(argv))
     args = parser.parse_args(argv)
     handler = args._verbs[args.verb]
     try:
