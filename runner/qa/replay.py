@@ -27,6 +27,9 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import struct
+import zlib
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -46,6 +49,8 @@ __all__ = [
     "plan_replay",
     "replay_session",
     "write_contact_sheet",
+    "write_png",
+    "ContactSheet",
 ]
 
 CONTACT_SHEET = "contact-sheet.png"
@@ -59,6 +64,20 @@ SHEET_TEXT = (230, 230, 230)
 # is seen within a frame while the flip still lands on time.
 POLL_LEAD_INTERVALS = 1.0
 ESCAPE = "escape"
+# Headless frame export: PNG files written with zlib level 1 on worker threads (zlib releases
+# the interpreter lock), since encoding, not drawing, is the slow part. Level 1 files of these
+# flat screens are about as small as the default level's and several times faster to write.
+PNG_LEVEL = 1
+PNG_WORKERS = 2
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+PNG_RGB8 = (
+    8,
+    2,
+    0,
+    0,
+    0,
+)  # bit depth 8, colour type 2 (RGB), deflate, adaptive filter, no interlace
+FRAME_NAME = "{index:05d}-{view}.png"  # as runner.present.screen.Display.save_frame names them
 
 
 @dataclass(frozen=True)
@@ -331,21 +350,20 @@ def replay_session(
                 flipped = display.show(s.view, at=at, photodiode=s.photodiode)
                 lateness.append((flipped - at) * 1000.0)
         else:
-            last: View | None = None
-            for s in plan.screens:
-                # The same drawing and saving as Display.show, without waiting for a frame slot.
-                display.painter.draw(display.surface, s.view, photodiode=s.photodiode)
-                if frames is not None and s.view != last:
-                    display.save_frame(s.view)
-                    last = s.view
+            written_untimed = _draw_untimed(plan, display, frames)
     finally:
         # Closing saves the last pending frame of a timed replay.
         display.close()
-    written = list(display.frames_written) if frames is not None else []
     sheet = None
-    if frames is not None and written:
-        labels = _labels(plan.screens, written)
-        sheet = write_contact_sheet(written, frames / CONTACT_SHEET, labels=labels)
+    if timed:
+        written = list(display.frames_written) if frames is not None else []
+        if frames is not None and written:
+            labels = _labels(plan.screens, written)
+            sheet = write_contact_sheet(written, frames / CONTACT_SHEET, labels=labels)
+    else:
+        written, sheet_obj = written_untimed
+        if frames is not None and sheet_obj is not None:
+            sheet = sheet_obj.save(frames / CONTACT_SHEET)
     return ReplayResult(
         screens=len(plan.screens),
         frames=written,
@@ -356,6 +374,136 @@ def replay_session(
         seconds=local_clock() - started,
         notes=notes,
     )
+
+
+def _draw_untimed(
+    plan: ReplayPlan, display: Any, frames: Path | None
+) -> tuple[list[Path], ContactSheet | None]:
+    """Draw every screen as fast as possible; save each distinct one and its thumbnail.
+
+    The drawing is the presenter's own (``display.painter`` on ``display.surface``), so the
+    pixels are the live ones; a screen is saved when it differs from the last saved one, the
+    rule :meth:`runner.present.screen.Display.show` follows.
+    """
+    import pygame
+
+    if frames is None:
+        for s in plan.screens:
+            display.painter.draw(display.surface, s.view, photodiode=s.photodiode)
+        return [], None
+    frames.mkdir(parents=True, exist_ok=True)
+    size = display.surface.get_size()
+    sheet = ContactSheet(size)
+    written: list[Path] = []
+    pending: list[Future[None]] = []
+    last: View | None = None
+    with ThreadPoolExecutor(max_workers=PNG_WORKERS) as pool:
+        for s in plan.screens:
+            display.painter.draw(display.surface, s.view, photodiode=s.photodiode)
+            if s.view == last:
+                continue
+            last = s.view
+            path = frames / FRAME_NAME.format(index=len(written) + 1, view=type(s.view).__name__)
+            rgb = pygame.image.tobytes(display.surface, "RGB")
+            pending.append(pool.submit(write_png, path, rgb, size))
+            trial = f" t{s.trial}" if s.trial is not None else ""
+            sheet.add(display.surface, f"{len(written) + 1} {s.kind}{trial}")
+            written.append(path)
+        for job in pending:
+            job.result()  # re-raises a failed write here, with its own message
+    return written, sheet
+
+
+def write_png(path: Path, rgb: bytes, size: tuple[int, int], *, level: int = PNG_LEVEL) -> Path:
+    """Write 8-bit RGB pixels (rows top to bottom) as a PNG file.
+
+    Follows the PNG specification (W3C, "Portable Network Graphics (PNG) Specification"): the
+    signature, an IHDR chunk, one IDAT chunk holding the zlib-compressed rows each preceded by
+    filter type 0, and IEND; every chunk carries its CRC-32.
+
+    Parameters
+    ----------
+    path : Path
+    rgb : bytes
+        ``width * height * 3`` bytes.
+    size : (int, int)
+        Width and height in pixels.
+    level : int
+        zlib compression level (1 is fast; the pixels are the same at every level).
+
+    Returns
+    -------
+    Path
+    """
+    import numpy as np
+
+    w, h = size
+    pixels = np.frombuffer(rgb, dtype=np.uint8).reshape(h, w * 3)
+    rows = np.zeros((h, w * 3 + 1), dtype=np.uint8)
+    rows[:, 1:] = pixels
+
+    def chunk(tag: bytes, data: bytes) -> bytes:
+        return struct.pack(">I", len(data)) + tag + data + struct.pack(">I", zlib.crc32(tag + data))
+
+    ihdr = struct.pack(">IIBBBBB", w, h, *PNG_RGB8)
+    data = (
+        PNG_SIGNATURE
+        + chunk(b"IHDR", ihdr)
+        + chunk(b"IDAT", zlib.compress(rows.tobytes(), level))
+        + chunk(b"IEND", b"")
+    )
+    try:
+        path.write_bytes(data)
+    except OSError as exc:
+        raise InputFileError(f"the frame {path} cannot be written: {exc.strerror}.") from None
+    return path
+
+
+class ContactSheet:
+    """A grid of small copies of screens, with a caption under each, built as frames are drawn."""
+
+    def __init__(
+        self,
+        frame_size: tuple[int, int],
+        *,
+        columns: int = SHEET_COLUMNS,
+        thumb_width: int = SHEET_THUMB_W,
+    ):
+        import pygame
+
+        pygame.font.init()
+        w, h = frame_size
+        self.tw, self.th = thumb_width, max(1, round(h * thumb_width / w))
+        self.columns = columns
+        self.font = pygame.font.Font(None, SHEET_LABEL_PX + 4)
+        self.cells: list[tuple[Any, Any]] = []
+
+    def add(self, surface: Any, label: str) -> None:
+        """Add a thumbnail of ``surface`` (a pygame surface of the frame size) and its caption."""
+        import pygame
+
+        thumb = pygame.transform.smoothscale(surface, (self.tw, self.th))
+        self.cells.append((thumb, self.font.render(label, True, SHEET_TEXT)))
+
+    def save(self, out: Path) -> Path:
+        """Write the sheet to ``out`` (PNG) and return it."""
+        import pygame
+
+        if not self.cells:
+            raise InputFileError("there are no frames to put on a contact sheet.")
+        cell_w, cell_h = self.tw + SHEET_PAD, self.th + SHEET_LABEL_PX + 2 * SHEET_PAD
+        cols = max(1, min(self.columns, len(self.cells)))
+        rows = math.ceil(len(self.cells) / cols)
+        sheet = pygame.Surface((cols * cell_w + SHEET_PAD, rows * cell_h + SHEET_PAD))
+        sheet.fill(SHEET_BACKGROUND)
+        for i, (thumb, text) in enumerate(self.cells):
+            x = SHEET_PAD + (i % cols) * cell_w
+            y = SHEET_PAD + (i // cols) * cell_h
+            sheet.blit(thumb, (x, y))
+            sheet.blit(text, (x, y + self.th + 2))
+        out.parent.mkdir(parents=True, exist_ok=True)
+        pygame.image.save(sheet, str(out))
+        return out
 
 
 def _labels(screens: list[ReplayScreen], written: list[Path]) -> list[str]:
@@ -409,24 +557,9 @@ def write_contact_sheet(
         raise InputFileError("there are no frames to put on a contact sheet.")
     pygame.font.init()
     first = pygame.image.load(str(frames[0]))
-    w, h = first.get_size()
-    tw = thumb_width
-    th = max(1, round(h * tw / w))
-    cell_w, cell_h = tw + SHEET_PAD, th + SHEET_LABEL_PX + 2 * SHEET_PAD
-    cols = max(1, min(columns, len(frames)))
-    rows = math.ceil(len(frames) / cols)
-    sheet = pygame.Surface((cols * cell_w + SHEET_PAD, rows * cell_h + SHEET_PAD))
-    sheet.fill(SHEET_BACKGROUND)
-    font = pygame.font.Font(None, SHEET_LABEL_PX + 4)
+    sheet = ContactSheet(first.get_size(), columns=columns, thumb_width=thumb_width)
     captions = labels if labels is not None else [p.stem for p in frames]
     for i, path in enumerate(frames):
         img = first if i == 0 else pygame.image.load(str(path))
-        thumb = pygame.transform.smoothscale(img, (tw, th))
-        x = SHEET_PAD + (i % cols) * cell_w
-        y = SHEET_PAD + (i // cols) * cell_h
-        sheet.blit(thumb, (x, y))
-        text = font.render(captions[i] if i < len(captions) else path.stem, True, SHEET_TEXT)
-        sheet.blit(text, (x, y + th + 2))
-    out.parent.mkdir(parents=True, exist_ok=True)
-    pygame.image.save(sheet, str(out))
-    return out
+        sheet.add(img, captions[i] if i < len(captions) else path.stem)
+    return sheet.save(out)
