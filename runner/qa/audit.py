@@ -786,6 +786,7 @@ def audit_sessions(
     Returns
     -------
     list of SessionAudit
+        In the order of ``folders``.
     """
     cache = HashCache()
     return [

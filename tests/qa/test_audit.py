@@ -491,3 +491,16 @@ def test_several_sessions_summary_first(pilot, tmp_path):
     assert lines[1] == "  2 sessions checked: 2 sound, 0 with problems"
     assert lines.index("Problems") > 3
     assert any("trials.csv is missing" in line for line in lines)
+
+
+def test_audit_imports_without_pygame_or_pylsl():
+    """The audit (and the qa commands) import without pygame or pylsl, so it runs anywhere."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, runner.qa.audit, runner.qa.command; "
+        "print(sorted(m for m in ('pygame', 'pylsl') if m in sys.modules))"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stdout.strip() == "[]"
