@@ -36,7 +36,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from runner.errors import InputFileError, JournalError, Problem, ProtocolError
+from runner.errors import InputFileError, JournalError, Problem, ProtocolError, RecordingError
 from runner.qa.recording import (
     DEFAULT_MAX_GAP_S,
     DEFAULT_RESIDUAL_LIMIT_MS,
@@ -1356,8 +1356,6 @@ def _check_against_recording(
     source_id = markers.get("source_id") if isinstance(markers.get("source_id"), str) else None
     name = markers.get("name") if isinstance(markers.get("name"), str) else None
     journaled = journaled_markers(events)
-    from runner.errors import RecordingError
-
     try:
         report = check_recording(
             recording,
