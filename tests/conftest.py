@@ -17,14 +17,18 @@ os.environ["SDL_AUDIODRIVER"] = "dummy"
 os.environ["PYGAME_HIDE_SUPPORT_PROMPT"] = "1"
 os.environ.setdefault("MPLBACKEND", "Agg")
 
-_LSL_CFG = Path(tempfile.gettempdir()) / f"trialdeck-test-lsl-{uuid.uuid4().hex}.cfg"
-_LSL_CFG.write_text(
-    "[multicast]\nResolveScope = machine\n"
-    f"[lab]\nSessionID = trialdeck-tests-{uuid.uuid4().hex[:12]}\n"
-    "[log]\nlevel = -3\n",
-    encoding="utf-8",
-)
-os.environ["LSLAPICFG"] = str(_LSL_CFG)
+# This module is imported twice (as pytest's conftest and by `from conftest import ...`): make the
+# LSL configuration once per test run.
+if "TRIALDECK_TEST_LSLCFG" not in os.environ:
+    _LSL_CFG = Path(tempfile.gettempdir()) / f"trialdeck-test-lsl-{uuid.uuid4().hex}.cfg"
+    _LSL_CFG.write_text(
+        "[multicast]\nResolveScope = machine\n"
+        f"[lab]\nSessionID = trialdeck-tests-{uuid.uuid4().hex[:12]}\n"
+        "[log]\nlevel = -3\n",
+        encoding="utf-8",
+    )
+    os.environ["TRIALDECK_TEST_LSLCFG"] = str(_LSL_CFG)
+    os.environ["LSLAPICFG"] = str(_LSL_CFG)
 
 REPO = Path(__file__).resolve().parent.parent
 TEST_DATA = Path(__file__).resolve().parent / "data"
