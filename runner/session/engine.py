@@ -190,6 +190,8 @@ class Engine:
         self._next_at: float | None = None
         self._current: View = BlankView()
         self._current_photodiode = False
+        self._current_kind: str = "blank"
+        self._current_trial: ScheduledTrial | None = None
         self.total_trials = len(schedule.trials)
         self.push_delays_us: list[float] = []
         self._pushed: tuple[str, float, str, float, int | None] | None = None
@@ -283,6 +285,7 @@ class Engine:
             self._pushed = (mark, t, payload, *self._push(mark, payload, t))
         self._current = view
         self._current_photodiode = photodiode
+        self._current_kind, self._current_trial = kind, trial
         # Every screen change is journaled with what was drawn, so audit can time each screen
         # and replay can redraw it exactly.
         flip: dict[str, Any] = {"t": t, "kind": kind, "view": view_to_dict(view)}
@@ -447,6 +450,10 @@ class Engine:
         self.journal.sync()
         self.state.paused, self.state.storage_problem = False, None
         self._notify("on_storage", None, self)
+        # The screen is back: whoever answers it (the simulated participant) starts it afresh.
+        kind = self._current_kind.removesuffix("-typing")
+        for obs in self.observers:
+            obs.on_view(kind, t1, self._current_trial, self._current)
 
     def _confirm_abort(self, trial: ScheduledTrial | None) -> None:
         previous, photodiode = self._current, self._current_photodiode

@@ -25,8 +25,9 @@ JOURNAL_FORMAT = "trialdeck-journal/1"
 GENESIS = "0" * 32
 HASH_CHARS = 32
 FILE_MODE = 0o644
-OPEN_NEW = os.O_WRONLY | os.O_APPEND | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0)
-OPEN_APPEND = os.O_WRONLY | os.O_APPEND | getattr(os, "O_CLOEXEC", 0)
+# Read access too: a journal whose folder was removed is copied back from its open file.
+OPEN_NEW = os.O_RDWR | os.O_APPEND | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0)
+OPEN_APPEND = os.O_RDWR | os.O_APPEND | getattr(os, "O_CLOEXEC", 0)
 COPY_CHUNK = 1 << 20
 
 

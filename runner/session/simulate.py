@@ -224,6 +224,11 @@ class SimulatedParticipant:
             if plan is not None:
                 self._rate(t + self._s(RATING_RT_S), plan.rating)
 
+    def on_storage(self, problem: str | None, engine: object) -> None:
+        """While the session is paused for storage, keys already planned are dropped."""
+        if problem is not None:
+            self.keys.clear()
+
     def extra_row(self, trial: ScheduledTrial) -> dict[str, float | None]:
         """The pilot-only trials.csv column: the intended response time in ms."""
         rt = self.intended_rt_ms.get(trial.trial)
