@@ -22,7 +22,9 @@ import pygame
 
 from runner.errors import InputFileError
 
-DEFAULT_CACHE_BYTES = 256 * 1024 * 1024
+# Enough for the trials decoded ahead plus a few recently shown (16 stimuli of 1000x1000 at 4
+# bytes a pixel); a larger bound only raises peak memory, since stimuli are decoded ahead anyway.
+DEFAULT_CACHE_BYTES = 64 * 1024 * 1024
 SCALABLE_BITS = (24, 32)  # smoothscale works on these depths only
 
 
@@ -158,6 +160,13 @@ class ImageCache:
         self.last_wait_s = time.perf_counter() - t0
         self.wait_s_total += self.last_wait_s
         return self._store(path, surf)
+
+    def wait_ready(self, path: str) -> None:
+        """Block until the decode of ``path`` (asked for with :meth:`prepare`) has finished."""
+        future = self._pending.get(path)
+        if future is not None:
+            future.exception()  # waits; an error is raised later, at the onset
+        self._harvest()
 
     def close(self) -> None:
         """Stop the background thread (pending decodes are dropped)."""

@@ -201,6 +201,10 @@ class Display:
     def prepare(self, stimulus: str) -> None:
         self.images.prepare(stimulus)
 
+    def wait_ready(self, stimulus: str) -> None:
+        """Wait for a stimulus asked for with :meth:`prepare` to be decoded (session start)."""
+        self.images.wait_ready(stimulus)
+
     # -- input ------------------------------------------------------------------------------
     def wait_key(self, accept: frozenset[str] | None, deadline: float | None) -> KeyHit | None:
         self._save_pending()

@@ -997,6 +997,10 @@ class Engine:
             todo = [t for t in todo if t.trial > after.trial]
         for t in todo[:PREFETCH_AHEAD]:
             self.view.prepare(str(stimulus_abspath(self.loaded, t)))
+        wait = getattr(self.view, "wait_ready", None)
+        if after is None and todo and wait is not None:
+            # Before the session starts there is time: make sure the first onset finds its image.
+            wait(str(stimulus_abspath(self.loaded, todo[0])))
 
     def _tally(self, outcome: str, rt_ms: float | None) -> None:
         s = self.state
