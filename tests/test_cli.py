@@ -67,8 +67,9 @@ def test_bad_participant_label_is_a_usage_error(tmp_path, capsys):
 def test_missing_protocol_file(tmp_path, capsys):
     """A protocol path that does not exist gives a plain sentence and exit 1."""
     code = main(["check", str(tmp_path / "nope.yaml")])
-    err = capsys.readouterr().err
-    assert code == 1 and "does not exist" in err and "Traceback" not in err
+    captured = capsys.readouterr()
+    text = captured.out + captured.err
+    assert code == 1 and "does not exist" in text and "Traceback" not in text
 
 
 def test_python_dash_m_runner_works():
