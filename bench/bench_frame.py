@@ -56,6 +56,7 @@ def main() -> None:
     display = display_for(loaded, fullscreen=False)
     path = _largest(loaded)
     display.prepare(path)
+    display.wait_ready(path)
     views = [
         StimulusView(path, typed=str(n % 60), prompt="How many stops?", hint="Enter to confirm")
         for n in range(60)
