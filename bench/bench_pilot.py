@@ -26,7 +26,9 @@ os.environ.setdefault("SDL_VIDEODRIVER", "dummy")
 os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 REPO = Path(__file__).resolve().parent.parent
 LSL_CFG = Path(tempfile.gettempdir()) / f"trialdeck-bench-{os.getpid()}.cfg"
-LSL_CFG.write_text("[multicast]\nResolveScope = machine\n[lab]\nSessionID = bench-pilot\n[log]\nlevel = -3\n")
+LSL_CFG.write_text(
+    "[multicast]\nResolveScope = machine\n[lab]\nSessionID = bench-pilot\n[log]\nlevel = -3\n"
+)
 os.environ["LSLAPICFG"] = str(LSL_CFG)
 
 import pylsl  # noqa: E402
@@ -38,8 +40,18 @@ from runner.session.journal import read_journal  # noqa: E402
 from runner.session.markers import make_source_id  # noqa: E402
 from runner.session.run import RunOptions, run_session  # noqa: E402
 
-FLIP_MARKERS = {"page_onset", "rest_start", "rest_end", "break_start", "fixation_onset", "stimulus_onset",
-                "stimulus_offset", "rating_onset", "feedback_onset", "gap_onset"}
+FLIP_MARKERS = {
+    "page_onset",
+    "rest_start",
+    "rest_end",
+    "break_start",
+    "fixation_onset",
+    "stimulus_onset",
+    "stimulus_offset",
+    "rating_onset",
+    "feedback_onset",
+    "gap_onset",
+}
 
 
 def pct(values, q):
@@ -103,27 +115,59 @@ def main() -> int:
         loaded = load_protocol(protocol)
         inlet = Inlet(make_source_id(loaded.model.study, "bench"))
         inlet.start()
-        opts = RunOptions(participant="P01", out=tmp / "out", mode="pilot", speed=args.speed,
-                          wait_for_recorder=30, station="bench")
-        result = run_session(loaded, opts, open_presenter=lambda: display_for(loaded, fullscreen=False),
-                             console=Console(quiet=True))
+        opts = RunOptions(
+            participant="P01",
+            out=tmp / "out",
+            mode="pilot",
+            speed=args.speed,
+            wait_for_recorder=30,
+            station="bench",
+        )
+        result = run_session(
+            loaded,
+            opts,
+            open_presenter=lambda: display_for(loaded, fullscreen=False),
+            console=Console(quiet=True),
+        )
         inlet.join(timeout=10)
         inlet.stop.set()
         with open(result.trials_csv, newline="") as fh:
             rows = list(csv.DictReader(fh))
-        errors = [abs(float(r["rt_ms"]) - float(r["sim_rt_ms"])) for r in rows if r["rt_ms"] and r["sim_rt_ms"]]
+        errors = [
+            abs(float(r["rt_ms"]) - float(r["sim_rt_ms"]))
+            for r in rows
+            if r["rt_ms"] and r["sim_rt_ms"]
+        ]
         read = read_journal(result.journal)
-        flip_push = [r["push_us"] for r in read.records if r.get("event") in FLIP_MARKERS and "push_us" in r]
-        pushed_at = {(r["marker"], r["t"]): r["t"] + r["push_us"] / 1e6 for r in read.records if "marker" in r}
-        latency = [(recv - pushed_at[(p, ts)]) * 1000 for p, ts, recv in inlet.got if (p, ts) in pushed_at]
-    print(f"machine: {platform.machine()} {platform.processor() or ''} cores={os.cpu_count()} python={sys.version.split()[0]}")
-    print(f"session: {result.status}, {result.trials_done} trials, speed {args.speed:g}, late flips {result.late_flips}")
-    print(f"|rt_ms - sim_rt_ms| over {len(errors)} responses: median {statistics.median(errors):.3f} ms, "
-          f"p99 {pct(errors, 99):.3f} ms, max {max(errors):.3f} ms")
-    print(f"flip return -> marker push over {len(flip_push)} screen markers: median {statistics.median(flip_push):.1f} us, "
-          f"p99 {pct(flip_push, 99):.1f} us, max {max(flip_push):.1f} us")
-    print(f"marker delivery to a loopback inlet over {len(latency)} markers: median {statistics.median(latency):.3f} ms, "
-          f"p99 {pct(latency, 99):.3f} ms")
+        flip_push = [
+            r["push_us"] for r in read.records if r.get("event") in FLIP_MARKERS and "push_us" in r
+        ]
+        pushed_at = {
+            (r["marker"], r["t"]): r["t"] + r["push_us"] / 1e6
+            for r in read.records
+            if "marker" in r
+        }
+        latency = [
+            (recv - pushed_at[(p, ts)]) * 1000 for p, ts, recv in inlet.got if (p, ts) in pushed_at
+        ]
+    print(
+        f"machine: {platform.machine()} {platform.processor() or ''} cores={os.cpu_count()} python={sys.version.split()[0]}"
+    )
+    print(
+        f"session: {result.status}, {result.trials_done} trials, speed {args.speed:g}, late flips {result.late_flips}"
+    )
+    print(
+        f"|rt_ms - sim_rt_ms| over {len(errors)} responses: median {statistics.median(errors):.3f} ms, "
+        f"p99 {pct(errors, 99):.3f} ms, max {max(errors):.3f} ms"
+    )
+    print(
+        f"flip return -> marker push over {len(flip_push)} screen markers: median {statistics.median(flip_push):.1f} us, "
+        f"p99 {pct(flip_push, 99):.1f} us, max {max(flip_push):.1f} us"
+    )
+    print(
+        f"marker delivery to a loopback inlet over {len(latency)} markers: median {statistics.median(latency):.3f} ms, "
+        f"p99 {pct(latency, 99):.3f} ms"
+    )
     return 0
 
 

@@ -50,6 +50,8 @@ def test_layers_import_without_heavy_edges(module, forbidden):
         f"bad = [m for m in {forbidden!r} if m in sys.modules]\n"
         "print(','.join(bad))\n"
     )
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, cwd=REPO, timeout=120
+    )
     assert proc.returncode == 0, proc.stderr
     assert proc.stdout.strip() == ""

@@ -33,7 +33,7 @@ from runner.present.timing import (
     measure_refresh,
 )
 from runner.session.markers import local_clock
-from runner.session.views import KeyHit, View
+from runner.session.views import KeyHit, RatingView, View
 
 POLL_S = 0.0003  # input polling period while waiting: about 3 kHz
 SPIN_S = 0.0015  # the last part of a wait is a busy spin, because sleep overshoots
@@ -114,7 +114,8 @@ class Display:
         pygame.display.set_caption("trialdeck")
         pygame.mouse.set_visible(False)
         pygame.event.set_blocked(None)
-        pygame.event.set_allowed([pygame.KEYDOWN, pygame.QUIT])
+        pygame.event.set_allowed([pygame.KEYDOWN, pygame.QUIT, pygame.MOUSEBUTTONDOWN])
+        self.mouse_ratings = False  # show the pointer on rating screens (protocol rating.input)
         box = pygame.Rect(0, 0, *stimulus_box)
         box.center = (self.size[0] // 2, self.size[1] // 2)
         self.stimulus_rect = box
@@ -135,6 +136,7 @@ class Display:
         flips are paced by a frame clock instead.
         """
         self.surface.fill(self.painter.style.background)
+        self.painter.forget()
         check = measure_refresh(pygame.display.flip, self.clock, self.nominal_interval, flips)
         self.blocking = check.blocking
         self.interval = check.interval_s if check.blocking else self.nominal_interval
@@ -176,6 +178,8 @@ class Display:
     def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
         self._save_pending()
         self.painter.draw(self.surface, view, photodiode=photodiode)
+        pygame.mouse.set_visible(self.mouse_ratings and isinstance(view, RatingView))
+        self._current = view
         t = self._flip(at)
         if self.frames_dir is not None and view != self._last_saved:
             # Saved later (before the next drawing or input wait), so the marker push that
@@ -212,6 +216,10 @@ class Display:
             for ev in pygame.event.get():
                 if ev.type == pygame.QUIT:
                     return KeyHit("escape", self.clock())
+                if ev.type == pygame.MOUSEBUTTONDOWN:
+                    if ev.button == 1 and accept is not None and "click" in accept:
+                        return KeyHit("click", self.clock(), tuple(ev.pos))
+                    continue
                 if ev.type == pygame.KEYDOWN:
                     t = self.clock()
                     name = key_name(ev)
@@ -224,7 +232,22 @@ class Display:
                 return None
             time.sleep(POLL_S)
 
+    def rating_at(self, view: RatingView, pos: tuple[int, int]) -> int | None:
+        """The rating whose box holds ``pos`` (1-based), or None for a click beside the boxes."""
+        for i, rect in enumerate(self.painter.rating_boxes(view.points)):
+            if rect.collidepoint(pos):
+                return i + 1
+        return None
+
     def post_key(self, key: str) -> float:
+        if key.startswith("click:"):
+            # The simulated participant clicks the centre of a box of the rating on screen.
+            view = getattr(self, "_current", None)
+            points = view.points if isinstance(view, RatingView) else 9
+            pos = self.painter.rating_boxes(points)[int(key.split(":", 1)[1]) - 1].center
+            t = self.clock()
+            pygame.event.post(pygame.event.Event(pygame.MOUSEBUTTONDOWN, button=1, pos=pos))
+            return t
         code = pygame.key.key_code(key)
         char = key if len(key) == 1 else (" " if key == "space" else "")
         t = self.clock()
@@ -234,8 +257,21 @@ class Display:
         return t
 
     def drain(self) -> None:
-        """Forget pending input (keys pressed before a screen that must not take them)."""
-        pygame.event.get()
+        """Forget pending input (keys pressed before a screen that must not take them).
+
+        The experimenter's held keys (pause) are kept for the engine, and Escape is kept so an
+        abort request is never lost.
+        """
+        for ev in pygame.event.get():
+            if ev.type == pygame.QUIT:
+                pygame.event.post(pygame.event.Event(pygame.QUIT))
+            elif ev.type == pygame.KEYDOWN:
+                name = key_name(ev)
+                if name in self.hold:
+                    self.held.append(KeyHit(name, self.clock()))
+                elif name == "escape":
+                    pygame.event.post(ev)
+                    return
 
     def close(self) -> None:
         self._save_pending()
@@ -257,7 +293,7 @@ def display_for(loaded, *, fullscreen: bool, frames_dir: Path | None = None) -> 
         photodiode_corner=pd.corner if pd else None,
         photodiode_px=pd.size_px if pd else 48,
     )
-    return Display(
+    display = Display(
         resolution=screen.resolution,
         refresh_hz=screen.refresh_hz,
         style=style,
@@ -265,3 +301,5 @@ def display_for(loaded, *, fullscreen: bool, frames_dir: Path | None = None) -> 
         fullscreen=fullscreen,
         frames_dir=frames_dir,
     )
+    display.mouse_ratings = loaded.model.rating.input != "keys"
+    return display

@@ -30,6 +30,7 @@ FIXATION_THICKNESS_FRACTION = 0.003
 PAGE_WIDTH_FRACTION = 0.58
 HINT_MARGIN_FRACTION = 0.07
 BOX_RADIUS = 10
+TEXT_CACHE_ENTRIES = 512
 
 
 def _rgb(colour: str) -> tuple[int, int, int]:
@@ -93,15 +94,29 @@ class Painter:
         self.heading = pygame.font.Font(None, round(fp * 1.8))
         self.small = pygame.font.Font(None, round(fp * 0.95))
         self.big = pygame.font.Font(None, round(fp * 3.0))
+        self._text_cache: dict[tuple, pygame.Surface] = {}
+        self._box_cache: dict[tuple, pygame.Surface] = {}
+        self._last: tuple[View, bool] | None = None
 
     # -- helpers ----------------------------------------------------------------------------
     def _text(
         self, surf: pygame.Surface, font: pygame.font.Font, text: str, colour, center
     ) -> pygame.Rect:
-        img = font.render(text, True, colour)
+        img = self._render(font, text, colour)
         rect = img.get_rect(center=center)
         surf.blit(img, rect)
         return rect
+
+    def _render(self, font: pygame.font.Font, text: str, colour) -> pygame.Surface:
+        """Rendered text, cached: the same hint or digits need not be rasterised every frame."""
+        key = (id(font), text, tuple(colour))
+        img = self._text_cache.get(key)
+        if img is None:
+            if len(self._text_cache) >= TEXT_CACHE_ENTRIES:
+                self._text_cache.clear()
+            img = font.render(text, True, colour)
+            self._text_cache[key] = img
+        return img
 
     def _wrap(self, font: pygame.font.Font, text: str, width: int) -> list[str]:
         lines: list[str] = []
@@ -139,16 +154,73 @@ class Painter:
     def _box(
         self, surf: pygame.Surface, rect: pygame.Rect, *, filled: bool, border: int = 3
     ) -> None:
-        st = self.style
-        pygame.draw.rect(surf, st.accent if filled else st.paper, rect, border_radius=BOX_RADIUS)
-        pygame.draw.rect(surf, st.accent, rect, width=border, border_radius=BOX_RADIUS)
+        key = (rect.width, rect.height, filled, border)
+        img = self._box_cache.get(key)
+        if img is None:
+            # Drawn once per size on a transparent surface, then blitted: rounded rectangles
+            # are slow to rasterise and the answer box is redrawn at every typed digit.
+            st = self.style
+            img = pygame.Surface(rect.size, pygame.SRCALPHA)
+            local = pygame.Rect(0, 0, rect.width, rect.height)
+            pygame.draw.rect(
+                img, st.accent if filled else st.paper, local, border_radius=BOX_RADIUS
+            )
+            pygame.draw.rect(img, st.accent, local, width=border, border_radius=BOX_RADIUS)
+            self._box_cache[key] = img
+        surf.blit(img, rect)
 
     # -- screens ----------------------------------------------------------------------------
     def draw(self, surf: pygame.Surface, view: View, *, photodiode: bool = False) -> None:
+        last, self._last = self._last, (view, photodiode)
+        if (
+            isinstance(view, StimulusView)
+            and last is not None
+            and isinstance(last[0], StimulusView)
+            and last[1] == photodiode
+            and last[0].typed is not None
+            and view.typed is not None
+            and (last[0].stimulus, last[0].prompt, last[0].hint)
+            == (view.stimulus, view.prompt, view.hint)
+        ):
+            # Only the typed count changed: redraw just the answer box (same pixels as a full draw).
+            self._redraw_answer_box(surf, view)
+            return
         surf.fill(self.style.background)
         method = getattr(self, "_draw_" + type(view).__name__)
         method(surf, view)
         self._photodiode(surf, photodiode)
+
+    def forget(self) -> None:
+        """Make the next draw a full one (after something else drew on the surface)."""
+        self._last = None
+
+    def _answer_box(self, image_rect: pygame.Rect) -> pygame.Rect:
+        # The answer box sits between the stimulus and the hint line when there is room, else
+        # over the stimulus's lower edge; it never covers the hint.
+        bw, bh = round(self.style.font_px * 5), round(self.style.font_px * 2.4)
+        hint_top = round(self.size[1] * (1 - HINT_MARGIN_FRACTION)) - self.small.get_linesize()
+        below = hint_top - image_rect.bottom
+        cy = image_rect.bottom + below // 2 if below > bh + 10 else image_rect.bottom - bh
+        box = pygame.Rect(0, 0, bw, bh)
+        box.center = (self.size[0] // 2, cy)
+        return box
+
+    def _redraw_answer_box(self, surf: pygame.Surface, view: StimulusView) -> None:
+        img = self.image_for(view.stimulus)
+        rect = img.get_rect(center=self.stimulus_rect.center)
+        box = self._answer_box(rect)
+        surf.fill(self.style.background, box)
+        overlap = box.clip(rect)
+        if overlap.width and overlap.height:
+            surf.blit(img, overlap, overlap.move(-rect.left, -rect.top))
+        self._box(surf, box, filled=False)
+        self._text(surf, self.body, view.typed + "_", self.style.text, box.center)
+        # Whatever else a full draw puts over the box area (the hint on small screens) goes
+        # back on, clipped to the box, so both ways of drawing give the same pixels.
+        surf.set_clip(box)
+        self._hint(surf, view.hint)
+        self._photodiode(surf, self._last[1] if self._last else False)
+        surf.set_clip(None)
 
     def _draw_BlankView(self, surf: pygame.Surface, view: BlankView) -> None:
         return None
@@ -182,7 +254,7 @@ class Painter:
         x = (w - width) // 2
         for (font, text, colour), lh in zip(blocks, heights, strict=True):
             if text:
-                surf.blit(font.render(text, True, colour), (x, y))
+                surf.blit(self._render(font, text, colour), (x, y))
             y += lh
         self._hint(surf, view.hint)
 
@@ -191,12 +263,7 @@ class Painter:
         rect = img.get_rect(center=self.stimulus_rect.center)
         surf.blit(img, rect)
         if view.typed is not None:
-            # The answer box sits below the stimulus when there is room, else over its lower edge.
-            bw, bh = round(self.style.font_px * 5), round(self.style.font_px * 2.4)
-            below = self.size[1] - rect.bottom
-            cy = rect.bottom + below // 2 if below > bh + 20 else rect.bottom - bh
-            box = pygame.Rect(0, 0, bw, bh)
-            box.center = (self.size[0] // 2, cy)
+            box = self._answer_box(rect)
             self._box(surf, box, filled=False)
             self._text(surf, self.body, view.typed + "_", self.style.text, box.center)
         self._hint(surf, view.hint)
@@ -213,20 +280,27 @@ class Painter:
         self._text(surf, self.big, view.typed if view.typed else "_", self.style.text, box.center)
         self._hint(surf, view.hint)
 
+    def rating_boxes(self, points: int) -> list[pygame.Rect]:
+        """Where the boxes of a rating scale are drawn (also used to hit-test mouse clicks)."""
+        w, h = self.size
+        fp = self.style.font_px
+        side = round(fp * 1.9)
+        gap = round(fp * 0.6)
+        total = points * side + (points - 1) * gap
+        x0 = (w - total) // 2
+        y0 = h // 2 - side // 2
+        return [pygame.Rect(x0 + i * (side + gap), y0, side, side) for i in range(points)]
+
     def _draw_RatingView(self, surf: pygame.Surface, view: RatingView) -> None:
         w, h = self.size
         fp = self.style.font_px
         self._text(
             surf, self.body, view.question, self.style.text, (w // 2, h // 2 - round(fp * 3))
         )
-        side = round(fp * 1.9)
-        gap = round(fp * 0.6)
-        total = view.points * side + (view.points - 1) * gap
-        x0 = (w - total) // 2
-        y0 = h // 2 - side // 2
+        boxes = self.rating_boxes(view.points)
+        side, y0 = boxes[0].height, boxes[0].top
         centers = []
-        for i in range(view.points):
-            rect = pygame.Rect(x0 + i * (side + gap), y0, side, side)
+        for i, rect in enumerate(boxes):
             chosen = view.selected == i + 1
             self._box(surf, rect, filled=chosen)
             colour = self.style.paper if chosen else self.style.text

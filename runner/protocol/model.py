@@ -161,6 +161,10 @@ class Rating(Strict):
     low: str = Field("very easy", max_length=60)
     high: str = Field("very hard", max_length=60)
     mid: str | None = Field(None, max_length=60)
+    input: Literal["keys", "mouse", "both"] = Field(
+        "keys",
+        description="how the rating is given: number keys (and arrows), a mouse click on a box, or both",
+    )
     question_column: str | None = Field(
         None, description="Trial-table column that overrides the question."
     )

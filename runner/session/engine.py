@@ -535,7 +535,7 @@ class Engine:
     def _page(self, item: Item) -> None:
         key_label = "the space bar" if item.key == "space" else f"the {item.key.upper()} key"
         t = self._show(
-            PageView(item.text, hint=f"Press {key_label} to continue."),
+            PageView(item.text, hint=f"Press {key_label} to continue.", key=item.key),
             "page",
             at=self._next_at,
             mark="page_onset",
@@ -679,6 +679,11 @@ class Engine:
             requested_ms=trial.fixation_ms,
             frames=fix_frames,
         )
+        # Keys pressed before the fixation (e.g. late presses from the previous trial) must not
+        # count as a response to this stimulus.
+        drain = getattr(self.view, "drain", None)
+        if drain is not None:
+            drain()
 
         unsure_hint = f"{ans.unsure_key.upper()} = unsure"
         if ans.mode == "after":
@@ -852,11 +857,15 @@ class Engine:
 
     def _rate(self, trial: ScheduledTrial, out: TrialOutcome) -> None:
         r = self.model.rating
+        keys = r.input != "mouse"
+        mouse = r.input != "keys"
         hint = (
             f"Press a number key from 1 to {r.points}."
             if r.points <= 9
             else "Use the arrow keys and press Enter, or press 1 to 9 (0 for 10)."
         )
+        if mouse:
+            hint = "Click a box." if not keys else "Click a box, or p" + hint[1:]
         base = RatingView(self._question(trial), r.points, r.low, r.high, r.mid, None, hint)
         t_r = self._show(base, "rating", trial, mark="rating_onset")
         out.rating_onset_t = t_r
@@ -866,14 +875,25 @@ class Engine:
         number_keys = {str(i) for i in range(1, min(r.points, 9) + 1)} | (
             {"0"} if r.points >= 10 else set()
         )
-        accept = frozenset(number_keys | {"left", "right", "return"})
+        if not keys:
+            number_keys = set()
+        accept = frozenset(
+            number_keys
+            | ({"left", "right", "return"} if keys else set())
+            | ({"click"} if mouse else set())
+        )
         selected: int | None = None
         while True:
             hit = self._key(accept, deadline, out, trial)
             if hit is None:
                 self.emit("rating", self.clock(), trial=trial.trial, rating=None, timed_out=True)
                 return
-            if hit.key in number_keys:
+            if hit.key == "click":
+                picked = self.view.rating_at(base, hit.pos) if hit.pos is not None else None
+                if picked is None:
+                    continue
+                choice = picked
+            elif hit.key in number_keys:
                 choice = 10 if hit.key == "0" else int(hit.key)
             elif hit.key in ("left", "right"):
                 step = -1 if hit.key == "left" else 1
@@ -898,6 +918,7 @@ class Engine:
                 trial=trial.trial,
                 rating=choice,
                 rt_ms=round((hit.t - t_r) * 1000, 3),
+                via="mouse" if hit.key == "click" else "keys",
             )
             frames = max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.view.interval))
             t = self._show(

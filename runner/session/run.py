@@ -404,6 +404,7 @@ def run_session(
                 abort_at=opts.abort_at,
                 pause_at=opts.pause_at,
                 pause_key=opts.pause_key or "p",
+                rating_input=loaded.model.rating.input,
             )
             sim.start()
             all_observers.insert(0, sim)

@@ -23,6 +23,7 @@ from runner.protocol.schedule import ScheduledTrial
 from runner.session.views import View
 
 PAGE_READ_S = 1.2
+FRESH_SCREENS = frozenset({"page", "fixation", "answer", "rating", "break-ready"})
 BREAK_EXTRA_S = 0.6
 KEY_GAP_S = 0.16  # between typed digits
 CONFIRM_GAP_S = 0.22
@@ -141,6 +142,7 @@ class SimulatedParticipant:
         clock: Callable[[], float],
         abort_at: int | None = None,
         pause_at: int | None = None,
+        rating_input: str = "keys",
         pause_key: str = "p",
         pause_s: float = 2.0,
     ):
@@ -150,6 +152,7 @@ class SimulatedParticipant:
         self.unsure_key = unsure_key
         self.decision_key = decision_key
         self.mode = mode
+        self.rating_input = rating_input
         self.speed = float(speed)
         self.abort_at = abort_at
         self.pause_at = pause_at
@@ -180,7 +183,9 @@ class SimulatedParticipant:
         )
 
     def _rate(self, t: float, rating: int) -> None:
-        if rating <= 9:
+        if self.rating_input == "mouse":
+            self.keys.at(t, f"click:{rating}")
+        elif rating <= 9:
             self.keys.at(t, str(rating))
         elif rating == 10 and self.points >= 10:
             self.keys.at(t, "0")
@@ -193,8 +198,12 @@ class SimulatedParticipant:
             self.keys.at(t + (rating - start + 2) * self._s(KEY_GAP_S), "return")
 
     def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
+        if kind in FRESH_SCREENS:
+            # A new screen makes keys planned for the previous one obsolete (e.g. after a time
+            # limit ended viewing), so they cannot leak into the next trial.
+            self.keys.clear()
         if kind == "page":
-            self.keys.at(t + self._s(PAGE_READ_S), "space")
+            self.keys.at(t + self._s(PAGE_READ_S), getattr(view, "key", "space") or "space")
         elif kind == "break-ready":
             # The break's minimum is over and the screen says so: go on after a moment.
             self.keys.at(t + self._s(BREAK_EXTRA_S), getattr(view, "key", None) or "space")

@@ -16,6 +16,7 @@ from typing import Protocol
 class PageView:
     text: str
     hint: str = "Press the space bar to continue."
+    key: str = "space"
 
 
 @dataclass(frozen=True)
@@ -128,6 +129,7 @@ class KeyHit:
 
     key: str
     t: float
+    pos: tuple[int, int] | None = None  # for 'click': where the mouse button went down
 
 
 class Presenter(Protocol):
@@ -145,6 +147,10 @@ class Presenter(Protocol):
 
     def wait_key(self, accept: frozenset[str] | None, deadline: float | None) -> KeyHit | None:
         """Poll input until a key in ``accept`` (any key when None) or 'escape'; None at deadline."""
+        ...
+
+    def rating_at(self, view: RatingView, pos: tuple[int, int]) -> int | None:
+        """The rating whose box holds a mouse position, or None."""
         ...
 
     def post_key(self, key: str) -> float:
