@@ -19,13 +19,30 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
 import pygame
+from PIL import Image
 
 from runner.errors import InputFileError
 
 # Enough for the trials decoded ahead plus a few recently shown (16 stimuli of 1000x1000 at 4
 # bytes a pixel); a larger bound only raises peak memory, since stimuli are decoded ahead anyway.
 DEFAULT_CACHE_BYTES = 64 * 1024 * 1024
-SCALABLE_BITS = (24, 32)  # smoothscale works on these depths only
+
+
+def resample(surface: pygame.Surface, size: tuple[int, int]) -> pygame.Surface:
+    """Scale an image to ``size`` without changing its mean luminance.
+
+    pygame's smoothscale darkens flat areas when it shrinks an image (a flat grey of 140 comes
+    out as 137), which would give the stimulus a visible frame and shift the luminance a pupil
+    study controls. Pillow's area-averaging (box) filter keeps flat areas and the mean exact when
+    shrinking; Lanczos is used when enlarging.
+    """
+    if surface.get_size() == tuple(size):
+        return surface.convert_alpha() if pygame.display.get_surface() else surface.copy()
+    w, h = surface.get_size()
+    img = Image.frombytes("RGBA", (w, h), pygame.image.tobytes(surface, "RGBA"))
+    shrinking = size[0] <= w and size[1] <= h
+    img = img.resize(size, Image.Resampling.BOX if shrinking else Image.Resampling.LANCZOS)
+    return pygame.image.frombytes(img.tobytes(), size, "RGBA")
 
 
 def fit_within(w: int, h: int, box_w: int, box_h: int) -> tuple[int, int]:
@@ -95,9 +112,7 @@ class ImageCache:
                 f"the stimulus {path} cannot be decoded as an image ({exc})."
             ) from None
         size = fit_within(raw.get_width(), raw.get_height(), *self.box)
-        if raw.get_bitsize() not in SCALABLE_BITS:
-            raw = raw.convert(32)  # palette images: expand once before scaling
-        scaled = pygame.transform.smoothscale(raw, size)
+        scaled = resample(raw, size)
         del raw
         display = pygame.display.get_surface()
         if display is not None:

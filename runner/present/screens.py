@@ -33,6 +33,28 @@ BOX_RADIUS = 10
 TEXT_CACHE_ENTRIES = 512
 
 
+def page_lines(text: str) -> list[str]:
+    """Logical lines of a simple Markdown page: headings, bullets, paragraphs and blank lines.
+
+    As in Markdown, the lines of one paragraph (or one bullet, with indented continuation lines)
+    are joined with spaces, so line breaks in the file do not show on the screen; a blank line
+    separates paragraphs.
+    """
+    out: list[str] = []
+    for raw in text.strip("\n").split("\n"):
+        line = raw.rstrip()
+        stripped = line.strip()
+        if not stripped:
+            out.append("")
+        elif stripped.startswith("#") or stripped.startswith(("- ", "* ")):
+            out.append(stripped)
+        elif out and out[-1] and not out[-1].startswith("#"):
+            out[-1] = f"{out[-1]} {stripped}"
+        else:
+            out.append(stripped)
+    return out
+
+
 def _rgb(colour: str) -> tuple[int, int, int]:
     c = colour.lstrip("#")
     if len(c) == 3:
@@ -237,8 +259,7 @@ class Painter:
         w, h = self.size
         width = round(w * PAGE_WIDTH_FRACTION)
         blocks: list[tuple[pygame.font.Font, str, tuple[int, int, int]]] = []
-        for raw in view.text.strip("\n").split("\n"):
-            line = raw.rstrip()
+        for line in page_lines(view.text):
             if line.startswith("#"):
                 blocks.append((self.heading, line.lstrip("#").strip(), self.style.accent))
             elif line.startswith(("- ", "* ")):

@@ -140,3 +140,26 @@ def test_damaged_stimulus_raises_at_onset(display, tmp_path):
             cache.get(str(bad))
     finally:
         cache.close()
+
+
+def test_downscaling_keeps_flat_colour_and_mean_luminance(tmp_path):
+    """Shrinking a stimulus keeps a flat background colour exactly and the mean pixel value
+    (pygame's smoothscale turned grey 140 into 137, a visible frame and a luminance shift).
+
+    Source: common practice (no published source): area averaging preserves the mean of an image;
+    numpy computes the reference mean.
+    """
+    import pygame
+
+    from runner.present.images import resample
+
+    pygame.display.init()
+    pygame.display.set_mode((64, 64))
+    src = pygame.Surface((1000, 1000))
+    src.fill((140, 140, 140))
+    pygame.draw.line(src, (20, 20, 20), (0, 500), (999, 500), 10)
+    out = resample(src, (500, 500))
+    assert tuple(out.get_at((5, 5)))[:3] == (140, 140, 140)
+    before = pygame.surfarray.array3d(src).astype(float).mean()
+    after = pygame.surfarray.array3d(out).astype(float).mean()
+    assert abs(before - after) < 0.05

@@ -42,3 +42,23 @@ def test_typing_update_equals_full_redraw():
         assert pygame.image.tobytes(surf, "RGB") == partial_other_patch
     finally:
         display.close()
+
+
+def test_page_lines_join_paragraphs_like_markdown():
+    """Lines of one paragraph or bullet are joined; blank lines, headings and bullets stay apart.
+
+    Source: CommonMark specification (paragraph continuation lines and list items), from memory.
+    """
+    from runner.present.screens import page_lines
+
+    text = "# Welcome\n\nOne line\nand its continuation.\n\n- first item\n  wraps here\n- second\n\nEnd."
+    assert page_lines(text) == [
+        "# Welcome",
+        "",
+        "One line and its continuation.",
+        "",
+        "- first item wraps here",
+        "- second",
+        "",
+        "End.",
+    ]
