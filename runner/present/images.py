@@ -6,9 +6,9 @@ ask for the next trials' images during the gap before them and carry on timing i
 onset then finds its image ready (:meth:`ImageCache.get` counts and times any wait).
 
 The work is split so that the background thread holds Python's interpreter lock as little as
-possible: PNG decoding and smooth scaling of 24/32-bit images run with the lock released in
-pygame-ce, and only the final conversion of the (already scaled) image to the display's pixel
-format holds it, for about a millisecond.
+possible: PNG decoding (pygame-ce) and resampling (Pillow's area-averaging filter, see
+:func:`resample`) run with the lock released; the copies between pygame and Pillow and the final
+conversion to the display's pixel format hold it, for about a millisecond per megapixel.
 """
 
 from __future__ import annotations
