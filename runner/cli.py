@@ -11,6 +11,7 @@ import importlib
 import json
 import os
 import sys
+import tempfile
 import traceback
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -45,6 +46,9 @@ def _want_headless(show: bool) -> None:
     """Use the SDL dummy driver unless a window was asked for and a display exists."""
     if not show:
         os.environ["SDL_VIDEODRIVER"] = "dummy"
+        if not os.environ.get("XDG_RUNTIME_DIR"):
+            # SDL prints "error: XDG_RUNTIME_DIR is invalid" without one, which reads like ours.
+            os.environ["XDG_RUNTIME_DIR"] = tempfile.mkdtemp(prefix="trialdeck-sdl-")
     os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 
 
@@ -160,7 +164,7 @@ def _run(
         quiet=console_quiet, live=mode == "live" and sys.stdout.isatty(), pause_key=pause_key
     )
     if mode == "live":
-        console.warn(SAFETY_REMINDER)
+        console.warn(SAFETY_REMINDER.format(pause=(pause_key or "p").upper()))
     frames = Path(args.frames) if getattr(args, "frames", None) else None
     fullscreen = not args.windowed and (mode == "live" or args.show)
     opts = RunOptions(

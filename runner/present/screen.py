@@ -215,7 +215,7 @@ class Display:
         while True:
             for ev in pygame.event.get():
                 if ev.type == pygame.QUIT:
-                    return KeyHit("escape", self.clock())
+                    return KeyHit("quit", self.clock())
                 if ev.type == pygame.MOUSEBUTTONDOWN:
                     if ev.button == 1 and accept is not None and "click" in accept:
                         return KeyHit("click", self.clock(), tuple(ev.pos))

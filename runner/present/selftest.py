@@ -251,13 +251,23 @@ def run_selftest(
 
 
 # -- command line ---------------------------------------------------------------------------------
+def _seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    if not 1 <= value <= 3600:
+        raise argparse.ArgumentTypeError(f"expected 1 to 3600 seconds, got {text!r}")
+    return value
+
+
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``trialdeck selftest``."""
     p.add_argument("protocol", metavar="PROTOCOL", nargs="?", help="the protocol to test for")
     p.add_argument("--json", action="store_true", help="print the figures as JSON")
     p.add_argument(
         "--seconds",
-        type=float,
+        type=_seconds,
         default=DEFAULT_SECONDS,
         metavar="S",
         help=f"how long to flip for the late-flip count (default {DEFAULT_SECONDS:g})",

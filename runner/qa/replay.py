@@ -344,7 +344,7 @@ def replay_session(
             for s in plan.screens:
                 at = base + (s.t - t0) / speed
                 hit = display.wait_key(frozenset(), at - POLL_LEAD_INTERVALS * display.interval)
-                if hit is not None and hit.key == ESCAPE:
+                if hit is not None and hit.key in (ESCAPE, "quit"):
                     stopped = True
                     break
                 flipped = display.show(s.view, at=at, photodiode=s.photodiode)

@@ -22,8 +22,9 @@ from rich.table import Table
 SAFETY_REMINDER = (
     "Before you start: the participant has given informed consent under your ethics approval, "
     "knows they may stop at any time (tell them how), and has been asked about photosensitive "
-    "epilepsy. Recorders are set up as their manufacturers instruct. Press Escape, then Y, to end "
-    "the session; press P between trials to pause it."
+    "epilepsy. Recorders are set up as their manufacturers instruct. Offer the planned breaks and "
+    "watch for fatigue. Press Escape, then Y, to end the session; press {pause} between trials to "
+    "pause it."
 )
 REFRESH_PER_S = 4
 

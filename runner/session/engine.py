@@ -37,6 +37,7 @@ from runner.session.views import (
 
 DIGITS = frozenset("0123456789")
 CONFIRM_KEY = "y"
+QUIT_KEY = "quit"  # what the presenter reports for a window close or a stop signal
 PAYLOAD_FIELDS = (
     "stimulus",
     "block",
@@ -333,6 +334,13 @@ class Engine:
         wanted = accept if pause is None or accept is None else accept | {pause}
         while True:
             hit = self.view.wait_key(wanted, deadline)
+            if hit is not None and hit.key == QUIT_KEY:
+                # The window was closed or the program was told to stop: a deliberate act, not
+                # a stray key, so it ends the session without asking.
+                self.journal.append(
+                    "abort_requested", t=hit.t, source="window closed or stop signal"
+                )
+                raise AbortRequested()
             if hit is not None and pause is not None and hit.key == pause:
                 self._pause(trial)
                 continue
@@ -461,7 +469,7 @@ class Engine:
         self.journal.append("abort_requested", t=t, trial=trial.trial if trial else None)
         self.journal.sync()
         hit = self.view.wait_key(None, None)
-        if hit is not None and hit.key == CONFIRM_KEY:
+        if hit is not None and hit.key in (CONFIRM_KEY, QUIT_KEY):
             raise AbortRequested()
         self.journal.append("abort_cancelled", t=hit.t if hit else self.clock())
         self._show(previous, "resume-view", trial, photodiode=photodiode)

@@ -338,6 +338,15 @@ def run_session(
             assert loaded.model.triggers is not None
             triggers = SerialTriggers.open(port, codes, baud=loaded.model.triggers.baud)
             console.info(f"Trigger codes go to {port}.")
+        elif codes:
+            console.warn(
+                "The protocol has trigger codes but no serial port: no trigger codes are sent."
+                " Give triggers.port in the protocol or --trigger-port."
+            )
+        elif port:
+            console.warn(
+                f"--trigger-port {port} is ignored: the protocol has no triggers.codes to send."
+            )
         station = station_name(opts.station or loaded.model.markers.station)
         outlet = MarkerOutlet(
             loaded.model.markers.stream,

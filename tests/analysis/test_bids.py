@@ -181,7 +181,7 @@ def test_stimulus_rows_carry_the_trials_csv_times(pilots, bids_out):
     """Stimulus rows: onset is onset_lsl minus the session start, response_time is rt_ms in
     seconds (n/a where trials.csv has none), stim_file the trial-table path.
 
-    Source: the engine's per-session trials.csv (contract in design.md), an independent record.
+    Source: common practice (no published source): two derivations of one journal must agree.
     """
     for folder in find_session_folders([pilots]):
         read = read_journal(folder / JOURNAL_NAME)
@@ -210,7 +210,7 @@ def test_stimulus_rows_carry_the_trials_csv_times(pilots, bids_out):
 def test_marked_rows_are_at_their_marker_times(pilots):
     """Every row opened by a marked event lies at that marker's journaled LSL time.
 
-    Source: LSL marker contract (design.md): a marker's timestamp equals the journal line's t.
+    Source: common practice (no published source): a marker's timestamp equals the journal line's t (docs/markers.md).
     """
     for folder in find_session_folders([pilots]):
         session = load_session(folder)

@@ -27,7 +27,7 @@ from runner.data.stats import (
 def test_mean_ci_worked_example() -> None:
     """x = [2, 4, 4, 5, 7, 8] gives mean 5 and 95% interval (2.70080, 7.29920).
 
-    Source: scipy.stats.t.interval(0.95, 5, loc=5, scale=sem) (shared/reference-checks.md).
+    Source: scipy.stats.t.interval(0.95, 5, loc=5, scale=sem).
     """
     mean, low, high = mean_ci([2, 4, 4, 5, 7, 8])
     assert mean == pytest.approx(5.0)
@@ -140,7 +140,7 @@ def _one_factor_r(loadings: np.ndarray) -> np.ndarray:
 def test_paf_recovers_exact_one_factor_loadings() -> None:
     """R = l l^T with unit diagonal and l = (0.8, 0.7, 0.6, 0.5) gives back l and h = l^2.
 
-    Source: the standard iterated principal axis factoring algorithm (shared/reference-checks.md);
+    Source: the standard iterated principal axis factoring algorithm;
     an exact one-factor matrix is its fixed point. factor_analyzer is not a valid reference.
     """
     result = principal_axis_factoring(_one_factor_r(L_TRUE), 1, tol=1e-13, max_iter=10_000)

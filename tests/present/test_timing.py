@@ -141,7 +141,7 @@ def test_too_few_flips_refused():
 def test_requested_durations_become_whole_frames(ms, hz, speed, frames):
     """Durations are rounded to the nearest whole number of refresh frames.
 
-    Source: design.md timing model: an onset can only happen at a refresh (16.7 ms steps at
+    Source: common practice (no published source): an onset can only happen at a refresh (16.7 ms steps at
     60 Hz, 4.2 ms at 240 Hz); the expected counts are ms / 1000 * hz, rounded.
     """
     assert frames_for(ms, 1.0 / hz, speed) == frames

@@ -75,7 +75,7 @@ def test_missing_expected_count_is_a_warning_naming_the_row(tmp_path: Path) -> N
 def test_stimulus_luminance_matches_wcag_check_value(tmp_path: Path) -> None:
     """A solid #777777 stimulus has mean relative luminance 0.184475.
 
-    Source: WCAG 2.2 relative luminance; check value for #777777 from reference-checks.
+    Source: WCAG 2.2 relative luminance; check value for #777777 (0.184475) computed from its formula.
     """
     report = check_protocol(write_protocol(tmp_path, colour=(0x77, 0x77, 0x77)))
     values = [v for k, v in report.luminance.items() if k.startswith("stimulus:")]

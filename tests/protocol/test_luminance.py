@@ -58,12 +58,23 @@ def test_srgb_to_linear_is_vectorised_and_follows_both_branches() -> None:
 
 
 def test_relative_luminance_of_array_matches_scalars() -> None:
-    """An (h, w, 3) array gives the per-pixel luminance of each colour."""
+    """An (h, w, 3) array gives the per-pixel luminance of each colour.
+
+    Source: WCAG 2.2 definition of relative luminance, applied per pixel with plain Python floats.
+    """
     rng = np.random.default_rng(3)
     pixels = rng.integers(0, 256, size=(4, 5, 3))
     got = relative_luminance(pixels)
     assert got.shape == (4, 5)
     assert got[2, 3] == pytest.approx(relative_luminance(tuple(int(v) for v in pixels[2, 3])))
+
+    def wcag(c8: int) -> float:
+        c = c8 / 255
+        return c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4
+
+    for y, x in ((0, 0), (3, 4), (1, 2)):
+        r, g, b = (int(v) for v in pixels[y, x])
+        assert got[y, x] == pytest.approx(0.2126 * wcag(r) + 0.7152 * wcag(g) + 0.0722 * wcag(b))
 
 
 @pytest.mark.parametrize("text", ["#808080", "#abc", "#A0b1C2", " #123456 "])

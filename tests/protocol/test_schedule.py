@@ -49,11 +49,25 @@ def test_seed_follows_protocol_content(tmp_path):
 
 
 def test_block_order_follows_latin_square_rows():
-    """Participants 1 and 2 get the two rows of the 2-level balanced Latin square (levels in order)."""
+    """Participants 1, 2, 3, 4 get the rows AB, BA, AB, BA of the two-condition balanced Latin
+    square, with the levels in sorted order (A = dense, B = sparse), and every trial of a block
+    has that block's level.
+
+    Source: Williams (1949) balanced Latin square for two conditions (rows AB and BA), from memory.
+    """
     loaded = load_protocol(MINI_PROTOCOL)
-    first = [t.block for t in build_schedule(loaded, "P01", "1").trials if t.part == "main"]
-    second = [t.block for t in build_schedule(loaded, "P02", "1").trials if t.part == "main"]
-    assert first[0] == "dense" and second[0] == "sparse"
+    expected = {
+        "P01": ["dense", "sparse"],
+        "P02": ["sparse", "dense"],
+        "P03": ["dense", "sparse"],
+        "P04": ["sparse", "dense"],
+    }
+    for label, order in expected.items():
+        main = [t for t in build_schedule(loaded, label, "1").trials if t.part == "main"]
+        blocks = [t.block for t in main]
+        seen = [b for i, b in enumerate(blocks) if i == 0 or blocks[i - 1] != b]
+        assert seen == order
+        assert all(t.values["density"] == t.block for t in main)
     assert participant_index("P01") == 0 and participant_index("P12") == 11
 
 

@@ -84,3 +84,50 @@ def test_interrupted_run_result_reports_completed_count(tmp_path):
     assert result.status == "completed" and result.trials_done == result.trials_total == 5
     read = read_journal(result.journal)
     assert read.records[-1]["event"] == "session_end" and read.records[-1]["status"] == "completed"
+
+
+def test_stop_signal_ends_the_session_cleanly(tmp_path):
+    """SIGTERM (SDL turns it into a window-close event) ends a pilot as an abort without asking:
+    exit 1, a closed journal whose last line is session_end 'aborted', and a trials.csv."""
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    from conftest import REPO
+
+    out = tmp_path / "out"
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "runner",
+            "pilot",
+            str(MINI_PROTOCOL),
+            "--participant",
+            "P01",
+            "--out",
+            str(out),
+            "--speed",
+            "2",
+        ],
+        cwd=REPO,
+        env=dict(os.environ),
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+    )
+    journal = out / "mini-test" / "sub-P01" / "ses-1" / "journal.jsonl"
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and not (
+        journal.exists() and b"fixation_onset" in journal.read_bytes()
+    ):
+        time.sleep(0.1)
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 1, err
+    assert b"Traceback" not in err
+    read = read_journal(journal)
+    assert not read.chain_errors and not read.torn_tail
+    assert read.records[-1]["event"] == "session_end" and read.records[-1]["status"] == "aborted"
+    assert (journal.parent / "trials.csv").exists()
