@@ -256,8 +256,10 @@ def _seconds(text: str) -> float:
         value = float(text)
     except ValueError:
         raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
-    if not 1 <= value <= 3600:
-        raise argparse.ArgumentTypeError(f"expected 1 to 3600 seconds, got {text!r}")
+    if not 0 < value <= 3600:
+        raise argparse.ArgumentTypeError(
+            f"expected more than 0 and at most 3600 seconds, got {text!r}"
+        )
     return value
 
 

@@ -12,7 +12,7 @@ import os
 import sys
 from pathlib import Path
 
-from runner.errors import EXIT_OK, EXIT_PROBLEMS, UsageError
+from runner.errors import EXIT_OK, EXIT_PROBLEMS, InputFileError, UsageError
 from runner.qa.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
 
 
@@ -155,6 +155,14 @@ def run_replay(args: argparse.Namespace) -> int:
     int
         The exit code (0, or 1 when stopped early with Escape).
     """
+    session = Path(args.session)
+    if not (session / "journal.jsonl").is_file():
+        raise InputFileError(
+            f"{session} is not a session folder (it has no journal.jsonl); name the"
+            " sub-<participant>/ses-<session> folder of the session to replay."
+        )
+    if args.stimuli is not None and not Path(args.stimuli).is_dir():
+        raise InputFileError(f"the stimuli folder {args.stimuli} does not exist.")
     frames = Path(args.frames) if args.frames else None
     show = _has_display()
     if not show and frames is None:
