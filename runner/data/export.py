@@ -47,7 +47,7 @@ from runner.session.journal import (
     JournalRead,
     read_journal,
 )
-from runner.session.records import CONTRACT_COLUMNS, EXTRA_COLUMNS, PILOT_COLUMNS
+from runner.session.records import CONTRACT_COLUMNS, EXTRA_COLUMNS, PILOT_COLUMNS, csv_cell
 
 __all__ = [
     "BIDS_COLUMNS",
@@ -621,19 +621,6 @@ def pooled_rows(sessions: Sequence[ExportSession]) -> tuple[list[str], list[list
     return cols, rows
 
 
-def _csv_cell(value: Any, column: str) -> str:
-    # The same formatting as the per-session trials.csv, so the two tables agree cell by cell.
-    if value is None:
-        return ""
-    if column == "onset_lsl":
-        return f"{float(value):.9f}"
-    if isinstance(value, bool):
-        return str(int(value))
-    if isinstance(value, float):
-        return f"{value:.3f}" if column.endswith("_ms") else repr(value)
-    return str(value)
-
-
 def write_pooled_trials(sessions: Sequence[ExportSession], path: str | Path) -> Path:
     """Write the pooled ``trials.csv`` (empty cell = none, as in the per-session table).
 
@@ -651,7 +638,7 @@ def write_pooled_trials(sessions: Sequence[ExportSession], path: str | Path) -> 
             writer = csv.writer(fh, lineterminator="\n")
             writer.writerow(cols)
             writer.writerows(
-                [_csv_cell(v, c) for v, c in zip(row, cols, strict=True)] for row in rows
+                [csv_cell(v, c) for v, c in zip(row, cols, strict=True)] for row in rows
             )
         os.replace(tmp, path)
     except OSError as exc:

@@ -28,6 +28,7 @@ import pandas as pd
 from runner.data import plots, report
 from runner.data.stats import DifficultyResult, difficulty_scores, mean_ci
 from runner.errors import InputFileError, StorageError
+from runner.session.records import CONTRACT_COLUMNS
 
 OUTCOMES = ("correct", "wrong", "unsure", "unanswered")
 UNSCORED = "unscored"
@@ -40,24 +41,8 @@ MAIN_PART = "main"
 FLOOR_SHARE = 0.05
 CEILING_SHARE = 0.95
 
-TRIAL_COLUMNS = (
-    "participant",
-    "session",
-    "block",
-    "trial",
-    "stimulus",
-    "expected",
-    "answer",
-    "unsure",
-    "correct",
-    "rating",
-    "rt_ms",
-    "onset_lsl",
-    "part",
-    "outcome",
-    "rating_rt_ms",
-    "timed_out",
-)
+# The trials.csv columns the summary reads (see runner.session.records).
+TRIAL_COLUMNS = (*CONTRACT_COLUMNS, "part", "outcome", "rating_rt_ms", "timed_out")
 REQUIRED_FOR_SUMMARY = ("participant", "session", "stimulus", "outcome", "rt_ms", "rating", "part")
 SESSION_COLUMNS = ("participant", "session", "started_wall", "duration_s", "n_trials", "aborted")
 PILOT_COLUMN = "sim_rt_ms"

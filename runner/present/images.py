@@ -16,7 +16,6 @@ from __future__ import annotations
 import time
 from collections import OrderedDict
 from concurrent.futures import Future, ThreadPoolExecutor
-from pathlib import Path
 
 import pygame
 from PIL import Image
@@ -189,7 +188,3 @@ class ImageCache:
             self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
         self._pending.clear()
-
-    @staticmethod
-    def exists(path: str) -> bool:
-        return Path(path).is_file()

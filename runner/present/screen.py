@@ -116,6 +116,7 @@ class Display:
         pygame.event.set_blocked(None)
         pygame.event.set_allowed([pygame.KEYDOWN, pygame.QUIT, pygame.MOUSEBUTTONDOWN])
         self.mouse_ratings = False  # show the pointer on rating screens (protocol rating.input)
+        self._pointer = False
         box = pygame.Rect(0, 0, *stimulus_box)
         box.center = (self.size[0] // 2, self.size[1] // 2)
         self.stimulus_rect = box
@@ -178,7 +179,10 @@ class Display:
     def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
         self._save_pending()
         self.painter.draw(self.surface, view, photodiode=photodiode)
-        pygame.mouse.set_visible(self.mouse_ratings and isinstance(view, RatingView))
+        pointer = self.mouse_ratings and isinstance(view, RatingView)
+        if pointer != self._pointer:
+            pygame.mouse.set_visible(pointer)
+            self._pointer = pointer
         self._current = view
         t = self._flip(at)
         if self.frames_dir is not None and view != self._last_saved:

@@ -370,7 +370,7 @@ class _Checker:
             what = (
                 "practice feedback cannot say whether the answer was right"
                 if t.feedback
-                else "this trial is not scored"
+                else "its trials go unscored"
             )
             found.append(
                 (

@@ -47,10 +47,6 @@ class LoadedProtocol:
     pages: dict[int, str] = field(default_factory=dict)
     warnings: list[Problem] = field(default_factory=list)
 
-    @property
-    def folder(self) -> Path:
-        return self.path.parent
-
     def stimulus_path(self, row: TrialRow) -> Path:
         return self.table.stimulus_path(row)
 

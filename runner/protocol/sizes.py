@@ -43,11 +43,3 @@ def stimulus_box(model: Protocol) -> tuple[int, int]:
         return min(deg(size.width_deg), sw), sh
     assert size.height_deg is not None
     return sw, min(deg(size.height_deg), sh)
-
-
-def requested_px(model: Protocol) -> tuple[int | None, int | None]:
-    """The requested (width, height) in pixels; one of them is None."""
-    w, h = stimulus_box(model)
-    size = model.stimulus_size
-    wide = any(v is not None for v in (size.width_px, size.width_cm, size.width_deg))
-    return (w, None) if wide else (None, h)

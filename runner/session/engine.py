@@ -654,7 +654,7 @@ class Engine:
         model = self.model
         ans = model.answer
         interval = self.view.interval
-        path = str(self.loaded.table.stimulus_path(self.loaded.table.rows[trial.row - 1]))
+        path = str(stimulus_abspath(self.loaded, trial))
         self._interrupted = False
         self.state.current_trial = trial.trial
         self._trial_t0 = self.clock()

@@ -61,7 +61,8 @@ def trial_records(read: JournalRead) -> list[dict[str, Any]]:
     return [by_trial[k] for k in sorted(by_trial)]
 
 
-def _cell(value: Any, column: str) -> str:
+def csv_cell(value: Any, column: str) -> str:
+    """One trials.csv cell: empty for none, onset_lsl with 9 decimals, ms with 3, flags as 0/1."""
     if value is None:
         return ""
     if column == "onset_lsl":
@@ -91,7 +92,7 @@ def write_trials_csv(read: JournalRead, folder: Path) -> Path:
         writer.writerow(columns)
         for row in trial_records(read):
             values = row.get("values") or {}
-            writer.writerow([_cell(row.get(c, values.get(c)), c) for c in columns])
+            writer.writerow([csv_cell(row.get(c, values.get(c)), c) for c in columns])
         fh.flush()
         os.fsync(fh.fileno())
     os.replace(tmp, path)

@@ -125,8 +125,6 @@ def _header(
     outlet: MarkerOutlet,
     hashes: dict[str, str],
 ) -> dict[str, Any]:
-    import pandas  # noqa: F401  (only to record its version)
-
     model = loaded.model
     now_lsl = local_clock()
     return {
