@@ -8,10 +8,12 @@ time), because an unstamped sample would carry the push time instead.
 
 from __future__ import annotations
 
+import os
 import re
 import socket
 import time
 from dataclasses import dataclass
+from pathlib import Path
 
 import pylsl
 
@@ -20,6 +22,59 @@ from runner.errors import RecorderError
 
 MARKER_TYPE = "Markers"
 CONSUMER_POLL_S = 0.05
+# liblsl logs INFO lines to stderr by default. Its ``[log] level`` follows its logging library's
+# verbosity scale (0 info, -1 warning, -2 error, -3 fatal; from liblsl's sample lsl_api.cfg, from
+# memory): -2 keeps only liblsl's errors, so trialdeck's own lines are what the experimenter reads.
+QUIET_LOG_LEVEL = -2
+
+
+def lsl_config_file() -> Path | None:
+    """The configuration file liblsl would read, in liblsl's own search order, or None.
+
+    liblsl looks at the file named by ``LSLAPICFG``, then ``lsl_api.cfg`` in the working folder,
+    then ``~/lsl_api/lsl_api.cfg``, then ``/etc/lsl_api/lsl_api.cfg``.
+    """
+    named = os.environ.get("LSLAPICFG")
+    candidates = [Path(named)] if named else []
+    candidates += [
+        Path("lsl_api.cfg"),
+        Path.home() / "lsl_api" / "lsl_api.cfg",
+        Path("/etc/lsl_api/lsl_api.cfg"),
+    ]
+    for path in candidates:
+        if path.is_file():
+            return path
+    return None
+
+
+def quiet_config(text: str) -> str:
+    """``text`` (a liblsl configuration) with a quiet ``[log] level`` unless it sets one itself."""
+    section = ""
+    for raw in text.splitlines():
+        line = raw.strip()
+        if line.startswith("[") and line.endswith("]"):
+            section = line[1:-1].strip().lower()
+        elif section == "log" and line.split("=", 1)[0].strip().lower() == "level":
+            return text
+    joiner = "" if not text or text.endswith("\n") else "\n"
+    return f"{text}{joiner}[log]\nlevel = {QUIET_LOG_LEVEL}\n"
+
+
+def _quiet_liblsl() -> None:
+    """Keep liblsl's INFO lines off the experimenter's terminal, keeping the lab's own settings.
+
+    liblsl reads its configuration once, at first use: the lab's file (if any) is read here and
+    passed on as content with a quiet log level added, so stream discovery settings still apply.
+    """
+    path = lsl_config_file()
+    try:
+        text = path.read_text(encoding="utf-8") if path else ""
+    except (OSError, UnicodeDecodeError):
+        return  # liblsl will read (and report on) the file itself
+    pylsl.set_config_content(quiet_config(text))
+
+
+_quiet_liblsl()
 
 
 def local_clock() -> float:
