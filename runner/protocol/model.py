@@ -26,7 +26,18 @@ STUDY_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9-]{0,62}$")
 KEY_NAMES = frozenset(
     list("abcdefghijklmnopqrstuvwxyz") + ["space", "return", "tab", "period", "comma", "slash"]
 )
+# Keys the answer screen itself uses (digits type, Backspace corrects, Return confirms); the unsure
+# key must differ from all of them. Escape always asks to end the session.
+ANSWER_SCREEN_KEYS = frozenset({"return", "backspace", *"0123456789"})
+KEY_HELP = "expected a letter a-z or one of space, return, tab, period, comma, slash"
 MAX_SCREEN_PX = 16384
+
+
+def check_key(v: str) -> str:
+    """A key name a participant can press (see KEY_NAMES); Escape is kept for ending sessions."""
+    if v not in KEY_NAMES:
+        raise ValueError(f"{KEY_HELP}, not {v!r}")
+    return v
 
 
 class Strict(BaseModel):
@@ -146,9 +157,15 @@ class Answer(Strict):
     @field_validator("unsure_key", "decision_key")
     @classmethod
     def _key(cls, v: str) -> str:
-        if v not in KEY_NAMES:
+        return check_key(v)
+
+    @field_validator("unsure_key")
+    @classmethod
+    def _unsure_free(cls, v: str) -> str:
+        if v in ANSWER_SCREEN_KEYS:
             raise ValueError(
-                "expected a letter a-z or one of space, return, tab, period, comma, slash"
+                f"{v!r} is already used on the answer screen (digits type the count, Backspace"
+                " corrects, Return confirms); choose another key for 'unsure', such as 'u'"
             )
         return v
 
@@ -203,6 +220,11 @@ class PageSpec(Strict):
         None, description="A text or simple Markdown file, relative to the protocol."
     )
     key: str = Field("space", description="Key that moves on from the page.")
+
+    @field_validator("key")
+    @classmethod
+    def _key(cls, v: str) -> str:
+        return check_key(v)
 
     @model_validator(mode="after")
     def _one(self) -> PageSpec:
@@ -298,11 +320,16 @@ class Breaks(Strict):
     every_trials: int | None = Field(None, ge=1, le=100000)
     every_minutes: float | None = Field(None, gt=0, le=600)
     min_s: float = Field(15, ge=0, le=3600)
-    key: str = "space"
+    key: str = Field("space", description="Key that ends a break once min_s have passed.")
     text: str = Field(
         "Time for a short break. Rest your eyes; the next part starts when you are ready.",
         max_length=2000,
     )
+
+    @field_validator("key")
+    @classmethod
+    def _key(cls, v: str) -> str:
+        return check_key(v)
 
 
 class Checks(Strict):
