@@ -420,7 +420,7 @@ class Protocol(Strict):
     @field_validator("study")
     @classmethod
     def _study(cls, v: str) -> str:
-        if not STUDY_RE.match(v):
+        if not STUDY_RE.fullmatch(v):
             raise ValueError(
                 "expected letters, digits and hyphens (at most 63), starting with a letter or digit"
             )

@@ -26,7 +26,7 @@ SCHEDULE_VERSION = 1
 
 def check_label(value: str, what: str) -> str:
     """Refuse participant and session labels that are not letters and digits (BIDS label rule)."""
-    if not LABEL_RE.match(value or ""):
+    if not LABEL_RE.fullmatch(value or ""):
         raise UsageError(
             f"the {what} label {value!r} must be 1 to 64 letters and digits only (no spaces, dashes"
             f" or underscores), because it becomes the BIDS label {'sub' if what == 'participant' else 'ses'}-<label>."

@@ -86,3 +86,18 @@ def test_bad_labels_are_refused(label):
     """Participant labels other than 1-64 letters and digits are refused (BIDS label rule)."""
     with pytest.raises(UsageError, match="letters and digits"):
         build_schedule(load_protocol(MINI_PROTOCOL), label, "1")
+
+
+@pytest.mark.parametrize("label", ["P01\n", "P01 ", "\nP01", "P-01", ""])
+def test_labels_with_a_trailing_newline_or_other_characters_are_refused(label):
+    """A participant label ending in a newline is refused like any other non-alphanumeric label.
+
+    Source: BIDS specification, "Entities": labels are alphanumeric; Python's re docs: ``$`` also
+    matches before a final newline, so the whole string must match.
+    """
+    from runner.errors import UsageError
+    from runner.protocol.schedule import check_label
+
+    with pytest.raises(UsageError):
+        check_label(label, "participant")
+    assert check_label("P01", "participant") == "P01"
