@@ -488,7 +488,7 @@ def build(
 
     Writes ``out/images/NAME.png`` (and ``.svg``), ``out/graphml/NAME.graphml`` and
     ``out/manifest.csv``, whose ``stimulus`` paths are relative to the manifest. The caller
-    decides whether ``out`` may be written (see :mod:`runner.graphs.command`).
+    decides whether ``out`` may be written (see :func:`prepare_output`).
 
     Parameters
     ----------
@@ -520,3 +520,49 @@ def build(
             progress(i, len(cells), cell.name)
     write_manifest(rows, out / MANIFEST)
     return rows
+
+
+# Files the kit writes; --force removes only these, so a spec kept in the folder survives.
+OWN_PATTERNS = ((IMAGES_DIR, "*.png"), (IMAGES_DIR, "*.svg"), (GRAPHML_DIR, "*.graphml"))
+
+
+def _own_files(out: Path) -> list[Path]:
+    found = [out / MANIFEST] if (out / MANIFEST).exists() else []
+    for folder, pattern in OWN_PATTERNS:
+        found += sorted((out / folder).glob(pattern))
+    return found
+
+
+def prepare_output(out: Path, spec_path: Path, *, force: bool) -> None:
+    """Refuse a non-empty output folder unless ``force``; with it, remove earlier kit output.
+
+    The spec file itself may live in the output folder (as the demo's does); it is never
+    counted as existing output and never removed.
+
+    Parameters
+    ----------
+    out : pathlib.Path
+        Output folder.
+    spec_path : pathlib.Path
+        The spec being built.
+    force : bool
+        Whether earlier output may be replaced.
+    """
+    if not out.exists():
+        return
+    if not out.is_dir():
+        raise StorageError(f"The output path {out} is a file, not a folder; choose a folder.")
+    spec_resolved = spec_path.resolve()
+    others = [p for p in out.iterdir() if p.resolve() != spec_resolved]
+    if not others:
+        return
+    if not force:
+        raise StorageError(
+            f"The output folder {out} is not empty; choose a new folder, or add --force to "
+            "replace the images, GraphML files and manifest made there before."
+        )
+    try:
+        for p in _own_files(out):
+            p.unlink()
+    except OSError as exc:
+        raise StorageError(f"Cannot remove the earlier output in {out}: {exc}.") from exc

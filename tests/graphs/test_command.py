@@ -10,9 +10,9 @@ import networkx as nx
 import pytest
 from PIL import Image
 
+from runner.cli.stimuli import add_arguments, run
 from runner.errors import InputFileError, ProtocolError, StorageError
 from runner.graphs.build import MANIFEST_COLUMNS
-from runner.graphs.command import add_arguments, run
 
 SPEC = """\
 seed: 5
