@@ -24,21 +24,23 @@ def _bad_copy(tmp_path, old: str, new: str):
 
 
 @pytest.mark.parametrize(
-    "old, new, line, fragment",
+    "old, new, line, problem_code",
     [
-        ("refresh_hz: 60", "refresh_hz: sixty", 3, "screen.refresh_hz"),
-        ("gap_ms: 300", "gap_msec: 300", 9, "did you mean 'gap_ms'"),
-        ("points: 9", "points: 14", 8, "rating.points"),
-        ("table: table.csv", "table: missing.csv", 6, "does not exist"),
-        ("by: density", "by: colour", 14, "not a column of the trial table"),
-        ("study: mini-test", "study: mini test", 2, "study"),
-        ("unsure_key: u", "unsure_key: F1", 7, "unsure_key"),
+        ("refresh_hz: 60", "refresh_hz: sixty", 3, "bad-type"),
+        ("gap_ms: 300", "gap_msec: 300", 9, "unknown-field"),
+        ("points: 9", "points: 14", 8, "out-of-range"),
+        ("table: table.csv", "table: missing.csv", 6, "missing-file"),
+        ("by: density", "by: colour", 14, "unknown-column"),
+        ("study: mini-test", "study: mini test", 2, "bad-value"),
+        ("unsure_key: u", "unsure_key: F1", 7, "bad-value"),
     ],
 )
 def test_invalid_protocol_refuses_everywhere_and_creates_nothing(
-    tmp_path, capsys, old, new, line, fragment
+    tmp_path, capsys, old, new, line, problem_code
 ):
     """`check` and `pilot` print FILE:LINE:COL: error: lines, exit 1, no traceback, create nothing."""
+    import json
+
     path = _bad_copy(tmp_path, old, new)
     out_dir = tmp_path / "out"
     for argv in (
@@ -52,7 +54,10 @@ def test_invalid_protocol_refuses_everywhere_and_creates_nothing(
         assert "Traceback" not in text
         lines = [ln for ln in text.splitlines() if ": error: " in ln]
         assert lines, text
-        assert any(f":{line}:" in ln and fragment in ln for ln in lines), lines
+        assert any(ln.startswith(f"{path}:{line}:") for ln in lines), lines
+    assert main(["check", str(path), "--json"]) == 1
+    found = json.loads(capsys.readouterr().out)
+    assert (line, problem_code) in [(f["line"], f["code"]) for f in found], found
     assert not out_dir.exists()
 
 

@@ -326,11 +326,13 @@ def make_stimulus(cell: Cell, spec: StimulusSpec) -> Stimulus:
     if best is not None and rule.if_unreadable == "keep_best":
         return best[1]
     if no_pair == rule.attempts:
+        code = "no-target-pair"
         message = (
             f"No target pair in {cell.name} meets the set's pairs rule in {rule.attempts} "
             "attempts; widen pairs.path_links, raise pairs.max_routes or change the strategy."
         )
     else:
+        code = "unreadable-drawing"
         message = (
             f"No readable drawing of {cell.name} was found in {rule.attempts} attempts "
             f"(nodes closer than {rule.min_node_distance:g} px or links passing within "
@@ -338,7 +340,7 @@ def make_stimulus(cell: Cell, spec: StimulusSpec) -> Stimulus:
             "relax the readability limits, raise readability.attempts, or set "
             "readability.if_unreadable: keep_best."
         )
-    raise ProtocolError([Problem("error", spec.file, s.line, s.column, message, s.name)])
+    raise ProtocolError([Problem("error", spec.file, s.line, s.column, message, s.name, code=code)])
 
 
 def write_stimulus(stim: Stimulus, spec: StimulusSpec, out: Path) -> dict[str, object]:
