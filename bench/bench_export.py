@@ -25,12 +25,10 @@ import numpy as np
 REPO = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(REPO))
 
-from runner.data.command import (  # noqa: E402
-    add_export_arguments,
-    add_summary_arguments,
-    run_export,
-    run_summary,
-)
+from runner.cli.export import add_arguments as add_export_arguments  # noqa: E402
+from runner.cli.export import run as run_export  # noqa: E402
+from runner.cli.summary import add_arguments as add_summary_arguments  # noqa: E402
+from runner.cli.summary import run as run_summary  # noqa: E402
 from runner.session.journal import Journal  # noqa: E402
 
 N_SESSIONS = 200

@@ -3,15 +3,83 @@
 Library code raises these; only :mod:`runner.cli` turns them into printed lines and exit codes.
 Each error knows its exit code (0 success, 1 problems found or run refused, 2 usage error) and
 how to show itself as one or more plain lines without a traceback.
+
+Every :class:`Problem` carries a stable ``code`` from :data:`PROBLEM_CODES` (documented in
+docs/problem-codes.md): scripts and tests match on the code, never on the English message.
 """
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
 EXIT_OK = 0
 EXIT_PROBLEMS = 1
 EXIT_USAGE = 2
+
+#: **contract**: every problem code and what it means (docs/problem-codes.md lists the same).
+#: Codes are lower-case words joined by hyphens; a code is never reused for another meaning.
+PROBLEM_CODES: dict[str, str] = {
+    # The file itself and its YAML.
+    "missing-file": "a file named by the protocol (or on the command line) does not exist",
+    "unreadable-file": "a file exists but cannot be read, or is not text of the expected kind",
+    "file-too-large": "a file is larger than trialdeck reads",
+    "empty-file": "a file holds nothing to read",
+    "not-utf8": "a file is not UTF-8 text",
+    "bad-character": "a file contains a character that YAML does not allow",
+    "yaml-syntax": "the text is not valid YAML",
+    "yaml-tab": "a tab is used where YAML allows only spaces",
+    "yaml-alias": "a YAML alias (*name) is used; values must be written out",
+    "yaml-anchor": "a YAML anchor (&name) is used; values must be written out",
+    "yaml-merge-key": "a YAML merge key (<<) is used; settings must be written out",
+    "yaml-tag": "a YAML tag (!!type) is used, or a tagged value does not fit its tag",
+    "too-deep": "settings are nested deeper than any protocol needs",
+    "not-a-mapping": "a place that needs 'key: value' settings holds something else",
+    "bad-key": "a key is not a plain, non-empty name",
+    "duplicate-key": "the same key appears twice in one mapping",
+    # Settings against the schema.
+    "unknown-field": "a setting that does not exist here (often a typo; a suggestion follows)",
+    "missing-field": "a required setting is absent",
+    "bad-type": "a value has the wrong type (text where a number is needed, ...)",
+    "bad-choice": "a value is not one of the allowed words",
+    "out-of-range": "a number lies outside its allowed range",
+    "bad-length": "a list or text is too short or too long",
+    "bad-pattern": "a text does not have the required form",
+    "unknown-kind": "a list item names a kind of step or item that does not exist",
+    "bad-value": "a value breaks a rule of its setting or contradicts another setting",
+    # Settings against the trial table and the files they name.
+    "outside-folder": "a file named by the protocol lies outside the protocol's folder",
+    "unknown-column": "a setting names a column the trial table does not have",
+    "no-matching-rows": "a 'where' selection matches no row of the trial table",
+    "bad-levels": "block levels are missing or do not list each level of the factor once",
+    "answer-above-max": "a row's expected count is above answer.max",
+    "control-character": "a stimulus path contains a control character",
+    "impossible-order": "no trial order meets the ordering constraints",
+    "unknown-event": "a trigger code is given for a name that is not a marker event",
+    # The trial table.
+    "bad-csv": "the trial table is not valid CSV",
+    "unnamed-column": "a header column has no name",
+    "duplicate-column": "a header names a column twice",
+    "reserved-column": "a header uses a column name that trialdeck writes itself",
+    "missing-column": "the header lacks a required column (stimulus, expected)",
+    "row-length": "a row has a different number of fields than the header",
+    "empty-stimulus": "a row's stimulus field is empty",
+    "bad-expected": "a row's expected count is not a whole number of 0 or more",
+    "too-many-rows": "the trial table has more rows than trialdeck reads",
+    "no-rows": "the trial table has a header but no rows",
+    # What `trialdeck check` finds beyond loading.
+    "no-expected": "a row used by the session has no expected count, so it goes unscored",
+    "screen-too-small": "the requested stimulus size does not fit on the screen",
+    "undecodable-stimulus": "a stimulus file cannot be decoded as an image",
+    "upscaled-stimulus": "a stimulus is enlarged beyond checks.max_upscale",
+    "shrunk-stimulus": "a stimulus is shown below the requested size",
+    "long-stretch": "trials run longer without a break than checks.max_minutes_without_break",
+    "luminance-spread": "stimulus luminance spreads more than checks.luminance_tolerance",
+    "flashing": "the screen sequence can break the WCAG 2.3.1 three-flash rule",
+    "unbalanced-orders": "the participants do not use each block order equally often",
+    # The stimulus kit.
+    "no-target-pair": "no target pair of a stimulus meets its set's pairs rule",
+    "unreadable-drawing": "no drawing of a stimulus meets the readability limits",
+}
 
 
 @dataclass(frozen=True)
@@ -20,6 +88,8 @@ class Problem:
 
     ``line`` and ``column`` are 1-based; 0 means "the file as a whole".
     ``path`` is the dotted field path inside a protocol (``timing.fixation_ms``) or ``""``.
+    ``code`` is a stable identifier from :data:`PROBLEM_CODES` (``unknown-field``); the
+    printed line does not show it, ``check --json`` does.
     """
 
     severity: str  # "error" or "warning"
@@ -28,12 +98,20 @@ class Problem:
     column: int
     message: str
     path: str = ""
+    code: str = field(default="", kw_only=True)
+
+    def __post_init__(self) -> None:
+        if self.code and self.code not in PROBLEM_CODES:
+            raise ValueError(f"unknown problem code {self.code!r}; add it to PROBLEM_CODES")
 
     def format(self) -> str:
         return f"{self.file}:{self.line}:{self.column}: {self.severity}: {self.message}"
 
     def as_dict(self) -> dict[str, object]:
-        return asdict(self)
+        d = asdict(self)
+        if not self.code:
+            del d["code"]
+        return d
 
 
 class TrialdeckError(Exception):

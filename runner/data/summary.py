@@ -19,6 +19,7 @@ import json
 import math
 import re
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -470,6 +471,83 @@ def write_summary(
             f"Cannot write the summary into {str(out_dir)!r} ({exc.strerror}); check the disk "
             "space and permissions of that folder."
         ) from exc
+
+
+@dataclass(frozen=True)
+class SummaryOutcome:
+    """What :func:`summarise_sessions` read and wrote."""
+
+    sessions: int
+    trials: int
+    factors: list[str]
+    paths: list[Path]
+
+
+def summarise_sessions(
+    session_dirs: Sequence[str | Path],
+    out_dir: Path,
+    *,
+    include_practice: bool = False,
+    title: str = "Pilot summary",
+) -> SummaryOutcome:
+    """Read sessions from their journals and write their summary (see :func:`write_summary`).
+
+    Factors, the rating scale and the block level order come from the frozen protocols.
+
+    Parameters
+    ----------
+    session_dirs : sequence of str or Path
+        Session folders (holding journal.jsonl), or folders above them.
+    out_dir : Path
+        Folder to write into.
+    include_practice : bool, optional
+        Also summarise practice trials.
+    title : str, optional
+        Heading of the report.
+
+    Returns
+    -------
+    SummaryOutcome
+        Counts, the factors summarised by, and every file written (``report.html`` last).
+
+    Raises
+    ------
+    InputFileError
+        The sessions hold no completed trials (or :func:`write_summary` refuses them).
+    StorageError
+        ``out_dir`` cannot be written.
+    """
+    from runner.data.export import (
+        SUMMARY_EVENTS,
+        factor_union,
+        level_orders,
+        load_sessions,
+        pooled_trials,
+        rating_points,
+        sessions_table,
+    )
+
+    sessions = load_sessions(session_dirs, decode=SUMMARY_EVENTS, keep_records=False)
+    trials = pooled_trials(sessions)
+    if trials.empty:
+        raise InputFileError(
+            "the sessions hold no completed trials, so there is nothing to summarise; check "
+            "the session folders."
+        )
+    factors = factor_union(sessions)
+    paths = write_summary(
+        trials,
+        sessions_table(sessions),
+        out_dir,
+        factors=factors,
+        rating_points=rating_points(sessions),
+        include_practice=include_practice,
+        level_order=level_orders(sessions),
+        title=title,
+    )
+    return SummaryOutcome(
+        sessions=len(sessions), trials=len(trials), factors=list(factors), paths=paths
+    )
 
 
 def _write_all(

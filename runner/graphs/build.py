@@ -326,11 +326,13 @@ def make_stimulus(cell: Cell, spec: StimulusSpec) -> Stimulus:
     if best is not None and rule.if_unreadable == "keep_best":
         return best[1]
     if no_pair == rule.attempts:
+        code = "no-target-pair"
         message = (
             f"No target pair in {cell.name} meets the set's pairs rule in {rule.attempts} "
             "attempts; widen pairs.path_links, raise pairs.max_routes or change the strategy."
         )
     else:
+        code = "unreadable-drawing"
         message = (
             f"No readable drawing of {cell.name} was found in {rule.attempts} attempts "
             f"(nodes closer than {rule.min_node_distance:g} px or links passing within "
@@ -338,7 +340,7 @@ def make_stimulus(cell: Cell, spec: StimulusSpec) -> Stimulus:
             "relax the readability limits, raise readability.attempts, or set "
             "readability.if_unreadable: keep_best."
         )
-    raise ProtocolError([Problem("error", spec.file, s.line, s.column, message, s.name)])
+    raise ProtocolError([Problem("error", spec.file, s.line, s.column, message, s.name, code=code)])
 
 
 def write_stimulus(stim: Stimulus, spec: StimulusSpec, out: Path) -> dict[str, object]:
@@ -488,7 +490,7 @@ def build(
 
     Writes ``out/images/NAME.png`` (and ``.svg``), ``out/graphml/NAME.graphml`` and
     ``out/manifest.csv``, whose ``stimulus`` paths are relative to the manifest. The caller
-    decides whether ``out`` may be written (see :mod:`runner.graphs.command`).
+    decides whether ``out`` may be written (see :func:`prepare_output`).
 
     Parameters
     ----------
@@ -520,3 +522,49 @@ def build(
             progress(i, len(cells), cell.name)
     write_manifest(rows, out / MANIFEST)
     return rows
+
+
+# Files the kit writes; --force removes only these, so a spec kept in the folder survives.
+OWN_PATTERNS = ((IMAGES_DIR, "*.png"), (IMAGES_DIR, "*.svg"), (GRAPHML_DIR, "*.graphml"))
+
+
+def _own_files(out: Path) -> list[Path]:
+    found = [out / MANIFEST] if (out / MANIFEST).exists() else []
+    for folder, pattern in OWN_PATTERNS:
+        found += sorted((out / folder).glob(pattern))
+    return found
+
+
+def prepare_output(out: Path, spec_path: Path, *, force: bool) -> None:
+    """Refuse a non-empty output folder unless ``force``; with it, remove earlier kit output.
+
+    The spec file itself may live in the output folder (as the demo's does); it is never
+    counted as existing output and never removed.
+
+    Parameters
+    ----------
+    out : pathlib.Path
+        Output folder.
+    spec_path : pathlib.Path
+        The spec being built.
+    force : bool
+        Whether earlier output may be replaced.
+    """
+    if not out.exists():
+        return
+    if not out.is_dir():
+        raise StorageError(f"The output path {out} is a file, not a folder; choose a folder.")
+    spec_resolved = spec_path.resolve()
+    others = [p for p in out.iterdir() if p.resolve() != spec_resolved]
+    if not others:
+        return
+    if not force:
+        raise StorageError(
+            f"The output folder {out} is not empty; choose a new folder, or add --force to "
+            "replace the images, GraphML files and manifest made there before."
+        )
+    try:
+        for p in _own_files(out):
+            p.unlink()
+    except OSError as exc:
+        raise StorageError(f"Cannot remove the earlier output in {out}: {exc}.") from exc

@@ -92,10 +92,10 @@ class _Reader:
         self.problems: list[Problem] = []
         self._loader = yaml.SafeLoader("")
 
-    def error(self, node: yaml.Node | None, path: str, message: str) -> None:
+    def error(self, node: yaml.Node | None, path: str, message: str, *, code: str) -> None:
         line = node.start_mark.line + 1 if node is not None else 0
         col = node.start_mark.column + 1 if node is not None else 0
-        self.problems.append(Problem("error", self.file, line, col, message, path))
+        self.problems.append(Problem("error", self.file, line, col, message, path, code=code))
 
     def value(self, node: yaml.Node) -> Any:
         return self._loader.construct_object(node, deep=True)
@@ -105,7 +105,9 @@ class _Reader:
     ) -> dict[str, yaml.Node] | None:
         if not isinstance(node, yaml.MappingNode):
             where = path or "the spec"
-            self.error(node, path, f"{where} must be a mapping of keys to values.")
+            self.error(
+                node, path, f"{where} must be a mapping of keys to values.", code="not-a-mapping"
+            )
             return None
         out: dict[str, yaml.Node] = {}
         for key_node, value_node in node.value:
@@ -119,10 +121,16 @@ class _Reader:
                     name,
                     f"Unknown key {key!r} in {path or 'the spec'}; allowed keys are "
                     f"{', '.join(allowed)}.{hint}",
+                    code="unknown-field",
                 )
                 continue
             if key in out:
-                self.error(key_node, name, f"The key {name} is given twice; keep one.")
+                self.error(
+                    key_node,
+                    name,
+                    f"The key {name} is given twice; keep one.",
+                    code="duplicate-key",
+                )
                 continue
             out[key] = value_node
         return out
@@ -140,10 +148,14 @@ class _Reader:
         kind = "a whole number" if integer else "a number"
         ok_type = isinstance(v, int) if integer else isinstance(v, int | float)
         if isinstance(v, bool) or not ok_type:
-            self.error(node, path, f"{path} must be {kind} from {lo} to {hi}, not {v!r}.")
+            self.error(
+                node, path, f"{path} must be {kind} from {lo} to {hi}, not {v!r}.", code="bad-type"
+            )
             return None
         if not lo <= v <= hi:
-            self.error(node, path, f"{path} must lie from {lo} to {hi}, not {v!r}.")
+            self.error(
+                node, path, f"{path} must lie from {lo} to {hi}, not {v!r}.", code="out-of-range"
+            )
             return None
         return int(v) if integer else float(v)
 
@@ -152,14 +164,19 @@ class _Reader:
         if v not in options:
             close = difflib.get_close_matches(str(v), options, n=1)
             hint = f" Did you mean {close[0]!r}?" if close else ""
-            self.error(node, path, f"{path} is {v!r}; use one of {', '.join(options)}.{hint}")
+            self.error(
+                node,
+                path,
+                f"{path} is {v!r}; use one of {', '.join(options)}.{hint}",
+                code="bad-choice",
+            )
             return None
         return str(v)
 
     def flag(self, node: yaml.Node, path: str) -> bool | None:
         v = self.value(node)
         if not isinstance(v, bool):
-            self.error(node, path, f"{path} must be true or false, not {v!r}.")
+            self.error(node, path, f"{path} must be true or false, not {v!r}.", code="bad-type")
             return None
         return v
 
@@ -167,7 +184,10 @@ class _Reader:
         v = self.value(node)
         if not isinstance(v, str) or not COLOUR_RE.match(v):
             self.error(
-                node, path, f"{path} must be a colour written #rrggbb (in quotes), not {v!r}."
+                node,
+                path,
+                f"{path} must be a colour written #rrggbb (in quotes), not {v!r}.",
+                code="bad-pattern",
             )
             return None
         return v.lower()
@@ -180,13 +200,16 @@ class _Reader:
                 path,
                 f"{path} is {v!r}; names go into file names, so use letters, digits and "
                 "hyphens only, starting with a letter or digit.",
+                code="bad-pattern",
             )
             return None
         return v
 
     def sequence(self, node: yaml.Node, path: str) -> list[yaml.Node] | None:
         if not isinstance(node, yaml.SequenceNode):
-            self.error(node, path, f"{path} must be a list, not {self.value(node)!r}.")
+            self.error(
+                node, path, f"{path} must be a list, not {self.value(node)!r}.", code="bad-type"
+            )
             return None
         return list(node.value)
 
@@ -197,7 +220,12 @@ def _canvas(r: _Reader, node: yaml.Node) -> Canvas:
     if "size_px" in m:
         items = r.sequence(m["size_px"], "canvas.size_px")
         if items is not None and len(items) != 2:
-            r.error(m["size_px"], "canvas.size_px", "canvas.size_px must be [width, height].")
+            r.error(
+                m["size_px"],
+                "canvas.size_px",
+                "canvas.size_px must be [width, height].",
+                code="bad-length",
+            )
         elif items is not None:
             w = r.number(items[0], "canvas.size_px[0]", lo=100, hi=MAX_CANVAS_PX, integer=True)
             h = r.number(items[1], "canvas.size_px[1]", lo=100, hi=MAX_CANVAS_PX, integer=True)
@@ -254,6 +282,7 @@ def _style(r: _Reader, node: yaml.Node, background: str) -> Style:
                         "style.target_shapes",
                         "The two targets need different shapes, so they differ for readers "
                         "who cannot tell the colours apart.",
+                        code="bad-value",
                     )
                 else:
                     kw["target_shapes"] = tuple(shapes)
@@ -262,6 +291,7 @@ def _style(r: _Reader, node: yaml.Node, background: str) -> Style:
                 m["target_shapes"],
                 "style.target_shapes",
                 "style.target_shapes must list two shapes.",
+                code="bad-length",
             )
     if "target_colors" in m:
         items = r.sequence(m["target_colors"], "style.target_colors")
@@ -274,6 +304,7 @@ def _style(r: _Reader, node: yaml.Node, background: str) -> Style:
                 m["target_colors"],
                 "style.target_colors",
                 "style.target_colors must list two colours.",
+                code="bad-length",
             )
     return Style(**kw)
 
@@ -328,6 +359,7 @@ def _pairs(r: _Reader, node: yaml.Node, path: str) -> PairRule:
                         m["path_links"],
                         f"{path}.path_links",
                         f"{path}.path_links is [{lo}, {hi}]; give the shorter length first.",
+                        code="bad-value",
                     )
                 else:
                     links = (int(lo), int(hi))
@@ -336,12 +368,14 @@ def _pairs(r: _Reader, node: yaml.Node, path: str) -> PairRule:
                 m["path_links"],
                 f"{path}.path_links",
                 f"{path}.path_links must be [shortest, longest], in links.",
+                code="bad-length",
             )
     elif strategy == "path_length":
         r.error(
             node,
             f"{path}.path_links",
             f"The path_length strategy needs {path}.path_links: [shortest, longest].",
+            code="missing-field",
         )
     max_routes = None
     if "max_routes" in m:
@@ -366,7 +400,12 @@ def _set(r: _Reader, node: yaml.Node, path: str) -> SetSpec | None:
     before = len(r.problems)
     for key in ("name", "family", "sizes", "densities", "pairs"):
         if key not in m:
-            r.error(node, f"{path}.{key}", f"{path} has no {key!r}; every set needs one.")
+            r.error(
+                node,
+                f"{path}.{key}",
+                f"{path} has no {key!r}; every set needs one.",
+                code="missing-field",
+            )
     name = r.name(m["name"], f"{path}.name") if "name" in m else None
     family = r.choice(m["family"], f"{path}.family", FAMILIES) if "family" in m else None
     layout = r.choice(m["layout"], f"{path}.layout", LAYOUTS) if "layout" in m else "stress"
@@ -378,7 +417,10 @@ def _set(r: _Reader, node: yaml.Node, path: str) -> SetSpec | None:
                 sizes.append(int(v))
         if len(set(sizes)) != len(sizes):
             r.error(
-                m["sizes"], f"{path}.sizes", f"{path}.sizes lists a size twice; each size once."
+                m["sizes"],
+                f"{path}.sizes",
+                f"{path}.sizes lists a size twice; each size once.",
+                code="bad-value",
             )
     densities: list[tuple[str, float]] = []
     if "densities" in m:
@@ -388,6 +430,7 @@ def _set(r: _Reader, node: yaml.Node, path: str) -> SetSpec | None:
                 dm,
                 f"{path}.densities",
                 f"{path}.densities must map level names to links per node, e.g. {{sparse: 1.2}}.",
+                code="not-a-mapping",
             )
         else:
             for key_node, value_node in dm.value:
@@ -400,16 +443,22 @@ def _set(r: _Reader, node: yaml.Node, path: str) -> SetSpec | None:
                     try:
                         check_density(n, v)
                     except UsageError as exc:
-                        r.error(value_node, dpath, str(exc))
+                        r.error(value_node, dpath, str(exc), code="out-of-range")
                 if family == "small_world" and v < 1:
                     r.error(
                         value_node,
                         dpath,
                         f"{dpath} is {v}; small-world graphs need at least 1 link per node.",
+                        code="out-of-range",
                     )
                 densities.append((level, v))
             if len({lv for lv, _ in densities}) != len(densities):
-                r.error(dm, f"{path}.densities", f"{path}.densities names a level twice.")
+                r.error(
+                    dm,
+                    f"{path}.densities",
+                    f"{path}.densities names a level twice.",
+                    code="duplicate-key",
+                )
     instances = 1
     if "instances" in m:
         v = r.number(m["instances"], f"{path}.instances", lo=1, hi=MAX_INSTANCES, integer=True)
@@ -466,10 +515,21 @@ def parse_spec(text: str, *, file: str = "<spec>") -> StimulusSpec:
         line, col = (mark.line + 1, mark.column + 1) if mark else (0, 0)
         what = exc.problem or "it is not valid YAML"
         raise ProtocolError(
-            [Problem("error", file, line, col, f"The spec cannot be read as YAML: {what}.")]
+            [
+                Problem(
+                    "error",
+                    file,
+                    line,
+                    col,
+                    f"The spec cannot be read as YAML: {what}.",
+                    code="yaml-syntax",
+                )
+            ]
         ) from exc
     if root is None:
-        raise ProtocolError([Problem("error", file, 0, 0, "The spec file is empty.")])
+        raise ProtocolError(
+            [Problem("error", file, 0, 0, "The spec file is empty.", code="empty-file")]
+        )
     m = r.mapping(root, "", _TOP_KEYS)
     if m is None:
         raise ProtocolError(r.problems)
@@ -482,6 +542,7 @@ def parse_spec(text: str, *, file: str = "<spec>") -> StimulusSpec:
             root,
             "seed",
             "The spec has no 'seed'; add one (any whole number) so the stimuli can be made again.",
+            code="missing-field",
         )
     canvas = _canvas(r, m["canvas"]) if "canvas" in m else Canvas()
     style = (
@@ -500,6 +561,7 @@ def parse_spec(text: str, *, file: str = "<spec>") -> StimulusSpec:
             "count_targets",
             "The spec must say whether the two marked nodes count in the answer: add "
             "'count_targets: false' (count only the nodes between them) or 'count_targets: true'.",
+            code="missing-field",
         )
     formats: list[str] = ["png"]
     if "formats" in m:
@@ -513,14 +575,25 @@ def parse_spec(text: str, *, file: str = "<spec>") -> StimulusSpec:
                     m["formats"],
                     "formats",
                     "formats must include png (the presenter shows PNG files).",
+                    code="bad-value",
                 )
     sets: list[SetSpec] = []
     if "sets" not in m:
-        r.error(root, "sets", "The spec has no 'sets'; list at least one set of stimuli.")
+        r.error(
+            root,
+            "sets",
+            "The spec has no 'sets'; list at least one set of stimuli.",
+            code="missing-field",
+        )
     else:
         items = r.sequence(m["sets"], "sets") or []
         if not items and isinstance(m["sets"], yaml.SequenceNode):
-            r.error(m["sets"], "sets", "sets is empty; list at least one set of stimuli.")
+            r.error(
+                m["sets"],
+                "sets",
+                "sets is empty; list at least one set of stimuli.",
+                code="bad-length",
+            )
         for i, item in enumerate(items):
             s = _set(r, item, f"sets[{i}]")
             if s is not None:
@@ -529,6 +602,7 @@ def parse_spec(text: str, *, file: str = "<spec>") -> StimulusSpec:
                         item,
                         f"sets[{i}].name",
                         f"Two sets are named {s.name!r}; give each set its own name.",
+                        code="bad-value",
                     )
                 sets.append(s)
     if r.problems:

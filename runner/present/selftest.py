@@ -10,21 +10,18 @@ one) and reports, with a plain verdict at the end:
 * the delivery latency of markers to an LSL inlet on this machine (loopback);
 * the decode time of the protocol's stimuli.
 
-Nothing here writes a session. pygame and pylsl are imported only when the test runs.
+Nothing here writes a session or prints: :mod:`runner.cli.selftest` prints the report.
+pygame and pylsl are imported only when the test runs.
 """
 
 from __future__ import annotations
 
-import argparse
-import json
 import os
 import statistics
 import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
-
-from runner.errors import EXIT_OK, EXIT_PROBLEMS
 
 DEFAULT_SECONDS = 10.0
 DEFAULT_RESOLUTION = (1920, 1080)
@@ -248,46 +245,3 @@ def run_selftest(
         if outlet is not None:
             outlet.close()
         display.close()
-
-
-# -- command line ---------------------------------------------------------------------------------
-def _seconds(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
-    if not 0 < value <= 3600:
-        raise argparse.ArgumentTypeError(
-            f"expected more than 0 and at most 3600 seconds, got {text!r}"
-        )
-    return value
-
-
-def add_arguments(p: argparse.ArgumentParser) -> None:
-    """Options of ``trialdeck selftest``."""
-    p.add_argument("protocol", metavar="PROTOCOL", nargs="?", help="the protocol to test for")
-    p.add_argument("--json", action="store_true", help="print the figures as JSON")
-    p.add_argument(
-        "--seconds",
-        type=_seconds,
-        default=DEFAULT_SECONDS,
-        metavar="S",
-        help=f"how long to flip for the late-flip count (default {DEFAULT_SECONDS:g})",
-    )
-    p.add_argument("--windowed", action="store_true", help="a window instead of fullscreen")
-
-
-def run(args: argparse.Namespace) -> int:
-    """Run the self-test; exit 0 when the machine is ready, 1 otherwise."""
-    os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
-    rep = run_selftest(
-        Path(args.protocol) if args.protocol else None,
-        seconds=args.seconds,
-        fullscreen=not args.windowed,
-    )
-    if args.json:
-        print(json.dumps(rep.as_dict(), indent=2))
-    else:
-        for line in rep.lines():
-            print(line)
-    return EXIT_OK if rep.ready else EXIT_PROBLEMS

@@ -275,7 +275,8 @@ def check_protocol(
         report.problems.extend(exc.problems)
         return report
     except TrialdeckError as exc:
-        report.problems.append(Problem("error", display_name(path), 0, 0, str(exc)))
+        code = "unreadable-file" if path.exists() else "missing-file"
+        report.problems.append(Problem("error", display_name(path), 0, 0, str(exc), code=code))
         return report
     report.loaded = loaded
     report.problems.extend(loaded.warnings)
@@ -308,20 +309,29 @@ class _Checker:
         self.shown: dict[Path, _Shown] = {}
 
     # -- output helpers --------------------------------------------------------------------
-    def at(self, loc: tuple[str | int, ...], message: str, severity: str = "warning") -> None:
+    def at(
+        self, loc: tuple[str | int, ...], message: str, severity: str = "warning", *, code: str
+    ) -> None:
         self.report.problems.append(
-            problem_at(self.loaded.doc, self.name, loc, message, severity=severity)
+            problem_at(self.loaded.doc, self.name, loc, message, severity=severity, code=code)
         )
 
-    def rows(self, severity: str, found: list[tuple[int, str]], rest: str) -> None:
+    def rows(self, severity: str, found: list[tuple[int, str]], rest: str, *, code: str) -> None:
         """One line per table row (up to MAX_LISTED), then one line counting the others."""
         for line, message in found[:MAX_LISTED]:
-            self.report.problems.append(Problem(severity, self.table_name, line, 1, message))
+            self.report.problems.append(
+                Problem(severity, self.table_name, line, 1, message, code=code)
+            )
         if len(found) > MAX_LISTED:
             first = found[MAX_LISTED][0]
             self.report.problems.append(
                 Problem(
-                    severity, self.table_name, first, 1, f"{len(found) - MAX_LISTED} more {rest}"
+                    severity,
+                    self.table_name,
+                    first,
+                    1,
+                    f"{len(found) - MAX_LISTED} more {rest}",
+                    code=code,
                 )
             )
 
@@ -379,7 +389,7 @@ class _Checker:
                     " fill in the expected column if it should be scored",
                 )
             )
-        self.rows("warning", found, "rows have no expected count")
+        self.rows("warning", found, "rows have no expected count", code="no-expected")
 
     def stimuli(self) -> bool:
         """Decode every used stimulus and check how it is scaled; False when one cannot be read."""
@@ -392,6 +402,7 @@ class _Checker:
                 ("stimulus_size",),
                 f"the requested {dim} is {want:.0f} px but the screen is only {limit} px"
                 f" {'wide' if dim == 'width' else 'high'}, so stimuli are shown at {limit} px",
+                code="screen-too-small",
             )
         table = self.loaded.table
         errors: list[tuple[int, str]] = []
@@ -450,9 +461,16 @@ class _Checker:
                         f" the screen's {other}",
                     )
                 )
-        self.rows("error", errors, "stimuli cannot be decoded")
-        self.rows("warning", upscaled, "stimuli are enlarged beyond checks.max_upscale")
-        self.rows("warning", held, "stimuli are shown below the requested size")
+        self.rows("error", errors, "stimuli cannot be decoded", code="undecodable-stimulus")
+        self.rows(
+            "warning",
+            upscaled,
+            "stimuli are enlarged beyond checks.max_upscale",
+            code="upscaled-stimulus",
+        )
+        self.rows(
+            "warning", held, "stimuli are shown below the requested size", code="shrunk-stimulus"
+        )
         if self.shown:
             sizes = Counter(s.shown for s in self.shown.values())
             common = ", ".join(f"{w}x{h} px ({n})" for (w, h), n in sizes.most_common(3))
@@ -484,6 +502,7 @@ class _Checker:
                 f" estimate, up to sequence[{est.max_stretch_step}]), more than"
                 f" checks.max_minutes_without_break ({self.model.checks.max_minutes_without_break:g});"
                 f" add breaks.every_trials: {every} or breaks.every_minutes, against fatigue",
+                code="long-stretch",
             )
 
     # -- luminance -------------------------------------------------------------------------
@@ -523,6 +542,7 @@ class _Checker:
                 f" {display_name(low.path)} to {high.luminance:.3f} in {display_name(high.path)}),"
                 f" more than the tolerance {tol:g}; pupil size follows luminance, so match the"
                 " stimuli's brightness or raise checks.luminance_tolerance knowingly",
+                code="luminance-spread",
             )
 
     # -- flashes ---------------------------------------------------------------------------
@@ -569,6 +589,7 @@ class _Checker:
                     ("checks", "acknowledge_flashes"),
                     message + "; acknowledged by checks.acknowledge_flashes (ethics approval)",
                     "warning",
+                    code="flashing",
                 )
             else:
                 self.at(
@@ -576,6 +597,7 @@ class _Checker:
                     message + "; if the local ethics board approved it, set"
                     " checks.acknowledge_flashes: true",
                     "error",
+                    code="flashing",
                 )
         self.fact(
             f"three-flash rule (WCAG 2.3.1, general flashes only; red flashes are not checked):"
@@ -616,6 +638,7 @@ class _Checker:
                         f"with order 'random' the {participants} participants get {len(used)}"
                         f" different orders, used {counts[0]} to {counts[-1]} times each; use"
                         " 'balanced-latin' to use every order equally often",
+                        code="unbalanced-orders",
                     )
                 continue
             rows = 2 * len(written) if len(written) % 2 else len(written)
@@ -628,6 +651,7 @@ class _Checker:
                     f" {counts[-1]} times, some {counts[0]}); plan {more}"
                     + (f" or {fewer}" if fewer else "")
                     + " participants",
+                    code="unbalanced-orders",
                 )
 
 

@@ -113,8 +113,8 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
 
     problems: list[Problem] = []
 
-    def at(loc: tuple[str | int, ...], message: str, severity: str = "error") -> None:
-        problems.append(problem_at(doc, name, loc, message, severity=severity))
+    def at(loc: tuple[str | int, ...], message: str, *, code: str) -> None:
+        problems.append(problem_at(doc, name, loc, message, code=code))
 
     table_path = (path.parent / model.trials.table).resolve()
     table, table_problems = read_trial_table(table_path, display_name=display_name(table_path))
@@ -123,6 +123,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
             at(
                 ("trials", "table"),
                 f"the trial table {model.trials.table!r} does not exist (looked for {table_path})",
+                code="missing-file",
             )
         else:
             problems.extend(table_problems)
@@ -133,7 +134,11 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
 
     def need_column(loc: tuple[str | int, ...], col: str, what: str) -> None:
         if col not in columns:
-            at(loc, f"{what} {col!r} is not a column of the trial table (columns: {known})")
+            at(
+                loc,
+                f"{what} {col!r} is not a column of the trial table (columns: {known})",
+                code="unknown-column",
+            )
 
     for i, factor in enumerate(model.trials.factors):
         need_column(("trials", "factors", i), factor, "factor")
@@ -154,6 +159,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         ("sequence", i, "page", "file"),
                         f"the page file {step.page.file!r} lies outside the protocol's folder;"
                         " set trials.allow_outside: true if that is intended",
+                        code="outside-folder",
                     )
                     continue
                 try:
@@ -165,11 +171,13 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                     at(
                         ("sequence", i, "page", "file"),
                         f"the page file {step.page.file!r} does not exist",
+                        code="missing-file",
                     )
                 except (OSError, ValueError):
                     at(
                         ("sequence", i, "page", "file"),
                         f"the page file {step.page.file!r} is not readable UTF-8 text under 256 kB",
+                        code="unreadable-file",
                     )
             else:
                 pages[i] = step.page.text or ""
@@ -189,6 +197,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 at(
                     ("sequence", i, kind, "where"),
                     f"no row of the trial table matches {dict(spec.where)!r}",
+                    code="no-matching-rows",
                 )
             for col in getattr(spec, "max_run", {}):
                 need_column(("sequence", i, kind, "max_run", col), col, "column")
@@ -198,6 +207,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                     at(
                         ("sequence", i, "blocks", "levels"),
                         "order 'fixed' needs the list of levels in block order",
+                        code="bad-levels",
                     )
                 if step.blocks.by in columns and step.blocks.levels:
                     rows = select_rows(table, spec.where)
@@ -207,6 +217,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         at(
                             ("sequence", i, "blocks", "levels"),
                             f"levels {listed!r} must list each level of {step.blocks.by!r} once: {present!r}",
+                            code="bad-levels",
                         )
 
     for row in table.rows:
@@ -218,6 +229,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                     row.line,
                     1,
                     f"expected count {row.expected} is above answer.max ({model.answer.max})",
+                    code="answer-above-max",
                 )
             )
         if check_stimuli:
@@ -230,6 +242,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         row.line,
                         1,
                         f"stimulus {row.stimulus!r} contains a control character; retype the path",
+                        code="control-character",
                     )
                 )
                 continue
@@ -243,6 +256,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         1,
                         f"stimulus {row.stimulus!r} lies outside the protocol's folder;"
                         " set trials.allow_outside: true if that is intended",
+                        code="outside-folder",
                     )
                 )
             elif not stim.is_file():
@@ -253,6 +267,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         row.line,
                         1,
                         f"stimulus file {row.stimulus!r} does not exist (looked for {stim})",
+                        code="missing-file",
                     )
                 )
     if problems:

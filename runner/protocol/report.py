@@ -89,6 +89,26 @@ _EXPECTED = {
 # Errors about the shape of the whole value, where a field's description is the best phrase.
 _SHAPE_ERRORS = frozenset(_EXPECTED) | {"too_short", "too_long"}
 _PREFIXES = ("Value error, ", "Assertion failed, ")
+# Problem codes (runner.errors.PROBLEM_CODES) of pydantic error types; others are "bad-value".
+_CODES = {
+    **dict.fromkeys(_EXPECTED, "bad-type"),
+    "missing": "missing-field",
+    "missing_one_of": "missing-field",
+    "extra_forbidden": "unknown-field",
+    "union_tag_invalid": "unknown-kind",
+    "literal_error": "bad-choice",
+    "enum": "bad-choice",
+    "greater_than": "out-of-range",
+    "greater_than_equal": "out-of-range",
+    "less_than": "out-of-range",
+    "less_than_equal": "out-of-range",
+    "multiple_of": "out-of-range",
+    "too_short": "bad-length",
+    "too_long": "bad-length",
+    "string_too_short": "bad-length",
+    "string_too_long": "bad-length",
+    "string_pattern_mismatch": "bad-pattern",
+}
 _QUOTED_RE = re.compile(r"'((?:[^'\\]|\\.)*)'")
 _IDENT_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_-]*")
 _PATH_TOKEN_RE = re.compile(r"\[(\d+)\]|\['((?:[^'\\]|\\.)*)'\]|\.?([^.\[\]]+)")
@@ -505,10 +525,11 @@ def _to_problem(
 ) -> Problem:
     path = entry.path
     kind = entry.type
+    code = _CODES.get(kind, "bad-value")
     if kind == "missing_one_of":
         line, col = _mark_of(doc, path, at_key=True)
         message = f"{_label(path)}: expected one of the settings {_quoted_list(entry.alternatives)}"
-        return Problem("error", file, line, col, _one_line(message), format_path(path))
+        return Problem("error", file, line, col, _one_line(message), format_path(path), code=code)
     if kind == "missing":
         parent, name = path[:-1], path[-1]
         line, col = _mark_of(doc, parent, at_key=True)
@@ -517,9 +538,10 @@ def _to_problem(
             want = info.description if info is not None and info.description else "more items"
             got = _echo(_value_at(doc, parent))
             message = f"{_label(parent)}: expected {want}, got {got} (item {name + 1} is missing)"
+            code = "bad-length"
         else:
             message = f"{_label(parent)}: missing required field {name!r}"
-        return Problem("error", file, line, col, _one_line(message), format_path(path))
+        return Problem("error", file, line, col, _one_line(message), format_path(path), code=code)
     if kind == "extra_forbidden":
         parent, name = path[:-1], path[-1]
         line, col = _mark_of(doc, path, at_key=True)
@@ -534,7 +556,7 @@ def _to_problem(
             message += f"{_suggest(name, allowed) or '.'} Allowed here: {_quoted_list(allowed)}."
         else:
             message += "; remove it or check its indentation."
-        return Problem("error", file, line, col, _one_line(message), format_path(path))
+        return Problem("error", file, line, col, _one_line(message), format_path(path), code=code)
     if kind == "union_tag_invalid":
         tag = (entry.error.get("ctx") or {}).get("tag")
         tagged = (*path, tag) if isinstance(tag, str) and (*path, tag) in doc.marks else path
@@ -542,7 +564,7 @@ def _to_problem(
     else:
         line, col = _mark_of(doc, path, at_key=entry.key_error)
     message = f"{_label(path)}: {_detail(entry, model)}"
-    return Problem("error", file, line, col, _one_line(message), format_path(path))
+    return Problem("error", file, line, col, _one_line(message), format_path(path), code=code)
 
 
 def _value_at(doc: YamlDoc, path: Path_) -> object:
@@ -602,6 +624,8 @@ def problem_at(
     path: Sequence[str | int] | str,
     message: str,
     severity: str = "error",
+    *,
+    code: str,
 ) -> Problem:
     """Make a :class:`Problem` for a setting, pointing at it the same way validation does.
 
@@ -621,6 +645,8 @@ def problem_at(
         A plain sentence; it is prefixed with the dotted path.
     severity : str, optional
         ``"error"`` (default) or ``"warning"``.
+    code : str
+        The problem's code, from :data:`runner.errors.PROBLEM_CODES`.
 
     Returns
     -------
@@ -635,7 +661,7 @@ def problem_at(
     line, col = _mark_of(doc, key_path, at_key=at_key)
     label = format_path(key_path)
     text = f"{label}: {message}" if label else message
-    return Problem(severity, file, line, col, _one_line(text), label)
+    return Problem(severity, file, line, col, _one_line(text), label, code=code)
 
 
 __all__ = [

@@ -131,7 +131,11 @@ def _order(
         from runner.protocol.report import problem_at
 
         raise ProtocolError(
-            [problem_at(loaded.doc, display_name(loaded.path), loc, str(exc))]
+            [
+                problem_at(
+                    loaded.doc, display_name(loaded.path), loc, str(exc), code="impossible-order"
+                )
+            ]
         ) from None
     return [rows[i] for i in perm]
 

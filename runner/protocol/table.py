@@ -84,21 +84,35 @@ def read_trial_table(
     name = display_name or str(path)
     problems: list[Problem] = []
 
-    def err(line: int, col: int, msg: str) -> None:
-        problems.append(Problem("error", name, line, col, msg))
+    def err(line: int, col: int, msg: str, *, code: str) -> None:
+        problems.append(Problem("error", name, line, col, msg, code=code))
 
     try:
         raw = path.read_bytes()
     except FileNotFoundError:
-        return None, [Problem("error", name, 0, 0, "the trial table does not exist")]
+        return None, [
+            Problem("error", name, 0, 0, "the trial table does not exist", code="missing-file")
+        ]
     except OSError as exc:
         return None, [
-            Problem("error", name, 0, 0, f"the trial table cannot be read ({exc.strerror})")
+            Problem(
+                "error",
+                name,
+                0,
+                0,
+                f"the trial table cannot be read ({exc.strerror})",
+                code="unreadable-file",
+            )
         ]
     if len(raw) > MAX_TABLE_BYTES:
         return None, [
             Problem(
-                "error", name, 0, 0, f"the trial table is larger than {MAX_TABLE_BYTES // 2**20} MB"
+                "error",
+                name,
+                0,
+                0,
+                f"the trial table is larger than {MAX_TABLE_BYTES // 2**20} MB",
+                code="file-too-large",
             )
         ]
     try:
@@ -106,30 +120,44 @@ def read_trial_table(
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
         col = exc.start - (raw.rfind(b"\n", 0, exc.start) + 1) + 1
-        return None, [Problem("error", name, line, col, "the trial table is not UTF-8 text")]
+        return None, [
+            Problem("error", name, line, col, "the trial table is not UTF-8 text", code="not-utf8")
+        ]
     if not text.strip():
-        return None, [Problem("error", name, 1, 1, "the trial table is empty")]
+        return None, [Problem("error", name, 1, 1, "the trial table is empty", code="empty-file")]
     lines = text.splitlines()
     reader = csv.reader(io.StringIO(text))
     try:
         header = next(reader)
     except csv.Error as exc:
-        return None, [Problem("error", name, 1, 1, f"the header row is not valid CSV ({exc})")]
+        return None, [
+            Problem("error", name, 1, 1, f"the header row is not valid CSV ({exc})", code="bad-csv")
+        ]
     header = [h.strip() for h in header]
     header_cols = _field_columns(lines[0])
     seen: dict[str, int] = {}
     for i, col in enumerate(header):
         c = header_cols[i] if i < len(header_cols) else 1
         if not col:
-            err(1, c, f"column {i + 1} of the header has no name")
+            err(1, c, f"column {i + 1} of the header has no name", code="unnamed-column")
         elif col in seen:
-            err(1, c, f"column {col!r} appears twice in the header")
+            err(1, c, f"column {col!r} appears twice in the header", code="duplicate-column")
         elif col in RESERVED_COLUMNS:
-            err(1, c, f"column {col!r} is a name trialdeck writes itself; rename it")
+            err(
+                1,
+                c,
+                f"column {col!r} is a name trialdeck writes itself; rename it",
+                code="reserved-column",
+            )
         seen.setdefault(col, i)
     for req in REQUIRED_COLUMNS:
         if req not in seen:
-            err(1, 1, f"the header has no {req!r} column (columns: {', '.join(header)})")
+            err(
+                1,
+                1,
+                f"the header has no {req!r} column (columns: {', '.join(header)})",
+                code="missing-column",
+            )
     if problems:
         return None, problems
 
@@ -142,13 +170,23 @@ def read_trial_table(
             line_text = lines[line_no - 1] if line_no - 1 < len(lines) else ""
             cols = _field_columns(line_text)
             if len(record) != len(header):
-                err(line_no, 1, f"row has {len(record)} fields but the header has {len(header)}")
+                err(
+                    line_no,
+                    1,
+                    f"row has {len(record)} fields but the header has {len(header)}",
+                    code="row-length",
+                )
                 continue
             values = {h: v.strip() for h, v in zip(header, record, strict=True)}
             stim = values.pop("stimulus")
             exp_text = values.pop("expected")
             if not stim:
-                err(line_no, cols[seen["stimulus"]], "the stimulus field is empty")
+                err(
+                    line_no,
+                    cols[seen["stimulus"]],
+                    "the stimulus field is empty",
+                    code="empty-stimulus",
+                )
                 continue
             expected: int | None = None
             if exp_text:
@@ -159,6 +197,7 @@ def read_trial_table(
                         line_no,
                         cols[seen["expected"]],
                         f"expected must be a whole number or empty, got {exp_text!r}",
+                        code="bad-expected",
                     )
                     continue
                 if expected < 0:
@@ -166,6 +205,7 @@ def read_trial_table(
                         line_no,
                         cols[seen["expected"]],
                         f"expected must not be negative, got {expected}",
+                        code="bad-expected",
                     )
                     continue
             rows.append(
@@ -174,12 +214,17 @@ def read_trial_table(
                 )
             )
             if len(rows) > MAX_TABLE_ROWS:
-                err(line_no, 1, f"the trial table has more than {MAX_TABLE_ROWS} rows")
+                err(
+                    line_no,
+                    1,
+                    f"the trial table has more than {MAX_TABLE_ROWS} rows",
+                    code="too-many-rows",
+                )
                 break
     except csv.Error as exc:
-        err(reader.line_num, 1, f"not valid CSV ({exc})")
+        err(reader.line_num, 1, f"not valid CSV ({exc})", code="bad-csv")
     if not rows and not problems:
-        err(1, 1, "the trial table has a header but no rows")
+        err(1, 1, "the trial table has a header but no rows", code="no-rows")
     if problems:
         return None, problems
     return TrialTable(path=path, columns=header, rows=rows, raw=raw), problems

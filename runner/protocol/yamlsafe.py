@@ -242,7 +242,9 @@ def read_yaml_text(
         raise ProtocolError([_reader_problem(exc, text, filename)]) from None
     except yaml.YAMLError as exc:
         message = _one_line(f"The file is not valid YAML: {exc}.")
-        raise ProtocolError([Problem("error", filename, 0, 0, message)]) from None
+        raise ProtocolError(
+            [Problem("error", filename, 0, 0, message, code="yaml-syntax")]
+        ) from None
     finally:
         if loader is not None:
             loader.dispose()
@@ -257,6 +259,7 @@ def read_yaml_text(
                     0,
                     "The file is empty or holds only comments; a protocol needs settings "
                     "written as 'key: value' lines, starting with 'study: <name>'.",
+                    code="empty-file",
                 )
             ]
         )
@@ -329,6 +332,7 @@ class _ProtocolLoader(yaml.SafeLoader):
                         event.start_mark,
                         f"Aliases such as '*{_echo_raw(event.anchor)}' are not allowed in a "
                         "protocol; write the value out in full.",
+                        code="yaml-alias",
                     )
                 ]
             )
@@ -341,6 +345,7 @@ class _ProtocolLoader(yaml.SafeLoader):
                         event.start_mark,
                         f"Anchors such as '&{_echo_raw(anchor)}' are not allowed in a protocol; "
                         "remove the anchor and write every value out in full.",
+                        code="yaml-anchor",
                     )
                 ]
             )
@@ -352,6 +357,7 @@ class _ProtocolLoader(yaml.SafeLoader):
                         event.start_mark,
                         f"The settings are nested more than {MAX_DEPTH} levels deep here; "
                         "a protocol never needs that, so check the brackets and indentation.",
+                        code="too-deep",
                     )
                 ]
             )
@@ -372,19 +378,19 @@ class _Builder:
         self.marks: dict[Path_, Mark] = {}
         self.problems: list[Problem] = []
 
-    def _add(self, node: Node, message: str) -> None:
+    def _add(self, node: Node, message: str, *, code: str) -> None:
         line, col = _node_start(node)
-        self.problems.append(Problem("error", self.filename, line, col, message))
+        self.problems.append(Problem("error", self.filename, line, col, message, code=code))
 
     def build(self, node: Node, path: Path_) -> object:
         if isinstance(node, MappingNode):
             if node.tag != _MAP_TAG:
-                self._add(node, _unsupported_tag(node.tag))
+                self._add(node, _unsupported_tag(node.tag), code="yaml-tag")
                 return None
             return self._mapping(node, path)
         if isinstance(node, SequenceNode):
             if node.tag != _SEQ_TAG:
-                self._add(node, _unsupported_tag(node.tag))
+                self._add(node, _unsupported_tag(node.tag), code="yaml-tag")
                 return None
             items: list[object] = []
             for index, item in enumerate(node.value):
@@ -408,6 +414,7 @@ class _Builder:
                     key_node,
                     f"The key {_echo(key)} appears twice in the same mapping (first on line "
                     f"{first_line[key]}); keep only one of them.",
+                    code="duplicate-key",
                 )
                 continue
             first_line[key] = key_line
@@ -418,23 +425,29 @@ class _Builder:
     def _key(self, node: Node) -> str | None:
         if not isinstance(node, ScalarNode):
             kind = "list" if isinstance(node, SequenceNode) else "mapping"
-            self._add(node, f"A key must be a plain name, not a {kind}; write 'name: value'.")
+            self._add(
+                node,
+                f"A key must be a plain name, not a {kind}; write 'name: value'.",
+                code="bad-key",
+            )
             return None
         if node.tag not in (_PLAIN_TAG, _STR_TAG):
             self._add(
                 node,
                 f"The key {_echo(node.value)} carries the YAML tag {_tag_name(node.tag)!r}; keys "
                 "are always names, so remove the tag.",
+                code="yaml-tag",
             )
             return None
         if node.tag == _PLAIN_TAG and node.value == "<<":
             self._add(
                 node,
                 "Merge keys ('<<') are not allowed in a protocol; write the settings out in full.",
+                code="yaml-merge-key",
             )
             return None
         if node.value == "":
-            self._add(node, "A key is empty; write a name before ':'.")
+            self._add(node, "A key is empty; write a name before ':'.", code="bad-key")
             return None
         return str(node.value)
 
@@ -452,7 +465,7 @@ class _Builder:
             _NULL_TAG: (_null_value, "empty (null)"),
         }.get(tag)
         if wanted is None:
-            self._add(node, _unsupported_tag(tag))
+            self._add(node, _unsupported_tag(tag), code="yaml-tag")
             return None
         convert, what = wanted
         value = convert(text)
@@ -461,6 +474,7 @@ class _Builder:
                 node,
                 f"The value {_echo(text)} is tagged {_tag_name(tag)!r} but is not {what}; "
                 "fix the value or remove the tag.",
+                code="yaml-tag",
             )
             return None
         return value
@@ -544,10 +558,11 @@ def _node_start(node: Node) -> tuple[int, int]:
     return node.start_mark.line + 1, node.start_mark.column + 1
 
 
-def _problem_at_mark(filename: str, mark: yaml.Mark | None, message: str) -> Problem:
+def _problem_at_mark(filename: str, mark: yaml.Mark | None, message: str, *, code: str) -> Problem:
     if mark is None:
-        return Problem("error", filename, 0, 0, _one_line(message))
-    return Problem("error", filename, mark.line + 1, mark.column + 1, _one_line(message))
+        return Problem("error", filename, 0, 0, _one_line(message), code=code)
+    line, col = mark.line + 1, mark.column + 1
+    return Problem("error", filename, line, col, _one_line(message), code=code)
 
 
 def _too_big(filename: str, size: int, limit: int) -> Problem:
@@ -558,6 +573,7 @@ def _too_big(filename: str, size: int, limit: int) -> Problem:
         0,
         f"The file is {size} bytes, more than the {limit}-byte limit for a protocol; check "
         "that this is the protocol file and not a data or image file.",
+        code="file-too-large",
     )
 
 
@@ -578,7 +594,7 @@ def _not_a_mapping(filename: str, root: Node, data: object) -> Problem:
             f"The top level of a protocol must be 'key: value' settings, but this file holds "
             f"the single value {_echo(str(data))}."
         )
-    return Problem("error", filename, line, col, message)
+    return Problem("error", filename, line, col, message, code="not-a-mapping")
 
 
 def _char_at(text: str, mark: yaml.Mark) -> str:
@@ -600,6 +616,7 @@ def _syntax_problem(exc: yaml.MarkedYAMLError, text: str, filename: str) -> Prob
             mark,
             f"A tab character is used {where}, where YAML allows only spaces; replace the tab "
             "with spaces.",
+            code="yaml-tab",
         )
     problem = exc.problem or "the text cannot be read"
     ctx = exc.context_mark
@@ -614,7 +631,7 @@ def _syntax_problem(exc: yaml.MarkedYAMLError, text: str, filename: str) -> Prob
         message = f"YAML syntax error: {problem}"
     hint = _SYNTAX_HINTS.get(problem)
     message += f"; {hint}" if hint else "; check the quotes, brackets and indentation here."
-    return _problem_at_mark(filename, mark, message)
+    return _problem_at_mark(filename, mark, message, code="yaml-syntax")
 
 
 # Plainer advice for the errors people make most; the keys are PyYAML's own problem texts.
@@ -639,6 +656,7 @@ def _reader_problem(exc: yaml.reader.ReaderError, text: str, filename: str) -> P
         col,
         f"The file contains the character U+{code:04X}, which YAML does not allow; "
         "delete it (such invisible characters often come from copying text out of another program).",
+        code="bad-character",
     )
 
 
@@ -652,6 +670,7 @@ def _decode(raw: bytes, filename: str) -> str:
                     1,
                     1,
                     "The file is saved as UTF-16; save it again as UTF-8 (plain text).",
+                    code="not-utf8",
                 )
             ]
         )
@@ -672,6 +691,7 @@ def _decode(raw: bytes, filename: str) -> str:
                     f"The byte 0x{bad} here is not UTF-8 text; save the file as UTF-8 "
                     "(some editors call it 'Unicode (UTF-8)') and retype any special "
                     "characters.",
+                    code="not-utf8",
                 )
             ]
         ) from None

@@ -42,6 +42,7 @@ def trigger_map(loaded: LoadedProtocol) -> dict[str, int]:
                     str(loaded.path),
                     ("triggers", "codes", name),
                     f"{name!r} is not a marker event; use one of {', '.join(sorted(MARKED_EVENTS))}",
+                    code="unknown-event",
                 )
             )
     if problems:

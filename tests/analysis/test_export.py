@@ -12,7 +12,10 @@ import matplotlib.image
 import pytest
 from export_pilots import ABORTED, PARTICIPANTS, pilot_root
 
-from runner.data.command import add_export_arguments, add_summary_arguments, run_export, run_summary
+from runner.cli.export import add_arguments as add_export_arguments
+from runner.cli.export import run as run_export
+from runner.cli.summary import add_arguments as add_summary_arguments
+from runner.cli.summary import run as run_summary
 from runner.data.export import (
     EXPORT_EVENTS,
     SUMMARY_EVENTS,

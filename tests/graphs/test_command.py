@@ -10,9 +10,9 @@ import networkx as nx
 import pytest
 from PIL import Image
 
+from runner.cli.stimuli import add_arguments, run
 from runner.errors import InputFileError, ProtocolError, StorageError
 from runner.graphs.build import MANIFEST_COLUMNS
-from runner.graphs.command import add_arguments, run
 
 SPEC = """\
 seed: 5
@@ -191,8 +191,9 @@ def test_impossible_pair_rule_points_at_the_set(tmp_path: Path) -> None:
     )
     with pytest.raises(ProtocolError) as info:
         run(_args(_spec(tmp_path, text=text), tmp_path / "out"))
-    line = info.value.lines()[0]
-    assert line.startswith(f"{tmp_path / 'spec.yaml'}:7:5: error: No target pair")
+    first = info.value.problems[0]
+    assert first.code == "no-target-pair"
+    assert first.format().startswith(f"{tmp_path / 'spec.yaml'}:7:5: error: ")
 
 
 def test_targets_have_room_for_their_markers(built: Path) -> None:

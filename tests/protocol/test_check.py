@@ -16,8 +16,12 @@ from runner.protocol.check import RATING_SHOW_CHOICE_S, check_protocol
 from runner.protocol.latin import williams_rows
 
 
-def _messages(report, severity: str = "warning") -> list[str]:
-    return [p.message for p in report.problems if p.severity == severity]
+def _coded(report, code: str, severity: str | None = None) -> list:
+    return [
+        p
+        for p in report.problems
+        if p.code == code and (severity is None or p.severity == severity)
+    ]
 
 
 def _wcag(rgb: np.ndarray) -> np.ndarray:
@@ -41,6 +45,8 @@ def test_missing_protocol_file_is_one_error(tmp_path: Path, capsys) -> None:
     code = main(["check", str(tmp_path / "nope.yaml")])
     text = "".join(capsys.readouterr())
     assert code == 1 and "nope.yaml" in text and "Traceback" not in text
+    report = check_protocol(tmp_path / "nope.yaml")
+    assert [p.code for p in report.problems] == ["missing-file"]
 
 
 def test_upscaled_stimulus_is_a_warning(tmp_path: Path) -> None:
@@ -51,7 +57,8 @@ def test_upscaled_stimulus_is_a_warning(tmp_path: Path) -> None:
     path = write_protocol(tmp_path, image_size=(100, 50))
     report = check_protocol(path)
     assert not report.has_errors
-    assert any("enlarged 3.00 times to 300x150 px" in m for m in _messages(report))
+    hits = _coded(report, "upscaled-stimulus", "warning")
+    assert len(hits) == 5 and all("3.00 times to 300x150 px" in p.message for p in hits)
 
 
 def test_stimulus_held_below_requested_width_is_a_warning(tmp_path: Path) -> None:
@@ -60,7 +67,8 @@ def test_stimulus_held_below_requested_width_is_a_warning(tmp_path: Path) -> Non
     Source: common practice (no published source); 100x400 scaled by min(300/100, 480/400).
     """
     report = check_protocol(write_protocol(tmp_path, image_size=(100, 400)))
-    assert any("shown 120 px width, not the 300 px" in m for m in _messages(report))
+    hits = _coded(report, "shrunk-stimulus", "warning")
+    assert hits and all("shown 120 px width, not the 300 px" in p.message for p in hits)
 
 
 def test_missing_expected_count_is_a_warning_naming_the_row(tmp_path: Path) -> None:
@@ -68,7 +76,7 @@ def test_missing_expected_count_is_a_warning_naming_the_row(tmp_path: Path) -> N
     rows = [list(r) for r in BASE_ROWS]
     rows[2][1] = ""
     report = check_protocol(write_protocol(tmp_path, rows=[tuple(r) for r in rows]))
-    hits = [p for p in report.problems if "no expected count" in p.message]
+    hits = _coded(report, "no-expected", "warning")
     assert len(hits) == 1 and hits[0].file.endswith("table.csv") and hits[0].line == 4
 
 
@@ -110,8 +118,9 @@ def test_luminance_spread_beyond_tolerance_is_a_warning(tmp_path: Path) -> None:
     path = write_protocol(tmp_path, colour=(0x77, 0x77, 0x77))
     write_image(tmp_path / "img" / "e.png", (200, 100), (255, 255, 255))
     report = check_protocol(path)
-    hits = [p for p in report.problems if "spreads 0.816" in p.message]
+    hits = _coded(report, "luminance-spread", "warning")
     assert len(hits) == 1 and hits[0].path == "checks.luminance_tolerance"
+    assert "spreads 0.816" in hits[0].message
 
 
 FLASHY = merged(
@@ -142,9 +151,9 @@ def test_fast_full_screen_flashing_breaks_the_three_flash_rule(tmp_path: Path, c
     assert RATING_SHOW_CHOICE_S == pytest.approx(9 / 60)
     report = check_protocol(path)
     assert report.flash_reports["whole screen"].max_flashes == 5
-    errors = _messages(report, "error")
+    errors = [p for p in report.problems if p.severity == "error"]
     assert len(errors) == 2  # whole screen and stimulus area
-    assert all("WCAG 2.3.1 allows at most 3" in m for m in errors)
+    assert {p.code for p in errors} == {"flashing"}
     assert main(["check", str(path)]) == 1
     capsys.readouterr()
 
@@ -158,7 +167,8 @@ def test_acknowledged_flashing_is_a_warning(tmp_path: Path) -> None:
     )
     report = check_protocol(path)
     assert not report.has_errors
-    assert any("acknowledged" in m for m in _messages(report))
+    acknowledged = _coded(report, "flashing", "warning")
+    assert len(acknowledged) == 2 and acknowledged[0].path == "checks.acknowledge_flashes"
 
 
 def test_slow_responses_keep_the_same_stimuli_within_the_rule(tmp_path: Path) -> None:
@@ -236,7 +246,7 @@ def test_long_stretch_without_break_is_a_warning(tmp_path: Path) -> None:
     """
     protocol = merged(checks={"max_minutes_without_break": 0.5})
     report = check_protocol(write_protocol(tmp_path, protocol))
-    hits = [p for p in report.problems if "without a break" in p.message]
+    hits = _coded(report, "long-stretch", "warning")
     assert len(hits) == 1 and "every_trials: 2" in hits[0].message
     assert hits[0].path == "sequence[2]"
 
@@ -247,7 +257,7 @@ def test_breaks_every_minutes_shorten_the_stretch(tmp_path: Path) -> None:
         checks={"max_minutes_without_break": 0.5}, breaks={"every_minutes": 0.25, "min_s": 5}
     )
     report = check_protocol(write_protocol(tmp_path, protocol))
-    assert not [p for p in report.problems if "without a break" in p.message]
+    assert not _coded(report, "long-stretch")
     assert report.length.max_stretch_s < 30
 
 
@@ -268,7 +278,7 @@ def test_block_orders_used_equally_often(
     report = check_protocol(
         write_protocol(tmp_path, protocol, rows=rows), participants=participants
     )
-    warned = [p for p in report.problems if "do not use each equally often" in p.message]
+    warned = _coded(report, "unbalanced-orders", "warning")
     assert bool(warned) != balanced
     n_rows = len(williams_rows(levels))
     assert n_rows == (levels if levels % 2 == 0 else 2 * levels)
@@ -295,7 +305,8 @@ def test_random_block_order_is_reported_as_unbalanced(tmp_path: Path) -> None:
         ]
     )
     report = check_protocol(write_protocol(tmp_path, protocol, rows=rows), participants=10)
-    assert any("order 'random'" in m for m in _messages(report))
+    warned = _coded(report, "unbalanced-orders", "warning")
+    assert len(warned) == 1 and warned[0].path == "sequence[0].blocks.order"
 
 
 def test_json_output_lists_warnings_with_positions(tmp_path: Path, capsys) -> None:
@@ -305,7 +316,9 @@ def test_json_output_lists_warnings_with_positions(tmp_path: Path, capsys) -> No
     found = json.loads(capsys.readouterr().out)
     assert code == 0
     assert {f["severity"] for f in found} == {"warning"}
-    assert all(set(f) == {"severity", "file", "line", "column", "path", "message"} for f in found)
+    keys = {"severity", "file", "line", "column", "path", "message", "code"}
+    assert all(set(f) == keys for f in found)
+    assert {f["code"] for f in found} == {"upscaled-stimulus"}
     assert all(f["line"] >= 2 for f in found if f["file"].endswith("table.csv"))
 
 

@@ -7,6 +7,7 @@ trial table, changes one thing, and runs the real command line (``trialdeck chec
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import sys
 import time
@@ -47,29 +48,29 @@ def edit(lines: dict[int, str] | None = None, append: str = "") -> str:
 
 P, T = "protocol.yaml", "table.csv"
 
-# (id, protocol text or bytes, table text or bytes, file, line, message fragment)
+# (id, protocol text or bytes, table text or bytes, file, line, problem code)
 CASES = [
-    ("unknown key", edit({7: "ratng: {points: 9}"}), TABLE, P, 7, "did you mean 'rating'"),
+    ("unknown key", edit({7: "ratng: {points: 9}"}), TABLE, P, 7, "unknown-field"),
     (
         "unknown nested key",
         edit({8: "timing: {fixation: [100, 200]}"}),
         TABLE,
         P,
         8,
-        "did you mean 'fixation_ms'",
+        "unknown-field",
     ),
-    ("duplicate key", edit(append="study: again\n"), TABLE, P, 14, "appears twice"),
-    ("tab", edit({3: "stimulus_size:\t{width_px: 300}"}), TABLE, P, 3, "tab character"),
-    ("wrong type", edit({7: "rating: {points: nine}"}), TABLE, P, 7, "whole number, got 'nine'"),
-    ("rating 1 point", edit({7: "rating: {points: 1}"}), TABLE, P, 7, "at least 2 and at most 11"),
-    ("rating 12 points", edit({7: "rating: {points: 12}"}), TABLE, P, 7, "got 12"),
+    ("duplicate key", edit(append="study: again\n"), TABLE, P, 14, "duplicate-key"),
+    ("tab", edit({3: "stimulus_size:\t{width_px: 300}"}), TABLE, P, 3, "yaml-tab"),
+    ("wrong type", edit({7: "rating: {points: nine}"}), TABLE, P, 7, "bad-type"),
+    ("rating 1 point", edit({7: "rating: {points: 1}"}), TABLE, P, 7, "out-of-range"),
+    ("rating 12 points", edit({7: "rating: {points: 12}"}), TABLE, P, 7, "out-of-range"),
     (
         "colour",
         edit({2: 'screen: {resolution: [640, 480], refresh_hz: 60, background: "grey"}'}),
         TABLE,
         P,
         2,
-        "'#808080' (got 'grey')",
+        "bad-value",
     ),
     (
         "refresh",
@@ -77,7 +78,7 @@ CASES = [
         TABLE,
         P,
         2,
-        "screen.refresh_hz: got 5",
+        "out-of-range",
     ),
     (
         "resolution one number",
@@ -85,7 +86,7 @@ CASES = [
         TABLE,
         P,
         2,
-        "[width, height]",
+        "bad-length",
     ),
     (
         "two sizes",
@@ -93,7 +94,7 @@ CASES = [
         TABLE,
         P,
         3,
-        "exactly one of",
+        "bad-value",
     ),
     (
         "degrees without distance",
@@ -101,7 +102,7 @@ CASES = [
         TABLE,
         P,
         3,
-        "needs screen.width_cm and screen.distance_cm",
+        "bad-value",
     ),
     (
         "cm without width",
@@ -109,17 +110,17 @@ CASES = [
         TABLE,
         P,
         3,
-        "needs screen.width_cm",
+        "bad-value",
     ),
-    ("study name", edit({1: "study: courier check!"}), TABLE, P, 1, "got 'courier check!'"),
-    ("markers missing", edit({4: "# no markers"}), TABLE, P, 1, "missing required field 'markers'"),
+    ("study name", edit({1: "study: courier check!"}), TABLE, P, 1, "bad-value"),
+    ("markers missing", edit({4: "# no markers"}), TABLE, P, 1, "missing-field"),
     (
         "bad key name",
         edit({6: 'answer: {prompt: "How many?", unsure_key: F1}'}),
         TABLE,
         P,
         6,
-        "(got 'F1')",
+        "bad-value",
     ),
     (
         "same keys",
@@ -127,25 +128,25 @@ CASES = [
         TABLE,
         P,
         6,
-        "give them different keys",
+        "bad-value",
     ),
-    ("answer mode", edit({6: "answer: {mode: during}"}), TABLE, P, 6, "'after' or 'over'"),
+    ("answer mode", edit({6: "answer: {mode: during}"}), TABLE, P, 6, "bad-choice"),
     (
         "fixation order",
         edit({8: "timing: {fixation_ms: [900, 200]}"}),
         TABLE,
         P,
         8,
-        "low end 900.0 is above the high end 200.0",
+        "bad-value",
     ),
-    ("negative gap", edit({8: "timing: {gap_ms: -5}"}), TABLE, P, 8, "timing.gap_ms: got -5"),
+    ("negative gap", edit({8: "timing: {gap_ms: -5}"}), TABLE, P, 8, "out-of-range"),
     (
         "unknown step",
         edit({13: "  - pause: {seconds: 3}"}),
         TABLE,
         P,
         13,
-        "one of page, rest, practice, blocks, trials",
+        "bad-value",
     ),
     (
         "two steps in one",
@@ -153,16 +154,16 @@ CASES = [
         TABLE,
         P,
         13,
-        "one of page, rest",
+        "bad-value",
     ),
-    ("page without text", edit({13: "  - page: {key: space}"}), TABLE, P, 13, "text or file"),
+    ("page without text", edit({13: "  - page: {key: space}"}), TABLE, P, 13, "bad-value"),
     (
         "page file missing",
         edit({13: "  - page: {file: nothere.md}"}),
         TABLE,
         P,
         13,
-        "'nothere.md' does not exist",
+        "missing-file",
     ),
     (
         "page file outside",
@@ -170,16 +171,16 @@ CASES = [
         TABLE,
         P,
         13,
-        "outside the protocol's folder",
+        "outside-folder",
     ),
-    ("rest zero", edit({13: "  - rest: {seconds: 0}"}), TABLE, P, 13, "must be more than 0"),
+    ("rest zero", edit({13: "  - rest: {seconds: 0}"}), TABLE, P, 13, "out-of-range"),
     (
         "rest show",
         edit({13: "  - rest: {seconds: 5, show: movie}"}),
         TABLE,
         P,
         13,
-        "'fixation' or 'blank'",
+        "bad-choice",
     ),
     (
         "block order",
@@ -187,7 +188,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "'balanced-latin', 'fixed' or 'random'",
+        "bad-choice",
     ),
     (
         "block factor",
@@ -195,7 +196,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "block factor 'colour' is not a column",
+        "unknown-column",
     ),
     (
         "where column",
@@ -203,7 +204,7 @@ CASES = [
         TABLE,
         P,
         11,
-        "'kind' is not a column",
+        "unknown-column",
     ),
     (
         "where matches nothing",
@@ -211,7 +212,7 @@ CASES = [
         TABLE,
         P,
         11,
-        "no row of the trial table matches",
+        "no-matching-rows",
     ),
     (
         "fixed without levels",
@@ -219,7 +220,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "needs the list of levels",
+        "bad-levels",
     ),
     (
         "levels wrong",
@@ -227,7 +228,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "must list each level of 'density' once",
+        "bad-levels",
     ),
     (
         "max_run column",
@@ -235,7 +236,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "'nodes' is not a column",
+        "unknown-column",
     ),
     (
         "max_run zero",
@@ -243,7 +244,7 @@ CASES = [
         TABLE,
         P,
         12,
-        "must be at least 1",
+        "out-of-range",
     ),
     (
         "max_run impossible",
@@ -251,7 +252,7 @@ CASES = [
         CROWDED,
         P,
         12,
-        "density",
+        "impossible-order",
     ),
     (
         "no_repeat impossible",
@@ -259,7 +260,7 @@ CASES = [
         SAME_PICTURE,
         P,
         12,
-        "stimulus",
+        "impossible-order",
     ),
     (
         "factor missing",
@@ -267,7 +268,7 @@ CASES = [
         TABLE,
         P,
         5,
-        "factor 'nodes' is not a column",
+        "unknown-column",
     ),
     (
         "table missing",
@@ -275,7 +276,7 @@ CASES = [
         TABLE,
         P,
         5,
-        "'nope.csv' does not exist",
+        "missing-file",
     ),
     (
         "prompt column",
@@ -283,7 +284,7 @@ CASES = [
         TABLE,
         P,
         6,
-        "'question' is not a column",
+        "unknown-column",
     ),
     (
         "question column",
@@ -291,7 +292,7 @@ CASES = [
         TABLE,
         P,
         7,
-        "'ask' is not a column",
+        "unknown-column",
     ),
     (
         "no trial steps",
@@ -299,7 +300,7 @@ CASES = [
         TABLE,
         P,
         10,
-        "the sequence has no trials",
+        "bad-value",
     ),
     (
         "empty sequence",
@@ -307,16 +308,16 @@ CASES = [
         TABLE,
         P,
         9,
-        "at least 1 item",
+        "bad-length",
     ),
-    ("anchor", edit(append="x: &a [1]\ny: *a\n"), TABLE, P, 14, "Anchors such as '&a'"),
+    ("anchor", edit(append="x: &a [1]\ny: *a\n"), TABLE, P, 14, "yaml-anchor"),
     (
         "breaks every 0",
         edit(append="breaks: {every_trials: 0}\n"),
         TABLE,
         P,
         14,
-        "must be at least 1",
+        "out-of-range",
     ),
     (
         "tolerance above 1",
@@ -324,7 +325,7 @@ CASES = [
         TABLE,
         P,
         14,
-        "at most 1",
+        "out-of-range",
     ),
     (
         "checks unknown",
@@ -332,7 +333,7 @@ CASES = [
         TABLE,
         P,
         14,
-        "did you mean 'min_response_ms'",
+        "unknown-field",
     ),
     (
         "photodiode corner",
@@ -340,22 +341,29 @@ CASES = [
         TABLE,
         P,
         14,
-        "'top-left', 'top-right'",
+        "bad-choice",
     ),
-    ("top-level list", "- study: x\n", TABLE, P, 1, "starts with a list"),
-    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 8, "YAML syntax error"),
-    ("not UTF-8", BASE.encode().replace(b"Welcome", b"Welc\xffome"), TABLE, P, 10, "not UTF-8"),
-    ("NUL character", BASE.encode().replace(b"Welcome", b"Wel\x00come"), TABLE, P, 10, "U+0000"),
-    ("empty file", b"", TABLE, P, 0, "empty or holds only comments"),
-    ("only comments", b"# nothing\n", TABLE, P, 0, "empty or holds only comments"),
-    ("oversize", BASE.encode() + b"#" + b"x" * 1_000_001 + b"\n", TABLE, P, 0, "byte limit"),
+    ("top-level list", "- study: x\n", TABLE, P, 1, "not-a-mapping"),
+    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 8, "yaml-syntax"),
+    ("not UTF-8", BASE.encode().replace(b"Welcome", b"Welc\xffome"), TABLE, P, 10, "not-utf8"),
+    (
+        "NUL character",
+        BASE.encode().replace(b"Welcome", b"Wel\x00come"),
+        TABLE,
+        P,
+        10,
+        "bad-character",
+    ),
+    ("empty file", b"", TABLE, P, 0, "empty-file"),
+    ("only comments", b"# nothing\n", TABLE, P, 0, "empty-file"),
+    ("oversize", BASE.encode() + b"#" + b"x" * 1_000_001 + b"\n", TABLE, P, 0, "file-too-large"),
     (
         "table: expected text",
         BASE,
         TABLE.replace("img/c.png,5", "img/c.png,five"),
         T,
         4,
-        "whole number or empty, got 'five'",
+        "bad-expected",
     ),
     (
         "table: expected negative",
@@ -363,7 +371,7 @@ CASES = [
         TABLE.replace("img/c.png,5", "img/c.png,-5"),
         T,
         4,
-        "must not be negative",
+        "bad-expected",
     ),
     (
         "table: expected above max",
@@ -371,7 +379,7 @@ CASES = [
         TABLE.replace("img/c.png,5", "img/c.png,75"),
         T,
         4,
-        "above answer.max (60)",
+        "answer-above-max",
     ),
     (
         "table: short row",
@@ -379,7 +387,7 @@ CASES = [
         TABLE.replace("img/d.png,6,main,dense", "img/d.png,6,main"),
         T,
         5,
-        "3 fields but the header has 4",
+        "row-length",
     ),
     (
         "table: no stimulus column",
@@ -387,7 +395,7 @@ CASES = [
         TABLE.replace("stimulus,", "image,"),
         T,
         1,
-        "no 'stimulus' column",
+        "missing-column",
     ),
     (
         "table: duplicate column",
@@ -395,7 +403,7 @@ CASES = [
         TABLE.replace("set,density", "set,set"),
         T,
         1,
-        "'set' appears twice",
+        "duplicate-column",
     ),
     (
         "table: reserved column",
@@ -403,7 +411,7 @@ CASES = [
         TABLE.replace("set,density", "set,rating"),
         T,
         1,
-        "'rating' is a name trialdeck writes",
+        "reserved-column",
     ),
     (
         "table: empty stimulus",
@@ -411,7 +419,7 @@ CASES = [
         TABLE.replace("img/e.png,7", ",7"),
         T,
         6,
-        "stimulus field is empty",
+        "empty-stimulus",
     ),
     (
         "table: missing image",
@@ -419,7 +427,7 @@ CASES = [
         TABLE.replace("img/e.png", "img/zz.png"),
         T,
         6,
-        "'img/zz.png' does not exist",
+        "missing-file",
     ),
     (
         "table: image outside",
@@ -427,7 +435,7 @@ CASES = [
         TABLE.replace("img/e.png", "../outside.png"),
         T,
         6,
-        "outside the protocol's folder",
+        "outside-folder",
     ),
     (
         "table: NUL in path",
@@ -435,17 +443,17 @@ CASES = [
         TABLE.replace("img/e.png", "img/e\x00.png"),
         T,
         6,
-        "control character",
+        "control-character",
     ),
-    ("table: empty", BASE, "", T, 1, "the trial table is empty"),
-    ("table: header only", BASE, "stimulus,expected,set,density\n", T, 1, "header but no rows"),
+    ("table: empty", BASE, "", T, 1, "empty-file"),
+    ("table: header only", BASE, "stimulus,expected,set,density\n", T, 1, "no-rows"),
     (
         "table: not UTF-8",
         BASE,
         TABLE.encode().replace(b"sparse", b"sp\xe4rse", 1),
         T,
         2,
-        "not UTF-8",
+        "not-utf8",
     ),
     (
         "table: broken image",
@@ -453,7 +461,7 @@ CASES = [
         TABLE.replace("img/e.png", "img/broken.png"),
         T,
         6,
-        "cannot be decoded",
+        "undecodable-stimulus",
     ),
 ]
 
@@ -481,11 +489,11 @@ def test_case_table_is_large_enough() -> None:
 
 
 @pytest.mark.parametrize(
-    ("protocol", "table", "file", "line", "fragment"),
+    ("protocol", "table", "file", "line", "problem_code"),
     [c[1:] for c in CASES],
     ids=[c[0] for c in CASES],
 )
-def test_malformed_input_is_one_actionable_line(
+def test_malformed_input_is_one_coded_error_at_its_line(
     tmp_path: Path,
     monkeypatch: pytest.MonkeyPatch,
     capsys: pytest.CaptureFixture[str],
@@ -493,31 +501,60 @@ def test_malformed_input_is_one_actionable_line(
     table: str | bytes,
     file: str,
     line: int,
-    fragment: str,
+    problem_code: str,
 ) -> None:
-    """`trialdeck check` exits 1 with a FILE:LINE:COL error naming the problem, writing nothing."""
+    """`trialdeck check` exits 1 with an error of the expected code at FILE:LINE, writing nothing."""
+    import json
+
     folder = tmp_path / "study"
     folder.mkdir()
     path = _setup(folder, protocol, table)
     monkeypatch.chdir(tmp_path)
     before = _snapshot(tmp_path)
-    code = main(["check", str(path)])
+    code = main(["check", str(path), "--json"])
     out, err = capsys.readouterr()
-    text = out + err
-    assert code == 1, text
-    assert "Traceback" not in text and "internal error" not in text
-    errors = [row for row in text.splitlines() if ": error: " in row]
-    assert errors, text
-    wanted = f"{file}:{line}:"
-    hits = [row for row in errors if wanted in row and fragment in row]
-    assert hits, f"no error line at {wanted} with {fragment!r} in:\n{text}"
+    assert code == 1, out + err
+    assert "Traceback" not in err and "internal error" not in err
+    found = json.loads(out)
+    hits = [
+        f
+        for f in found
+        if f["severity"] == "error" and f["file"].endswith(file) and f["line"] == line
+    ]
+    assert problem_code in [f["code"] for f in hits], found
     assert _snapshot(tmp_path) == before
+
+
+@pytest.mark.parametrize(
+    ("case", "suggestion"),
+    [
+        ("unknown key", "did you mean 'rating'"),
+        ("unknown nested key", "did you mean 'fixation_ms'"),
+        ("checks unknown", "did you mean 'min_response_ms'"),
+    ],
+)
+def test_unknown_setting_line_suggests_the_closest_name(
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+    capsys: pytest.CaptureFixture[str],
+    case: str,
+    suggestion: str,
+) -> None:
+    """The printed line for a misspelt setting names the setting it most likely meant."""
+    _, protocol, table, file, line, _ = next(c for c in CASES if c[0] == case)
+    folder = tmp_path / "study"
+    folder.mkdir()
+    path = _setup(folder, protocol, table)
+    monkeypatch.chdir(tmp_path)
+    assert main(["check", str(path)]) == 1
+    rows = [r for r in capsys.readouterr().out.splitlines() if f"{file}:{line}:" in r]
+    assert any(": error: " in r and suggestion in r for r in rows), rows
 
 
 def test_json_findings_carry_position_and_path(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:
-    """`check --json` prints a list of objects with severity, file, line, column, path, message."""
+    """`check --json` prints objects with severity, file, line, column, path, message and code."""
     import json
 
     path = _setup(tmp_path, edit({8: "timing: {gap_ms: -5}"}), TABLE)
@@ -532,6 +569,7 @@ def test_json_findings_carry_position_and_path(
             "column": 18,
             "message": found[0]["message"],
             "path": "timing.gap_ms",
+            "code": "out-of-range",
         }
     ]
     assert found[0]["file"].endswith("protocol.yaml") and "got -5" in found[0]["message"]
@@ -558,12 +596,17 @@ SUBPROCESS_CASES = [c for c in CASES if c[0] in ("unknown key", "table: short ro
 
 
 @pytest.mark.parametrize(
-    ("protocol", "table", "file", "line", "fragment"),
+    ("protocol", "table", "file", "line", "problem_code"),
     [c[1:] for c in SUBPROCESS_CASES],
     ids=[c[0] for c in SUBPROCESS_CASES],
 )
 def test_malformed_input_through_a_real_process(
-    tmp_path: Path, protocol: str | bytes, table: str | bytes, file: str, line: int, fragment: str
+    tmp_path: Path,
+    protocol: str | bytes,
+    table: str | bytes,
+    file: str,
+    line: int,
+    problem_code: str,
 ) -> None:
     """`python -m runner check` in its own process prints the line and exits 1, no traceback."""
     path = _setup(tmp_path, protocol, table)
@@ -579,4 +622,7 @@ def test_malformed_input_through_a_real_process(
     text = proc.stdout + proc.stderr
     assert proc.returncode == 1, text
     assert "Traceback" not in text
-    assert any(f"{file}:{line}:" in row and fragment in row for row in text.splitlines()), text
+    # The printed form: FILE:LINE:COL: error: message, one line, the code only in --json.
+    rows = [row for row in text.splitlines() if f"{file}:{line}:" in row]
+    assert any(re.search(rf"{re.escape(file)}:{line}:\d+: error: \S", r) for r in rows), text
+    assert not any(problem_code in r for r in rows)

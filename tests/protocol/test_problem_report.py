@@ -132,6 +132,7 @@ def test_wrong_type_uses_the_field_description_and_points_at_the_value():
     """
     text = "study: courier-hops\ntiming:\n  fixation_ms: abc\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-type"
     assert problem.message == (
         "timing.fixation_ms: expected two numbers [low, high] in milliseconds, got 'abc'"
     )
@@ -143,6 +144,7 @@ def test_tuple_with_a_missing_item_points_at_the_setting():
     """A [low, high] pair with one number is reported at its key, saying which item is missing."""
     text = "study: courier-hops\ntiming:\n  fixation_ms: [700]\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-length"
     assert _at(problem) == _position(text, "fixation_ms", "fixation_ms")
     assert "got [700] (item 2 is missing)" in problem.message
 
@@ -151,6 +153,7 @@ def test_wrong_item_type_in_a_list_points_at_the_item():
     """A bad list item is named with its index and located at the item itself."""
     text = "study: courier-hops\ntiming:\n  fixation_ms: [700, soon]\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-type"
     assert problem.message == "timing.fixation_ms[1]: expected a number, got 'soon'"
     assert _at(problem) == _position(text, "fixation_ms", "soon")
 
@@ -159,6 +162,7 @@ def test_literal_error_lists_allowed_values_and_suggests_one():
     """A value outside a Literal lists every allowed value and suggests the closest."""
     text = "study: s\nsequence:\n  - blocks: {by: density, order: balanced-latn}\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-choice"
     assert problem.message == (
         "sequence[0].blocks.order: got 'balanced-latn', expected one of 'balanced-latin', "
         "'random' or 'fixed'; did you mean 'balanced-latin'?"
@@ -167,22 +171,23 @@ def test_literal_error_lists_allowed_values_and_suggests_one():
 
 
 @pytest.mark.parametrize(
-    ("setting", "value", "with_model", "fragment"),
+    ("setting", "value", "with_model", "fragment", "code"),
     [
-        ("gap_ms", "-5", True, "got -5, must be at least 0 and at most 5000"),
-        ("gap_ms", "9000", True, "got 9000, must be at least 0 and at most 5000"),
-        ("gap_ms", "-5", False, "got -5, must be at least 0"),
-        ("stimulus_limit_s", "0", True, "got 0, must be more than 0"),
-        ("gap_ms", "1.5", True, "expected a whole number, got 1.5"),
-        ("gap_ms", "soon", True, "expected a whole number, got 'soon'"),
+        ("gap_ms", "-5", True, "got -5, must be at least 0 and at most 5000", "out-of-range"),
+        ("gap_ms", "9000", True, "got 9000, must be at least 0 and at most 5000", "out-of-range"),
+        ("gap_ms", "-5", False, "got -5, must be at least 0", "out-of-range"),
+        ("stimulus_limit_s", "0", True, "got 0, must be more than 0", "out-of-range"),
+        ("gap_ms", "1.5", True, "expected a whole number, got 1.5", "bad-type"),
+        ("gap_ms", "soon", True, "expected a whole number, got 'soon'", "bad-type"),
     ],
 )
-def test_number_errors_give_the_bounds(setting, value, with_model, fragment):
+def test_number_errors_give_the_bounds(setting, value, with_model, fragment, code):
     """Bound errors quote every bound the model declares (only the broken one without a model)."""
     text = f"study: s\ntiming:\n  {setting}: {value}\n"
     model = Courier if with_model else None
     (problem,), _ = _problems(Courier, text, model=model)
     assert problem.message == f"timing.{setting}: {fragment}"
+    assert problem.code == code
     assert _at(problem) == (3, len(setting) + 5)
 
 
@@ -193,6 +198,7 @@ def test_unknown_key_suggests_the_closest_allowed_key():
     """
     text = "study: s\ntiming:\n  fixaton_ms: [700, 900]\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "unknown-field"
     assert problem.message.startswith(
         "timing.fixaton_ms: unknown setting 'fixaton_ms'; did you mean 'fixation_ms'?"
     )
@@ -210,6 +216,7 @@ def test_unknown_key_suggestion_can_come_from_a_known_keys_function():
 
     text = "study: s\ntiming:\n  Gap_MS: 3\n"
     (problem,), _ = _problems(Courier, text, known_keys=known, model=None)
+    assert problem.code == "unknown-field"
     assert asked == [("timing",)]
     assert "did you mean 'gap_ms'?" in problem.message
 
@@ -217,6 +224,7 @@ def test_unknown_key_suggestion_can_come_from_a_known_keys_function():
 def test_unknown_key_without_any_known_keys_says_to_remove_it():
     """Without a model or known_keys an unknown key is still reported, with plain advice."""
     (problem,), _ = _problems(Courier, "study: s\ncolour: red\n", model=None)
+    assert problem.code == "unknown-field"
     assert (
         problem.message == "colour: unknown setting 'colour'; remove it or check its indentation."
     )
@@ -226,6 +234,7 @@ def test_missing_field_points_at_the_parent_mapping():
     """A missing required field is reported at the mapping that lacks it, by name."""
     text = "sequence:\n  - rest:\n      label: baseline\n"
     problems, _ = _problems(Courier, text)
+    assert {p.code for p in problems} == {"missing-field"}
     messages = {p.message: _at(p) for p in problems}
     assert messages == {
         "top level: missing required field 'study'": (1, 1),
@@ -240,6 +249,7 @@ def test_smart_union_keeps_only_the_member_that_fits_and_drops_tags_from_the_pat
         "  - blocks: {by: 5}\n"
     )
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-type"
     assert problem.path == "sequence[2].blocks.by"
     assert problem.message == "sequence[2].blocks.by: expected text, got 5"
     assert _at(problem) == _position(text, "blocks", "5")
@@ -249,6 +259,7 @@ def test_smart_union_with_an_unknown_step_suggests_a_step_kind():
     """A step that fits no member is one problem at its key, suggesting the closest kind."""
     text = "study: s\nsequence:\n  - pagee: {text: Welcome}\n"
     (problem,), _ = _problems(Courier, text, model=None)
+    assert problem.code == "unknown-field"
     assert problem.message == (
         "sequence[0].pagee: unknown setting 'pagee'; did you mean 'page'? Allowed here: "
         "'page', 'rest' or 'blocks'."
@@ -260,6 +271,7 @@ def test_smart_union_with_an_empty_step_lists_the_step_kinds():
     """An empty mapping as a step is reported once, listing the keys a step can have."""
     text = "study: s\nsequence:\n  - {}\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "missing-field"
     assert problem.message == "sequence[0]: expected one of the settings 'page', 'rest' or 'blocks'"
     assert _at(problem) == (3, 5)
 
@@ -267,6 +279,7 @@ def test_smart_union_with_an_empty_step_lists_the_step_kinds():
 def test_union_of_plain_types_is_one_problem():
     """An int | str setting with a list value gives one problem naming both types."""
     (problem,), _ = _problems(Courier, "study: s\nstation: [1, 2]\n")
+    assert problem.code == "bad-type"
     assert problem.message == "station: expected a whole number or text, got [1, 2]"
     assert _at(problem) == (2, 10)
 
@@ -275,6 +288,7 @@ def test_discriminated_union_tag_equal_to_the_key_is_stripped():
     """A tag that equals the step's key is removed once: sequence[1].rest.seconds, not rest.rest."""
     text = "study: s\nsequence:\n  - page: {text: hi}\n  - rest: {seconds: 0}\n"
     (problem,), _ = _problems(TaggedCourier, text)
+    assert problem.code == "out-of-range"
     assert problem.path == "sequence[1].rest.seconds"
     assert problem.message == "sequence[1].rest.seconds: got 0, must be at least 1"
     assert _at(problem) == _position(text, "rest", "0")
@@ -284,6 +298,7 @@ def test_discriminated_union_with_an_unknown_tag_points_at_the_key():
     """An unknown step kind under a discriminator is located at that key with a suggestion."""
     text = "study: s\nsequence:\n  - rets: {seconds: 5}\n"
     (problem,), _ = _problems(TaggedCourier, text)
+    assert problem.code == "unknown-kind"
     assert problem.message == (
         "sequence[0]: unknown kind 'rets'; did you mean 'rest'? Allowed here: 'page' or 'rest'."
     )
@@ -294,6 +309,7 @@ def test_dict_key_errors_point_at_the_key():
     """A mapping key of the wrong type is reported at the key, not at its value."""
     text = "study: s\nrating:\n  labels: {1: effortless, top: extremely hard}\n"
     (problem,), _ = _problems(Courier, text)
+    assert problem.code == "bad-type"
     assert problem.message == "rating.labels.top: the key 'top' must be a whole number"
     assert _at(problem) == _position(text, "labels", "top")
 
@@ -301,6 +317,7 @@ def test_dict_key_errors_point_at_the_key():
 def test_custom_validator_messages_are_kept_without_pydantic_prefix():
     """A ValueError raised by a model validator reads as its own sentence, with the value."""
     (problem,), _ = _problems(Courier, "study: s\nrating:\n  points: 8\n")
+    assert problem.code == "bad-value"
     assert problem.message == (
         "rating.points: a rating scale needs an odd number of points so it has a middle (got 8)"
     )
@@ -311,7 +328,11 @@ def test_problems_come_in_file_order_on_one_line_each():
     """Several errors come back sorted by position; echoed values never break the line."""
     text = 'study: [1]\ntiming:\n  gap_ms: "a\\nb"\n  extra: 1\n'
     problems, _ = _problems(Courier, text)
-    assert [_at(p) for p in problems] == [(1, 8), (3, 11), (4, 3)]
+    assert [(*_at(p), p.code) for p in problems] == [
+        (1, 8, "bad-type"),
+        (3, 11, "bad-type"),
+        (4, 3, "unknown-field"),
+    ]
     assert all("\n" not in p.message for p in problems)
     assert "got 'a\\nb'" in problems[1].message
 
@@ -346,14 +367,29 @@ def test_problem_at_points_like_validation_problems():
     """problem_at locates values, collections and absent settings the same way as validation."""
     text = "study: s\ntiming:\n  gap_ms: 900\nsequence:\n  - blocks: {by: density}\n"
     doc = read_yaml_text(text, filename="courier.yaml")
-    value = problem_at(doc, "courier.yaml", "sequence[0].blocks.by", "is not in the trial table")
+    value = problem_at(
+        doc,
+        "courier.yaml",
+        "sequence[0].blocks.by",
+        "is not in the trial table",
+        code="unknown-column",
+    )
     assert value.format() == (
         "courier.yaml:5:18: error: sequence[0].blocks.by: is not in the trial table"
     )
-    collection = problem_at(doc, "courier.yaml", ("timing",), "is too short", severity="warning")
+    collection = problem_at(
+        doc, "courier.yaml", ("timing",), "is too short", severity="warning", code="long-stretch"
+    )
     assert (collection.line, collection.column, collection.severity) == (2, 1, "warning")
-    absent = problem_at(doc, "courier.yaml", ("timing", "fixation_ms"), "is needed for EEG")
+    absent = problem_at(
+        doc, "courier.yaml", ("timing", "fixation_ms"), "is needed for EEG", code="missing-field"
+    )
     assert (absent.line, absent.column) == (2, 1)
     assert absent.path == "timing.fixation_ms"
-    whole = problem_at(doc, "courier.yaml", (), "names no stimuli")
+    whole = problem_at(doc, "courier.yaml", (), "names no stimuli", code="no-rows")
     assert (whole.line, whole.column, whole.message) == (1, 1, "names no stimuli")
+    assert (value.code, collection.code, absent.code) == (
+        "unknown-column",
+        "long-stretch",
+        "missing-field",
+    )

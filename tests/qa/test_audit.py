@@ -13,11 +13,12 @@ import pyxdf
 from conftest import TEST_DATA, run_pilot
 from xdfwrite import FixtureStream, write_xdf
 
+from runner.cli.audit import add_arguments as add_audit_arguments
+from runner.cli.audit import run as run_audit
 from runner.errors import InputFileError
 from runner.protocol.load import load_protocol
 from runner.protocol.schedule import build_schedule
 from runner.qa.audit import audit_session, audit_sessions, format_audits, journaled_markers
-from runner.qa.command import add_audit_arguments, run_audit
 from runner.qa.recording import read_recording
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
 
@@ -494,12 +495,12 @@ def test_several_sessions_summary_first(pilot, tmp_path):
 
 
 def test_audit_imports_without_pygame_or_pylsl():
-    """The audit (and the qa commands) import without pygame or pylsl, so it runs anywhere."""
+    """The audit (and its command-line verb) import without pygame or pylsl, so it runs anywhere."""
     import subprocess
     import sys
 
     code = (
-        "import sys, runner.qa.audit, runner.qa.command; "
+        "import sys, runner.qa.audit, runner.cli.audit; "
         "print(sorted(m for m in ('pygame', 'pylsl') if m in sys.modules))"
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

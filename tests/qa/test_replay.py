@@ -14,8 +14,9 @@ import numpy as np
 import pytest
 from conftest import TEST_DATA, run_pilot
 
+from runner.cli.replay import add_arguments as add_replay_arguments
+from runner.cli.replay import run as run_replay
 from runner.errors import InputFileError, UsageError
-from runner.qa.command import add_replay_arguments, run_replay
 from runner.qa.replay import (
     CONTACT_SHEET,
     SHEET_COLUMNS,

@@ -97,8 +97,9 @@ def test_unknown_event_name_in_codes_is_a_protocol_error(tmp_path):
     loaded = load_protocol(protocol)
     with pytest.raises(ProtocolError) as info:
         trigger_map(loaded)
-    line = info.value.lines()[0]
-    assert "'stimulus_ofset' is not a marker event" in line
+    (problem,) = info.value.problems
+    assert (problem.code, problem.path) == ("unknown-event", "triggers.codes.stimulus_ofset")
+    line = problem.format()
     assert line.startswith(f"{protocol}:") and ":0:" not in line.split(": error")[0]
 
 

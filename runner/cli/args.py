@@ -1,0 +1,94 @@
+"""Argument types and helpers shared by the verbs: number parsers, display choice, the parser.
+
+Nothing here imports a heavy module; every verb module may use it at import time.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import os
+import sys
+import tempfile
+
+from runner.errors import EXIT_USAGE
+
+__all__ = [
+    "Parser",
+    "has_display",
+    "no_display",
+    "positive_float",
+    "seconds",
+    "want_headless",
+]
+
+#: Longest ``--seconds`` a self-test accepts (an hour of flips says nothing more than ten minutes).
+MAX_SELFTEST_SECONDS = 3600.0
+
+
+class Parser(argparse.ArgumentParser):
+    """argparse, but usage errors exit 2 with one plain line (and the usage)."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        self.exit(EXIT_USAGE, f"error: {message}\n")
+
+
+def positive_float(text: str) -> float:
+    """A finite number above 0, for ``--speed``, ``--max-gap`` and similar options.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For text that is not a number, or a number at or below 0, NaN or infinity.
+    """
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
+    if not value > 0 or not math.isfinite(value):
+        raise argparse.ArgumentTypeError(f"expected a number above 0, got {text!r}")
+    return value
+
+
+def seconds(text: str) -> float:
+    """A duration above 0 and at most :data:`MAX_SELFTEST_SECONDS`, for ``selftest --seconds``.
+
+    Raises
+    ------
+    argparse.ArgumentTypeError
+        For text that is not a number or a number outside the range.
+    """
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a number of seconds, got {text!r}") from None
+    if not 0 < value <= MAX_SELFTEST_SECONDS:
+        raise argparse.ArgumentTypeError(
+            f"expected more than 0 and at most {MAX_SELFTEST_SECONDS:g} seconds, got {text!r}"
+        )
+    return value
+
+
+def want_headless(show: bool) -> None:
+    """Use the SDL dummy driver unless a window was asked for (``show``)."""
+    if not show:
+        os.environ["SDL_VIDEODRIVER"] = "dummy"
+        if not os.environ.get("XDG_RUNTIME_DIR"):
+            # SDL prints "error: XDG_RUNTIME_DIR is invalid" without one, which reads like ours.
+            os.environ["XDG_RUNTIME_DIR"] = tempfile.mkdtemp(prefix="trialdeck-sdl-")
+    os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
+
+
+def no_display() -> bool:
+    """True on Linux without an X11 or Wayland display to open a window on."""
+    if sys.platform.startswith("linux"):
+        return not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"))
+    return False
+
+
+def has_display() -> bool:
+    """True when a real window can be shown: a display exists and no headless driver is forced."""
+    if os.environ.get("SDL_VIDEODRIVER") in ("dummy", "offscreen"):
+        return False
+    return not no_display()

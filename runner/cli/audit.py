@@ -1,0 +1,68 @@
+"""``trialdeck audit SESSION_DIR...``: check that sessions are complete and intact."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+from runner.cli.args import positive_float
+from runner.errors import EXIT_OK, EXIT_PROBLEMS
+from runner.qa.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    """Options of ``trialdeck audit``."""
+    p.add_argument(
+        "sessions",
+        nargs="+",
+        metavar="SESSION_DIR",
+        help="session folders (…/sub-<participant>/ses-<session>/)",
+    )
+    p.add_argument(
+        "--recording",
+        metavar="FILE.xdf",
+        help="also check the markers and the other streams in this XDF recording",
+    )
+    p.add_argument("--json", action="store_true", help="print the findings as JSON")
+    p.add_argument(
+        "--max-gap",
+        type=positive_float,
+        default=DEFAULT_MAX_GAP_S,
+        metavar="SECONDS",
+        help=f"report gaps in recorded streams longer than this (default {DEFAULT_MAX_GAP_S:g})",
+    )
+    p.add_argument(
+        "--residual-limit",
+        type=positive_float,
+        default=DEFAULT_RESIDUAL_LIMIT_MS,
+        metavar="MS",
+        help="largest accepted difference between journaled and recorded marker times "
+        f"(default {DEFAULT_RESIDUAL_LIMIT_MS:g} ms)",
+    )
+    p.add_argument(
+        "--allow-truncated",
+        action="store_true",
+        help="read the intact part of a truncated recording instead of refusing it",
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    """Print the audit (or JSON); exit 0 when every session is sound, 1 when any has errors."""
+    from runner.qa.audit import audit_sessions, format_audits
+    from runner.qa.recording import read_recording
+
+    rec = None
+    if args.recording:
+        rec = read_recording(args.recording, allow_truncated=args.allow_truncated)
+    audits = audit_sessions(
+        [Path(s) for s in args.sessions],
+        recording=rec,
+        max_gap_s=args.max_gap,
+        residual_limit_ms=args.residual_limit,
+    )
+    if args.json:
+        print(json.dumps({"sessions": [a.as_dict() for a in audits]}, indent=2))
+    else:
+        print("\n".join(format_audits(audits)))
+    return EXIT_OK if all(a.ok for a in audits) else EXIT_PROBLEMS

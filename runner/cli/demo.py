@@ -1,0 +1,82 @@
+"""``trialdeck demo``: pilot the demo protocol (configs/demo.yaml) into a new session."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from runner.cli.args import positive_float
+from runner.cli.session import run_one_session
+from runner.errors import UsageError
+
+DEMO_PROTOCOL = Path("configs") / "demo.yaml"
+DEMO_PARTICIPANT = "P01"
+DEMO_SPEED = 10.0
+#: The folder that holds ``runner/`` (and, in a source checkout, ``configs/``).
+REPO_ROOT = Path(__file__).resolve().parent.parent.parent
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    """Options of ``trialdeck demo``."""
+    p.add_argument(
+        "--out",
+        default="demo-sessions",
+        metavar="DIR",
+        help="where the session goes (default ./demo-sessions)",
+    )
+    p.add_argument("--speed", type=positive_float, default=DEMO_SPEED, metavar="X")
+    p.add_argument(
+        "--show", action="store_true", help="open a real window instead of running headless"
+    )
+    p.add_argument("--windowed", action="store_true")
+    p.add_argument("--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR")
+    p.add_argument("--verbose", action="store_true", help="print a line per trial")
+
+
+def demo_protocol() -> Path:
+    """The demo protocol: in the working folder first, else beside the installed package.
+
+    Raises
+    ------
+    UsageError
+        Neither place has it.
+    """
+    here = Path.cwd() / DEMO_PROTOCOL
+    if here.is_file():
+        return here
+    repo = REPO_ROOT / DEMO_PROTOCOL
+    if repo.is_file():
+        return repo
+    raise UsageError(
+        "the demo protocol configs/demo.yaml was not found; run `trialdeck demo` from the trialdeck"
+        " folder (or install it with `pip install -e .`)."
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    """Pilot the demo protocol as the next free session of participant P01."""
+    from runner.protocol.load import load_protocol
+    from runner.session.run import session_folder
+
+    protocol = demo_protocol()
+    study = load_protocol(protocol).model.study
+    out = Path(args.out)
+    n = 1
+    while (session_folder(out, study, DEMO_PARTICIPANT, str(n)) / "journal.jsonl").exists():
+        n += 1
+    ns = argparse.Namespace(
+        participant=DEMO_PARTICIPANT,
+        session=str(n),
+        out=str(out),
+        windowed=args.windowed,
+        wait_for_recorder=None,
+        station=None,
+        speed=args.speed,
+        show=args.show,
+        frames=args.frames,
+        sim_abort_at=None,
+    )
+    print(
+        f"Demo: a pilot of {protocol} with a simulated participant, {args.speed:g} times faster than real time."
+    )
+    return run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)

@@ -1,0 +1,67 @@
+"""``trialdeck export SESSION_DIR... --out DIR``: pooled trials table and BIDS events files."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from runner.data.export import DATATYPES, DEFAULT_DATATYPE, export_sessions
+from runner.errors import EXIT_OK
+
+MAX_LISTED = 10  # events files named one by one; more are counted
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``trialdeck export``."""
+    parser.add_argument(
+        "sessions",
+        nargs="+",
+        metavar="SESSION_DIR",
+        help="session folders (holding journal.jsonl), or folders above them",
+    )
+    parser.add_argument(
+        "--out", required=True, metavar="DIR", type=Path, help="export folder (a BIDS root)"
+    )
+    parser.add_argument(
+        "--recording",
+        action="append",
+        metavar="FILE.xdf",
+        type=Path,
+        help="XDF recording of a session: onsets then count from the first sample of its EEG "
+        "stream; give one per session, in session order",
+    )
+    parser.add_argument(
+        "--datatype",
+        choices=DATATYPES,
+        default=DEFAULT_DATATYPE,
+        help=f"BIDS datatype folder of the events files (default {DEFAULT_DATATYPE})",
+    )
+    parser.add_argument(
+        "--task",
+        metavar="LABEL",
+        help="BIDS task label, letters and digits (default: the study id without other characters)",
+    )
+
+
+def run(args: argparse.Namespace) -> int:
+    """Export, then print what was written; exit 0."""
+    result = export_sessions(
+        args.sessions,
+        args.out,
+        task=args.task,
+        datatype=args.datatype,
+        recordings=args.recording,
+    )
+    print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
+    print(f"Pooled trials table: {result.pooled}")
+    listed = 0
+    for (tsv, _side), origin, s in zip(result.events, result.origins, result.sessions, strict=True):
+        where = "session start" if origin.kind == "session_start" else "first EEG sample"
+        if listed < MAX_LISTED or s.status != "completed":
+            print(f"Events (onsets from the {where}): {tsv}")
+            listed += 1
+        if s.status != "completed":
+            print(f"  note: this session ended as {s.status!r}; its last rows may lack a duration.")
+    if len(result.events) > listed:
+        print(f"... and {len(result.events) - listed} more events files under {args.out}.")
+    return EXIT_OK

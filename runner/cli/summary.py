@@ -1,0 +1,45 @@
+"""``trialdeck summary SESSION_DIR... --out DIR``: tables, plots and report.html of a pilot."""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from runner.errors import EXIT_OK
+
+SUMMARY_TITLE = "Pilot summary"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    """Options of ``trialdeck summary``."""
+    parser.add_argument(
+        "sessions",
+        nargs="+",
+        metavar="SESSION_DIR",
+        help="session folders (holding journal.jsonl), or folders above them",
+    )
+    parser.add_argument(
+        "--out", required=True, metavar="DIR", type=Path, help="folder for tables, plots, report"
+    )
+    parser.add_argument(
+        "--include-practice",
+        action="store_true",
+        help="also summarise practice trials (default: main part only)",
+    )
+    parser.add_argument("--title", default=SUMMARY_TITLE, help="heading of the report")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Write the summary, then print what was read and written; exit 0."""
+    from runner.data.summary import summarise_sessions
+
+    done = summarise_sessions(
+        args.sessions, args.out, include_practice=args.include_practice, title=args.title
+    )
+    print(
+        f"Summarised {done.sessions} session(s), {done.trials} trial(s), by "
+        + (", ".join(done.factors) if done.factors else "no factor")
+        + "."
+    )
+    print(f"Wrote {len(done.paths)} file(s) to {args.out}; the report is {done.paths[-1]}")
+    return EXIT_OK
