@@ -46,6 +46,8 @@ PROBLEM_CODES: dict[str, str] = {
     "bad-pattern": "a text does not have the required form",
     "unknown-kind": "a list item names a kind of step or item that does not exist",
     "bad-value": "a value breaks a rule of its setting or contradicts another setting",
+    "unknown-key": "a key name that no key on a keyboard has, or one kept for trialdeck (Escape)",
+    "key-clash": "a key already used on the same screen for something else",
     # Settings against the trial table and the files they name.
     "outside-folder": "a file named by the protocol lies outside the protocol's folder",
     "unknown-column": "a setting names a column the trial table does not have",

@@ -32,7 +32,7 @@ def _bad_copy(tmp_path, old: str, new: str):
         ("table: table.csv", "table: missing.csv", 6, "missing-file"),
         ("by: density", "by: colour", 14, "unknown-column"),
         ("study: mini-test", "study: mini test", 2, "bad-value"),
-        ("unsure_key: u", "unsure_key: F1", 7, "bad-value"),
+        ("unsure_key: u", "unsure_key: F1", 7, "unknown-key"),
     ],
 )
 def test_invalid_protocol_refuses_everywhere_and_creates_nothing(

@@ -20,6 +20,7 @@ from pydantic import (
     field_validator,
     model_validator,
 )
+from pydantic_core import PydanticCustomError
 
 COLOUR_RE = re.compile(r"^#(?:[0-9a-fA-F]{3}|[0-9a-fA-F]{6})$")
 STUDY_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9-]{0,62}$")
@@ -36,7 +37,7 @@ MAX_SCREEN_PX = 16384
 def check_key(v: str) -> str:
     """A key name a participant can press (see KEY_NAMES); Escape is kept for ending sessions."""
     if v not in KEY_NAMES:
-        raise ValueError(f"{KEY_HELP}, not {v!r}")
+        raise PydanticCustomError("unknown_key", KEY_HELP)
     return v
 
 
@@ -163,9 +164,10 @@ class Answer(Strict):
     @classmethod
     def _unsure_free(cls, v: str) -> str:
         if v in ANSWER_SCREEN_KEYS:
-            raise ValueError(
+            raise PydanticCustomError(
+                "key_clash",
                 f"{v!r} is already used on the answer screen (digits type the count, Backspace"
-                " corrects, Return confirms); choose another key for 'unsure', such as 'u'"
+                " corrects, Return confirms); choose another key for 'unsure', such as 'u'",
             )
         return v
 

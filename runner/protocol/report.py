@@ -108,6 +108,9 @@ _CODES = {
     "string_too_short": "bad-length",
     "string_too_long": "bad-length",
     "string_pattern_mismatch": "bad-pattern",
+    # Custom error types raised by runner.protocol.model's validators.
+    "unknown_key": "unknown-key",
+    "key_clash": "key-clash",
 }
 _QUOTED_RE = re.compile(r"'((?:[^'\\]|\\.)*)'")
 _IDENT_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_-]*")

@@ -23,22 +23,22 @@ def _with(**changes) -> dict:
 
 
 CASES = [
-    ("unsure is return", _with(answer__unsure_key="return"), "answer.unsure_key", "answer screen"),
-    ("unsure is a digit", _with(answer__unsure_key="5"), "answer.unsure_key", "expected a letter"),
-    ("unsure is escape", _with(answer__unsure_key="escape"), "answer.unsure_key", "not 'escape'"),
-    ("page key unknown", _with(page__key="xyz"), "sequence[0].page.key", "not 'xyz'"),
-    ("page key escape", _with(page__key="escape"), "sequence[0].page.key", "not 'escape'"),
-    ("page key empty", _with(page__key=""), "sequence[0].page.key", "not ''"),
-    ("break key empty", _with(breaks__key=""), "breaks.key", "not ''"),
-    ("break key unknown", _with(breaks__key="enter"), "breaks.key", "not 'enter'"),
+    ("unsure is return", _with(answer__unsure_key="return"), "answer.unsure_key", "key-clash"),
+    ("unsure is a digit", _with(answer__unsure_key="5"), "answer.unsure_key", "unknown-key"),
+    ("unsure is escape", _with(answer__unsure_key="escape"), "answer.unsure_key", "unknown-key"),
+    ("page key unknown", _with(page__key="xyz"), "sequence[0].page.key", "unknown-key"),
+    ("page key escape", _with(page__key="escape"), "sequence[0].page.key", "unknown-key"),
+    ("page key empty", _with(page__key=""), "sequence[0].page.key", "unknown-key"),
+    ("break key empty", _with(breaks__key=""), "breaks.key", "unknown-key"),
+    ("break key unknown", _with(breaks__key="enter"), "breaks.key", "unknown-key"),
 ]
 
 
 @pytest.mark.parametrize(
-    ("protocol", "path", "fragment"), [c[1:] for c in CASES], ids=[c[0] for c in CASES]
+    ("protocol", "path", "code"), [c[1:] for c in CASES], ids=[c[0] for c in CASES]
 )
 def test_unusable_or_clashing_keys_are_refused_and_nothing_is_created(
-    tmp_path: Path, capsys: pytest.CaptureFixture[str], protocol: dict, path: str, fragment: str
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], protocol: dict, path: str, code: str
 ) -> None:
     """`check` refuses the key with one line naming the setting; `pilot` creates no folder."""
     file = write_protocol(tmp_path / "study", protocol)
@@ -46,11 +46,11 @@ def test_unusable_or_clashing_keys_are_refused_and_nothing_is_created(
     import json
 
     found = json.loads(capsys.readouterr().out)
-    assert any(p["path"] == path and fragment in p["message"] for p in found), found
+    assert any(p["path"] == path and p["code"] == code for p in found), found
     out = tmp_path / "sessions"
-    code = main(["pilot", str(file), "--participant", "P01", "--out", str(out), "--speed", "50"])
+    status = main(["pilot", str(file), "--participant", "P01", "--out", str(out), "--speed", "50"])
     capsys.readouterr()
-    assert code == 1 and not out.exists()
+    assert status == 1 and not out.exists()
 
 
 def test_distinct_usable_keys_pass_check(

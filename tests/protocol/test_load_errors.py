@@ -120,7 +120,7 @@ CASES = [
         TABLE,
         P,
         6,
-        "bad-value",
+        "unknown-key",
     ),
     (
         "same keys",
