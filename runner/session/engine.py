@@ -12,12 +12,13 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Protocol
+from typing import Any
 
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial
 from runner.session.events import MARKED_EVENTS, encode_marker
 from runner.session.journal import Journal
+from runner.session.ports import MarkerSink, Observer, Presenter, TriggerSink
 from runner.session.views import (
     AnswerView,
     BlankView,
@@ -28,7 +29,6 @@ from runner.session.views import (
     KeyHit,
     PageView,
     PauseView,
-    Presenter,
     RatingView,
     StimulusView,
     View,
@@ -56,26 +56,6 @@ STORAGE_RETRY_S = 1.0  # while the journal cannot be written, try again this oft
 DEFAULT_PAUSE_KEY = "p"
 STORAGE_PAUSE_TEXT = "The session is paused. Please wait for the experimenter."
 RESUME_TEXT = "The session continues where it stopped."
-
-
-class MarkerSink(Protocol):
-    def push(self, payload: str, timestamp: float) -> float: ...
-
-    def have_consumers(self) -> bool: ...
-
-
-class TriggerSink(Protocol):
-    """Hardware trigger output (runner.session.triggers.SerialTriggers in practice)."""
-
-    def send(self, event: str) -> int | None:
-        """Send the event's code, if it has one; return the code sent (or None)."""
-        ...
-
-
-class Observer(Protocol):
-    """Receives progress for the experimenter console (and the simulated participant)."""
-
-    def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None: ...
 
 
 class AbortRequested(Exception):
@@ -133,7 +113,7 @@ class Engine:
     loaded, schedule
         The validated protocol and this participant's schedule.
     presenter
-        The display (``runner.present.screen.Display`` in practice).
+        The display (``runner.present.display.Display`` in practice).
     journal, markers
         Where events go. Every marked event is pushed with its flip time as the LSL timestamp.
     clock
@@ -178,7 +158,7 @@ class Engine:
         self.loaded = loaded
         self.model = loaded.model
         self.schedule = schedule
-        self.view = presenter
+        self.presenter = presenter
         self.journal = journal
         self.markers = markers
         self.clock = clock
@@ -204,7 +184,7 @@ class Engine:
         self._interrupted = False
         self._trial_t0 = 0.0
         self._storage_pause: tuple[float, str, float, int | None] | None = None
-        if pause_key is not None and hasattr(presenter, "hold"):
+        if pause_key is not None:
             # Keys the display keeps when pressed while another screen waits for input, so a
             # pause asked for during a trial starts when that trial ends.
             presenter.hold = frozenset({pause_key})
@@ -212,12 +192,6 @@ class Engine:
         journal.on_recover = self._storage_recovered
         # Start of the current stretch of trials: breaks.every_minutes counts from here.
         self._since_pause = 0.0
-
-    def _notify(self, hook: str, *args: Any) -> None:
-        for obs in self.observers:
-            fn = getattr(obs, hook, None)
-            if fn is not None:
-                fn(*args)
 
     # -- journaling and markers ---------------------------------------------------------------
     def emit(
@@ -257,7 +231,7 @@ class Engine:
 
     def _frames(self, ms: float) -> int:
         """A requested duration as whole frames at the display's refresh interval."""
-        return frames_for(ms, self.view.interval, self.speed)
+        return frames_for(ms, self.presenter.interval, self.speed)
 
     def _show(
         self,
@@ -281,7 +255,7 @@ class Engine:
         payload = None
         if mark is not None:
             payload = self._payload(mark, trial.trial if trial is not None else None, mark_fields)
-        t = self.view.show(view, at=at, photodiode=photodiode)
+        t = self.presenter.show(view, at=at, photodiode=photodiode)
         if mark is not None and payload is not None:
             self._pushed = (mark, t, payload, *self._push(mark, payload, t))
         self._current = view
@@ -303,10 +277,10 @@ class Engine:
             flip["prev_ms"] = round(shown * 1000, 3)
             if self._screen_frames is not None:
                 flip["prev_requested_frames"] = self._screen_frames
-                flip["prev_frames"] = round(shown / self.view.interval)
-        if getattr(self.view, "last_late", False):
+                flip["prev_frames"] = round(shown / self.presenter.interval)
+        if self.presenter.last_late:
             flip["late"] = True
-        wait_ms = getattr(self.view, "last_load_wait_ms", 0.0)
+        wait_ms = self.presenter.last_load_wait_ms
         if wait_ms:
             flip["load_wait_ms"] = round(wait_ms, 3)
         self._screen_t, self._screen_frames = t, frames
@@ -333,7 +307,7 @@ class Engine:
             pause = None  # the screen's own key wins
         wanted = accept if pause is None or accept is None else accept | {pause}
         while True:
-            hit = self.view.wait_key(wanted, deadline)
+            hit = self.presenter.wait_key(wanted, deadline)
             if hit is not None and hit.key == QUIT_KEY:
                 # The window was closed or the program was told to stop: a deliberate act, not
                 # a stray key, so it ends the session without asking.
@@ -367,10 +341,11 @@ class Engine:
         self.emit("pause_start", t0, trial=number, reason="experimenter")
         self.journal.sync()
         self.state.paused = True
-        self._notify("on_pause", True, self)
+        for obs in self.observers:
+            obs.on_pause(True, self)
         while True:
             self._watch_recorder(self.clock())
-            hit = self.view.wait_key(frozenset({self.pause_key}), self.clock() + WATCH_S)
+            hit = self.presenter.wait_key(frozenset({self.pause_key}), self.clock() + WATCH_S)
             if hit is None:
                 continue
             if hit.key == "escape":
@@ -379,7 +354,7 @@ class Engine:
             break
         if between_trials:
             t1 = self._show(BlankView(), "pause-end", mark="pause_end", reason="experimenter")
-            self._next_at = t1 + self._frames(self.model.timing.gap_ms) * self.view.interval
+            self._next_at = t1 + self._frames(self.model.timing.gap_ms) * self.presenter.interval
         else:
             t1 = self._show(
                 previous,
@@ -392,17 +367,17 @@ class Engine:
         self.emit("pause_end", t1, trial=number, reason="experimenter", paused_s=round(t1 - t0, 6))
         self.journal.sync()
         self.state.paused = False
-        self._notify("on_pause", False, self)
+        for obs in self.observers:
+            obs.on_pause(False, self)
 
     def _between_trials(self, trial: ScheduledTrial) -> None:
         """Take a pause (or abort) asked for since the last trial; drop keys pressed in the gap."""
         if self.pause_key is None:
             return
-        held = getattr(self.view, "held", None)
-        wanted = bool(held) and any(h.key == self.pause_key for h in held)
-        if held:
-            held.clear()
-        hit = self.view.wait_key(frozenset({self.pause_key}), self.clock())
+        held = self.presenter.held
+        wanted = any(h.key == self.pause_key for h in held)
+        held.clear()
+        hit = self.presenter.wait_key(frozenset({self.pause_key}), self.clock())
         if hit is not None and hit.key == "escape":
             self._confirm_abort(trial)
         elif hit is not None:
@@ -418,24 +393,25 @@ class Engine:
         journaled from here (that is what fails); the pause is journaled once writing works.
         """
         if self._storage_pause is None:
-            t = self.view.show(PauseView(STORAGE_PAUSE_TEXT))
+            t = self.presenter.show(PauseView(STORAGE_PAUSE_TEXT))
             payload = self._payload("pause_start", None, {"reason": "storage"})
             delay, code = self._push("pause_start", payload, t)
             self._storage_pause = (t, payload, delay, code)
             self._interrupted = True
             self.state.paused = True
             self.state.storage_problem = str(err)
-            self._notify("on_storage", str(err), self)
-        hit = self.view.wait_key(frozenset(), self.clock() + STORAGE_RETRY_S)
+            for obs in self.observers:
+                obs.on_storage(str(err), self)
+        hit = self.presenter.wait_key(frozenset(), self.clock() + STORAGE_RETRY_S)
         if hit is not None and hit.key == "escape":
-            self.view.show(ConfirmView())
-            answer = self.view.wait_key(None, None)
+            self.presenter.show(ConfirmView())
+            answer = self.presenter.wait_key(None, None)
             if answer is not None and answer.key == CONFIRM_KEY:
                 # Give up: from here a failed write raises, so the session ends with what is
                 # on disk.
                 self.journal.on_error = None
                 raise AbortRequested()
-            self.view.show(PauseView(STORAGE_PAUSE_TEXT))
+            self.presenter.show(PauseView(STORAGE_PAUSE_TEXT))
 
     def _storage_recovered(self) -> None:
         if self._storage_pause is None:
@@ -443,7 +419,7 @@ class Engine:
         t0, payload, delay, code = self._storage_pause
         self._storage_pause = None
         problem = self.state.storage_problem
-        t1 = self.view.show(self._current, photodiode=self._current_photodiode)
+        t1 = self.presenter.show(self._current, photodiode=self._current_photodiode)
         end_payload = self._payload("pause_end", None, {"reason": "storage"})
         end_delay, end_code = self._push("pause_end", end_payload, t1)
         start: dict[str, Any] = {"marker": payload, "push_us": round(delay, 1)}
@@ -457,7 +433,8 @@ class Engine:
         self.journal.append("flip", t=t1, kind="storage-resume", view=view_to_dict(self._current))
         self.journal.sync()
         self.state.paused, self.state.storage_problem = False, None
-        self._notify("on_storage", None, self)
+        for obs in self.observers:
+            obs.on_storage(None, self)
         # The screen is back: whoever answers it (the simulated participant) starts it afresh.
         kind = self._current_kind.removesuffix("-typing")
         for obs in self.observers:
@@ -468,7 +445,7 @@ class Engine:
         t = self._show(ConfirmView(), "confirm", trial)
         self.journal.append("abort_requested", t=t, trial=trial.trial if trial else None)
         self.journal.sync()
-        hit = self.view.wait_key(None, None)
+        hit = self.presenter.wait_key(None, None)
         if hit is not None and hit.key in (CONFIRM_KEY, QUIT_KEY):
             raise AbortRequested()
         self.journal.append("abort_cancelled", t=hit.t if hit else self.clock())
@@ -563,10 +540,12 @@ class Engine:
         )
         self.emit("rest_start", t0, label=item.label, requested_s=item.seconds, frames=frames)
         self.journal.sync()
-        end = t0 + frames * self.view.interval
-        while self.clock() < end - self.view.interval * 0.75:
+        end = t0 + frames * self.presenter.interval
+        while self.clock() < end - self.presenter.interval * 0.75:
             self._watch_recorder(self.clock())
-            self._key(frozenset(), min(end - self.view.interval * 0.75, self.clock() + WATCH_S))
+            self._key(
+                frozenset(), min(end - self.presenter.interval * 0.75, self.clock() + WATCH_S)
+            )
         t1 = self._show(BlankView(), "rest-end", at=end, mark="rest_end", label=item.label)
         self.emit("rest_end", t1, label=item.label, actual_s=round(t1 - t0, 6))
         self.journal.sync()
@@ -653,7 +632,7 @@ class Engine:
     def _trial(self, trial: ScheduledTrial) -> None:
         model = self.model
         ans = model.answer
-        interval = self.view.interval
+        interval = self.presenter.interval
         path = str(stimulus_abspath(self.loaded, trial))
         self._interrupted = False
         self.state.current_trial = trial.trial
@@ -668,7 +647,7 @@ class Engine:
             expected=trial.expected,
             row=trial.row,
         )
-        self.view.prepare(path)  # normally already decoded during an earlier gap
+        self.presenter.prepare(path)  # normally already decoded during an earlier gap
         out = TrialOutcome()
 
         fix_frames = self._frames(trial.fixation_ms)
@@ -689,9 +668,7 @@ class Engine:
         )
         # Keys pressed before the fixation (e.g. late presses from the previous trial) must not
         # count as a response to this stimulus.
-        drain = getattr(self.view, "drain", None)
-        if drain is not None:
-            drain()
+        self.presenter.drain()
 
         unsure_hint = f"{ans.unsure_key.upper()} = unsure"
         if ans.mode == "after":
@@ -718,7 +695,7 @@ class Engine:
             trial=trial.trial,
             stimulus=trial.stimulus,
             fixation_actual_ms=round((t_on - t_fix) * 1000, 3),
-            load_wait_ms=round(getattr(self.view, "last_load_wait_ms", 0.0), 3),
+            load_wait_ms=round(self.presenter.last_load_wait_ms, 3),
         )
 
         limit = self._limit(model.timing.stimulus_limit_s)
@@ -897,7 +874,7 @@ class Engine:
                 self.emit("rating", self.clock(), trial=trial.trial, rating=None, timed_out=True)
                 return
             if hit.key == "click":
-                picked = self.view.rating_at(base, hit.pos) if hit.pos is not None else None
+                picked = self.presenter.rating_at(base, hit.pos) if hit.pos is not None else None
                 if picked is None:
                     continue
                 choice = picked
@@ -928,14 +905,14 @@ class Engine:
                 rt_ms=round((hit.t - t_r) * 1000, 3),
                 via="mouse" if hit.key == "click" else "keys",
             )
-            frames = max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.view.interval))
+            frames = max(1, round(RATING_SHOW_CHOICE_S / self.speed / self.presenter.interval))
             t = self._show(
                 RatingView(base.question, r.points, r.low, r.high, r.mid, choice, hint),
                 "rating-chosen",
                 trial,
                 frames=frames,
             )
-            self._next_at = t + frames * self.view.interval
+            self._next_at = t + frames * self.presenter.interval
             return
 
     def _finish(self, trial: ScheduledTrial, out: TrialOutcome, t_on: float, t_fix: float) -> None:
@@ -958,13 +935,13 @@ class Engine:
                 frames=fb_frames,
             )
             self.emit("feedback_onset", t_fb, trial=trial.trial, outcome=outcome)
-            self._next_at = t_fb + fb_frames * self.view.interval
+            self._next_at = t_fb + fb_frames * self.presenter.interval
         gap_frames = self._frames(timing.gap_ms)
         t_gap = self._show(
             BlankView(), "gap", trial, at=self._next_at, mark="gap_onset", frames=gap_frames
         )
         self.emit("gap_onset", t_gap, trial=trial.trial)
-        self._next_at = t_gap + gap_frames * self.view.interval
+        self._next_at = t_gap + gap_frames * self.presenter.interval
         # Start decoding the next trials' stimuli now, inside the gap.
         self._prefetch(trial)
 
@@ -1008,9 +985,7 @@ class Engine:
         self._tally(outcome, rt_ms)
         self._watch_recorder(t_gap)
         for obs in self.observers:
-            fn = getattr(obs, "on_trial_end", None)
-            if fn is not None:
-                fn(row, self)
+            obs.on_trial_end(row, self)
 
     def _next_trial(self, trial: ScheduledTrial) -> ScheduledTrial | None:
         trials = [t for t in self.schedule.trials if t.trial not in self.skip]
@@ -1025,11 +1000,10 @@ class Engine:
         if after is not None:
             todo = [t for t in todo if t.trial > after.trial]
         for t in todo[:PREFETCH_AHEAD]:
-            self.view.prepare(str(stimulus_abspath(self.loaded, t)))
-        wait = getattr(self.view, "wait_ready", None)
-        if after is None and todo and wait is not None:
+            self.presenter.prepare(str(stimulus_abspath(self.loaded, t)))
+        if after is None and todo:
             # Before the session starts there is time: make sure the first onset finds its image.
-            wait(str(stimulus_abspath(self.loaded, todo[0])))
+            self.presenter.wait_ready(str(stimulus_abspath(self.loaded, todo[0])))
 
     def _tally(self, outcome: str, rt_ms: float | None) -> None:
         s = self.state

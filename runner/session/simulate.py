@@ -18,9 +18,13 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
 from runner.protocol.schedule import ScheduledTrial
 from runner.session.views import View
+
+if TYPE_CHECKING:
+    from runner.session.engine import Engine
 
 PAGE_READ_S = 1.2
 FRESH_SCREENS = frozenset({"page", "fixation", "answer", "rating", "break-ready"})
@@ -233,10 +237,16 @@ class SimulatedParticipant:
             if plan is not None:
                 self._rate(t + self._s(RATING_RT_S), plan.rating)
 
-    def on_storage(self, problem: str | None, engine: object) -> None:
+    def on_pause(self, paused: bool, engine: Engine) -> None:
+        """The experimenter's pause needs nothing: the pause page itself is answered in on_view."""
+
+    def on_storage(self, problem: str | None, engine: Engine) -> None:
         """While the session is paused for storage, keys already planned are dropped."""
         if problem is not None:
             self.keys.clear()
+
+    def on_trial_end(self, row: dict[str, Any], engine: Engine) -> None:
+        """Nothing to do: the next trial's screens bring their own plans."""
 
     def extra_row(self, trial: ScheduledTrial) -> dict[str, float | None]:
         """The pilot-only trials.csv column: the intended response time in ms."""

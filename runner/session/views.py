@@ -1,7 +1,7 @@
 """What each screen shows, as plain data.
 
 The engine decides *what* is on the screen with these small records; the presenter
-(:mod:`runner.present.screens`) decides *how* it looks. Replay rebuilds the same records from the
+(:mod:`runner.present.painter`) decides *how* it looks. Replay rebuilds the same records from the
 journal and hands them to the same presenter, so replayed frames match the live ones pixel for
 pixel. Nothing here imports pygame.
 """
@@ -9,7 +9,6 @@ pixel. Nothing here imports pygame.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Protocol
 
 
 @dataclass(frozen=True)
@@ -130,35 +129,3 @@ class KeyHit:
     key: str
     t: float
     pos: tuple[int, int] | None = None  # for 'click': where the mouse button went down
-
-
-class Presenter(Protocol):
-    """What the engine needs from a display. The pygame implementation is runner.present.screen."""
-
-    interval: float
-
-    def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
-        """Draw ``view`` and flip at (or just after) ``at``; return the time right after the flip."""
-        ...
-
-    def prepare(self, stimulus: str) -> None:
-        """Decode and scale a stimulus now, so its onset later does not wait on the disk."""
-        ...
-
-    def wait_key(self, accept: frozenset[str] | None, deadline: float | None) -> KeyHit | None:
-        """Poll input until a key in ``accept`` (any key when None) or 'escape'; None at deadline."""
-        ...
-
-    def rating_at(self, view: RatingView, pos: tuple[int, int]) -> int | None:
-        """The rating whose box holds a mouse position, or None."""
-        ...
-
-    def post_key(self, key: str) -> float:
-        """Inject a key press through the real input path now; return the time it was posted."""
-        ...
-
-    def drain(self) -> None:
-        """Drop pending input."""
-        ...
-
-    def close(self) -> None: ...
