@@ -64,7 +64,7 @@ MAX_LISTED = 10
 #: ``runner.session.engine.RATING_SHOW_CHOICE_S`` (a test keeps the two equal: this layer must
 #: not import the session layer).
 RATING_SHOW_CHOICE_S = 0.15
-#: Fixation cross geometry, as drawn by ``runner.present.screens`` (a test keeps them equal).
+#: Fixation cross geometry, as drawn by ``runner.present.painter`` (a test keeps them equal).
 FIXATION_ARM_FRACTION = 0.012
 FIXATION_THICKNESS_FRACTION = 0.003
 FIXATION_MIN_ARM_PX = 6

@@ -2,7 +2,7 @@
 
 Every flip the engine made is journaled with the view it drew (``flip`` lines). A replay rebuilds
 those views with :func:`runner.session.views.view_from_dict` and draws them with the same
-presenter (:class:`runner.present.screen.Display` and its :class:`~runner.present.screens.Painter`),
+presenter (:class:`runner.present.display.Display` and its :class:`~runner.present.painter.Painter`),
 so replayed frames match the live ones pixel for pixel.
 
 Two ways to replay:
@@ -77,7 +77,7 @@ PNG_RGB8 = (
     0,
     0,
 )  # bit depth 8, colour type 2 (RGB), deflate, adaptive filter, no interlace
-FRAME_NAME = "{index:05d}-{view}.png"  # as runner.present.screen.Display.save_frame names them
+FRAME_NAME = "{index:05d}-{view}.png"  # as runner.present.display.Display.save_frame names them
 
 
 @dataclass(frozen=True)
@@ -109,7 +109,7 @@ class ReplayPlan:
 
 @dataclass(frozen=True)
 class _ModelOnly:
-    """What :func:`runner.present.screen.display_for` reads from a loaded protocol: its model."""
+    """What :func:`runner.present.display.display_for` reads from a loaded protocol: its model."""
 
     model: Protocol
 
@@ -318,7 +318,7 @@ def replay_session(
     -------
     ReplayResult
     """
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.session.markers import local_clock
 
     frames = None if frames_dir is None else Path(frames_dir)
@@ -383,7 +383,7 @@ def _draw_untimed(
 
     The drawing is the presenter's own (``display.painter`` on ``display.surface``), so the
     pixels are the live ones; a screen is saved when it differs from the last saved one, the
-    rule :meth:`runner.present.screen.Display.show` follows.
+    rule :meth:`runner.present.display.Display.show` follows.
     """
     import pygame
 

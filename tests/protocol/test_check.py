@@ -311,10 +311,10 @@ def test_json_output_lists_warnings_with_positions(tmp_path: Path, capsys) -> No
 
 def test_check_constants_match_the_engine_and_screens() -> None:
     """The check's copies of engine and drawing constants equal the originals."""
-    from runner.present import screens
+    from runner.present import painter
     from runner.protocol import check
     from runner.session import engine
 
     assert check.RATING_SHOW_CHOICE_S == engine.RATING_SHOW_CHOICE_S
-    assert check.FIXATION_ARM_FRACTION == screens.FIXATION_ARM_FRACTION
-    assert check.FIXATION_THICKNESS_FRACTION == screens.FIXATION_THICKNESS_FRACTION
+    assert check.FIXATION_ARM_FRACTION == painter.FIXATION_ARM_FRACTION
+    assert check.FIXATION_THICKNESS_FRACTION == painter.FIXATION_THICKNESS_FRACTION

@@ -166,7 +166,7 @@ def test_aborted_session_lists_trials_not_run(tmp_path, protocol_dir):
 
 def _resume(folder: Path, protocol: Path, *, speed: float = 20.0) -> None:
     """Continue an interrupted pilot session in the same journal (a second attempt)."""
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.session.engine import Engine
     from runner.session.markers import MarkerOutlet, local_clock
     from runner.session.records import trial_records, write_trials_csv

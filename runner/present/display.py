@@ -23,7 +23,7 @@ import pygame
 
 from runner.errors import DisplayError
 from runner.present.images import ImageCache
-from runner.present.screens import Painter, Style
+from runner.present.painter import Painter, Style
 from runner.present.timing import (
     LATE_INTERVALS,
     MIN_MEASURE_FLIPS,
