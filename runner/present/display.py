@@ -191,6 +191,16 @@ class Display:
             self._pending = view
         return t
 
+    def draw(self, view: View, *, photodiode: bool = False) -> None:
+        """Draw ``view`` without flipping (headless frame export reads it with :meth:`pixels`)."""
+        self._save_pending()
+        self.painter.draw(self.surface, view, photodiode=photodiode)
+        self._current = view
+
+    def pixels(self) -> bytes:
+        """What was last drawn, as 8-bit RGB rows from top to bottom (``size`` pixels)."""
+        return pygame.image.tobytes(self.surface, "RGB")
+
     def _save_pending(self) -> None:
         view = getattr(self, "_pending", None)
         if view is not None:

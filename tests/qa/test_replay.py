@@ -15,15 +15,9 @@ import pytest
 from conftest import TEST_DATA, run_pilot
 
 from runner.errors import InputFileError, UsageError
+from runner.present.contact_sheet import SHEET_COLUMNS, write_contact_sheet
 from runner.qa.command import add_replay_arguments, run_replay
-from runner.qa.replay import (
-    CONTACT_SHEET,
-    SHEET_COLUMNS,
-    plan_replay,
-    replay_session,
-    write_contact_sheet,
-    write_png,
-)
+from runner.qa.replay import CONTACT_SHEET, plan_replay, replay_session, write_png
 from runner.session.journal import JOURNAL_NAME
 
 
