@@ -20,6 +20,7 @@ from runner.session.events import MARKED_EVENTS, encode_marker
 from runner.session.journal import Journal
 from runner.session.ports import MarkerSink, Observer, Presenter, TriggerSink
 from runner.session.views import (
+    RATING_SHOW_CHOICE_S,
     AnswerView,
     BlankView,
     BreakView,
@@ -49,7 +50,6 @@ PAYLOAD_FIELDS = (
     "rating",
     "status",
 )
-RATING_SHOW_CHOICE_S = 0.15  # the chosen rating box stays lit this long, so the choice is seen
 PREFETCH_AHEAD = 2  # stimuli decoded ahead, so a slow decode never reaches an onset
 WATCH_S = 0.5  # untimed waits (pages, breaks, pauses) look at the recorder this often
 STORAGE_RETRY_S = 1.0  # while the journal cannot be written, try again this often

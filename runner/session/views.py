@@ -3,12 +3,52 @@
 The engine decides *what* is on the screen with these small records; the presenter
 (:mod:`runner.present.painter`) decides *how* it looks. Replay rebuilds the same records from the
 journal and hands them to the same presenter, so replayed frames match the live ones pixel for
-pixel. Nothing here imports pygame.
+pixel. The few measures that both the painter and the protocol check need (the fixation cross, the
+photodiode patch, how long a chosen rating stays lit) are defined here, once. Nothing here imports
+pygame, so the check can use them too.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+
+Rect = tuple[int, int, int, int]  # left, top, width, height in screen pixels
+
+#: The chosen rating box stays lit this long (seconds), so the choice is seen.
+RATING_SHOW_CHOICE_S = 0.15
+#: The fixation cross: half-length of an arm and bar thickness as shares of the screen height,
+#: with a minimum in pixels each.
+FIXATION_ARM_FRACTION = 0.012
+FIXATION_THICKNESS_FRACTION = 0.003
+FIXATION_MIN_ARM_PX = 6
+FIXATION_MIN_THICKNESS_PX = 2
+#: The photodiode patch is white during the stimulus and black otherwise.
+PATCH_ON = "#ffffff"
+PATCH_OFF = "#000000"
+
+
+def fixation_rects(size: tuple[int, int]) -> tuple[Rect, Rect]:
+    """The fixation cross's horizontal and vertical bars on a screen of ``size`` pixels.
+
+    The painter fills them with the text colour; the protocol check counts them in the fixation
+    screen's luminance. Both take them from here.
+    """
+    w, h = size
+    arm = max(FIXATION_MIN_ARM_PX, round(h * FIXATION_ARM_FRACTION))
+    thick = max(FIXATION_MIN_THICKNESS_PX, round(h * FIXATION_THICKNESS_FRACTION))
+    cx, cy = w // 2, h // 2
+    return (
+        (cx - arm, cy - thick // 2, 2 * arm + 1, thick),
+        (cx - thick // 2, cy - arm, thick, 2 * arm + 1),
+    )
+
+
+def photodiode_rect(size: tuple[int, int], corner: str, side: int) -> Rect:
+    """The photodiode patch: a ``side``-pixel square in ``corner`` (e.g. 'top-left')."""
+    w, h = size
+    x = 0 if corner.endswith("left") else w - side
+    y = 0 if corner.startswith("top") else h - side
+    return (x, y, side, side)
 
 
 @dataclass(frozen=True)
