@@ -3,12 +3,14 @@
 Every member the engine and :mod:`runner.session.run` use is declared here, so an implementation
 either has it or fails the type check; nothing is probed for at run time. The pygame presenter is
 :class:`runner.present.display.Display`; the test suite's fake presenter implements the same
-protocol without a window or real time. Nothing here imports pygame or pylsl.
+protocol without a window or real time. The presenter, observer and console protocols are
+runtime-checkable, so a test can confirm that an implementation has every member. Nothing here
+imports pygame or pylsl.
 """
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
 from runner.session.views import KeyHit, RatingView, View
 
@@ -49,6 +51,7 @@ class RefreshReport(Protocol):
     def as_dict(self) -> dict[str, object]: ...
 
 
+@runtime_checkable
 class Presenter(Protocol):
     """What the engine and the run wiring need from a display.
 
@@ -127,6 +130,7 @@ class Presenter(Protocol):
     def close(self) -> None: ...
 
 
+@runtime_checkable
 class Observer(Protocol):
     """Told about the session's progress: the experimenter console, the simulated participant."""
 
@@ -147,6 +151,7 @@ class Observer(Protocol):
         ...
 
 
+@runtime_checkable
 class ConsoleLike(Protocol):
     """What the session needs from the experimenter console (see runner.session.console)."""
 
