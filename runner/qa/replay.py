@@ -392,7 +392,7 @@ def _draw_untimed(
     size = display.size
     sheet = ContactSheet(size)
     written: list[Path] = []
-    pending: list[Future[None]] = []
+    pending: list[Future[Path]] = []
     last: View | None = None
     with ThreadPoolExecutor(max_workers=PNG_WORKERS) as pool:
         for s in plan.screens:

@@ -432,7 +432,8 @@ def run_session(
             triggers=triggers,
             resume_attempt=plan.attempt if plan is not None and plan.attempt > 1 else None,
         )
-        status, error = "completed", None
+        status = "completed"
+        error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
         # after a flip or key press when another thread (the simulated participant) is running.
         old_switch = sys.getswitchinterval()
