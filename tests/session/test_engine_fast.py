@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import bisect
 import math
+import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -169,6 +171,8 @@ class ScriptedParticipant:
     onsets: dict[int, float] = field(default_factory=dict)
     trial_ends: list[dict[str, Any]] = field(default_factory=list)
     pauses: list[bool] = field(default_factory=list)
+    storage: list[str | None] = field(default_factory=list)
+    at_stimulus: Callable[[int], None] | None = None
 
     def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
         press = self.presenter.press
@@ -180,7 +184,9 @@ class ScriptedParticipant:
         elif kind == "pause":
             press(t + self.pause_s, "p")
         elif kind == "stimulus" and trial is not None:
-            self.onsets[trial.trial] = t
+            self.onsets.setdefault(trial.trial, t)
+            if self.at_stimulus is not None:
+                self.at_stimulus(trial.trial)
             if plan.pause_during:
                 press(t + plan.rt_s / 2, "p")
             if plan.action in ("abort", "cancel-abort"):
@@ -203,7 +209,7 @@ class ScriptedParticipant:
         self.pauses.append(paused)
 
     def on_storage(self, problem: str | None, engine: Engine) -> None:
-        return None
+        self.storage.append(problem)
 
     def on_trial_end(self, row: dict[str, Any], engine: Engine) -> None:
         self.trial_ends.append(row)
@@ -230,14 +236,18 @@ class Session:
         return {r["trial"]: r["record"] for r in self.events("trial_end")}
 
 
-def run_session(tmp_path: Path, plans: dict[int, Plan] | None = None) -> Session:
+def run_session(
+    tmp_path: Path,
+    plans: dict[int, Plan] | None = None,
+    at_stimulus: Callable[[int], None] | None = None,
+) -> Session:
     """Run the mini protocol's whole session on the fake presenter and virtual clock."""
     loaded = load_protocol(MINI_PROTOCOL)
     schedule = build_schedule(loaded, "P01", "1")
     clock = VirtualClock()
     presenter = FakePresenter(clock)
     markers = FakeMarkers()
-    participant = ScriptedParticipant(presenter, plans or {})
+    participant = ScriptedParticipant(presenter, plans or {}, at_stimulus=at_stimulus)
     folder = tmp_path / "session"
     journal = Journal.create(folder, {"study": loaded.model.study})
     engine = Engine(
@@ -384,3 +394,40 @@ def test_cancelled_abort_goes_on_and_marks_the_trial(tmp_path):
     assert rows[2]["interrupted"] == 0
     assert len(s.events("abort_cancelled")) == 1
     assert rows[3]["rt_ms"] == pytest.approx(1250.0, abs=1e-6)
+
+
+def test_storage_failure_pauses_the_session_and_journals_the_pause_afterwards(
+    tmp_path, monkeypatch
+):
+    """Failed journal writes at trial 3's onset pause it; once writing works the pause is journaled."""
+    real_write = os.write
+    failures = {"left": 0, "armed": False}
+
+    def flaky(fd: int, data: Any) -> int:
+        if failures["left"]:
+            failures["left"] -= 1
+            raise OSError(28, "No space left on device")
+        return real_write(fd, data)
+
+    def arm(trial: int) -> None:
+        if trial == 3 and not failures["armed"]:
+            failures.update(left=3, armed=True)
+
+    monkeypatch.setattr(os, "write", flaky)
+    s = run_session(tmp_path, at_stimulus=arm)
+    monkeypatch.undo()
+    read = read_journal(s.folder / "journal.jsonl")
+    assert not read.chain_errors and not read.torn_tail
+    (start,) = s.events("pause_start")
+    (end,) = s.events("pause_end")
+    assert start["reason"] == end["reason"] == "storage"
+    assert "No space left on device" in start["message"]
+    # Three failed attempts, each followed by a one-second wait on the virtual clock.
+    assert end["paused_s"] == pytest.approx(3.0, abs=1.0 / HZ + 1e-9)
+    assert s.participant.storage == [start["message"], None]
+    rows = s.rows()
+    assert sorted(rows) == [1, 2, 3, 4, 5]
+    assert rows[3]["interrupted"] == 1 and rows[2]["interrupted"] == 0
+    onset = s.participant.onsets[3]
+    assert rows[3]["onset_lsl"] == onset
+    assert rows[3]["rt_ms"] == pytest.approx((end["t"] + 1.25 - onset) * 1000, abs=1e-6)
