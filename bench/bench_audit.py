@@ -55,7 +55,7 @@ def make_protocol(folder: Path, trials: int) -> Path:
 
 
 def run_pilot(protocol: Path, out: Path) -> Path:
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.protocol.load import load_protocol
     from runner.session.console import Console
     from runner.session.run import RunOptions, run_session

@@ -24,7 +24,7 @@ sys.path.insert(0, str(REPO))
 
 import pygame  # noqa: E402
 
-from runner.present.screen import display_for  # noqa: E402
+from runner.present.display import display_for  # noqa: E402
 from runner.protocol.load import load_protocol  # noqa: E402
 from runner.session.views import StimulusView  # noqa: E402
 

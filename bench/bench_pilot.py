@@ -33,7 +33,7 @@ os.environ["LSLAPICFG"] = str(LSL_CFG)
 
 import pylsl  # noqa: E402
 
-from runner.present.screen import display_for  # noqa: E402
+from runner.present.display import display_for  # noqa: E402
 from runner.protocol.load import load_protocol  # noqa: E402
 from runner.session.console import Console  # noqa: E402
 from runner.session.journal import read_journal  # noqa: E402

@@ -167,9 +167,5 @@ class DisplayError(TrialdeckError):
     """The display cannot be opened or does not behave as the protocol requires."""
 
 
-class SessionAborted(TrialdeckError):
-    """The experimenter confirmed an abort. The journal and trials.csv were written first."""
-
-
 class RecordingError(TrialdeckError):
     """An XDF recording cannot be read or does not hold the expected streams."""

@@ -48,7 +48,7 @@ def run_pilot(
     **options,
 ):
     """Run a headless pilot in this process and return its RunResult (test helper)."""
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.protocol.load import load_protocol
     from runner.session.console import Console
     from runner.session.run import RunOptions, run_session

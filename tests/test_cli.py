@@ -77,6 +77,7 @@ def test_missing_protocol_file(tmp_path, capsys):
     assert code == 1 and "does not exist" in text and "Traceback" not in text
 
 
+@pytest.mark.slow
 def test_python_dash_m_runner_works():
     """`python -m runner --version` runs the same command line as the console script."""
     env = dict(os.environ)

@@ -42,6 +42,7 @@ def test_readme_has_exactly_two_quick_start_commands_and_ci_runs_the_test_one():
         ("runner.data.summary", ("pygame", "pylsl")),
     ],
 )
+@pytest.mark.slow
 def test_layers_import_without_heavy_edges(module, forbidden):
     """Pure layers import without pygame (and without pylsl outside the marker module)."""
     code = (

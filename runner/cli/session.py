@@ -103,7 +103,7 @@ def run_one_session(
             raise UsageError(
                 "there is no display here, so a live session cannot be shown; use `trialdeck pilot` for a headless pilot."
             )
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
 
     loaded = load_protocol(protocol)
     pause_key = getattr(args, "pause_key", "p")

@@ -158,9 +158,9 @@ def run_selftest(
     protocol: Path | None = None, *, seconds: float = DEFAULT_SECONDS, fullscreen: bool = True
 ) -> SelftestReport:
     """Measure the display, input and marker timing of this machine (see the module docstring)."""
+    from runner.present.display import Display, display_for, headless
     from runner.present.images import ImageCache
-    from runner.present.screen import Display, display_for, headless
-    from runner.present.screens import Style
+    from runner.present.painter import Style
     from runner.session.markers import (
         MarkerOutlet,
         local_clock,

@@ -21,8 +21,9 @@ then looks at what the session will show:
 Screen luminance is computed analytically from colours and areas: the background, the stimulus
 image in its rectangle, the photodiode patch and the fixation cross. Text and the thin outlines
 of answer and rating boxes are left out; they cover a few percent of the screen, far below the
-10% luminance change that makes a flash. This module imports neither pygame nor the session
-layer.
+10% luminance change that makes a flash. This module imports no pygame: the screen measures it
+shares with the painter (fixation cross, photodiode patch, rating display time) come from the
+pure :mod:`runner.session.views`, so the two cannot drift apart.
 """
 
 from __future__ import annotations
@@ -49,6 +50,15 @@ from runner.protocol.report import problem_at
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial, build_schedule, derive_seed
 from runner.protocol.sizes import stimulus_box
 
+# The screen measures the painter draws with (pure data: no pygame, no pylsl).
+from runner.session.views import (
+    PATCH_OFF,
+    PATCH_ON,
+    RATING_SHOW_CHOICE_S,
+    fixation_rects,
+    photodiode_rect,
+)
+
 __all__ = [
     "CheckReport",
     "LengthEstimate",
@@ -60,18 +70,6 @@ __all__ = [
 
 #: Per kind of finding, at most this many lines name single rows; one more line gives the rest.
 MAX_LISTED = 10
-#: The chosen rating stays lit this long before the next screen; the same value as
-#: ``runner.session.engine.RATING_SHOW_CHOICE_S`` (a test keeps the two equal: this layer must
-#: not import the session layer).
-RATING_SHOW_CHOICE_S = 0.15
-#: Fixation cross geometry, as drawn by ``runner.present.screens`` (a test keeps them equal).
-FIXATION_ARM_FRACTION = 0.012
-FIXATION_THICKNESS_FRACTION = 0.003
-FIXATION_MIN_ARM_PX = 6
-FIXATION_MIN_THICKNESS_PX = 2
-#: The photodiode patch is white during the stimulus and black otherwise.
-PATCH_ON = "#ffffff"
-PATCH_OFF = "#000000"
 #: A stimulus shown this much below the requested size (in pixels) is reported.
 SIZE_SLACK_PX = 1
 SECONDS_PER_MINUTE = 60.0
@@ -188,23 +186,12 @@ def _patch_rect(model: Protocol) -> tuple[float, float, float, float] | None:
     pd = model.photodiode
     if pd is None:
         return None
-    w, h = model.screen.resolution
-    s = pd.size_px
-    x = 0 if pd.corner.endswith("left") else w - s
-    y = 0 if pd.corner.startswith("top") else h - s
-    return (x, y, s, s)
+    return photodiode_rect(model.screen.resolution, pd.corner, pd.size_px)
 
 
 def _fixation_patches(model: Protocol) -> list[tuple[tuple[float, float, float, float], str]]:
-    w, h = model.screen.resolution
-    arm = max(FIXATION_MIN_ARM_PX, round(h * FIXATION_ARM_FRACTION))
-    thick = max(FIXATION_MIN_THICKNESS_PX, round(h * FIXATION_THICKNESS_FRACTION))
-    cx, cy = w // 2, h // 2
     colour = model.screen.text_colour
-    return [
-        ((cx - arm, cy - thick // 2, 2 * arm + 1, thick), colour),
-        ((cx - thick // 2, cy - arm, thick, 2 * arm + 1), colour),
-    ]
+    return [(rect, colour) for rect in fixation_rects(model.screen.resolution)]
 
 
 @dataclass(frozen=True)

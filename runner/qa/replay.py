@@ -2,7 +2,7 @@
 
 Every flip the engine made is journaled with the view it drew (``flip`` lines). A replay rebuilds
 those views with :func:`runner.session.views.view_from_dict` and draws them with the same
-presenter (:class:`runner.present.screen.Display` and its :class:`~runner.present.screens.Painter`),
+presenter (:class:`runner.present.display.Display` and its :class:`~runner.present.painter.Painter`),
 so replayed frames match the live ones pixel for pixel.
 
 Two ways to replay:
@@ -32,7 +32,7 @@ import zlib
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from runner.errors import InputFileError, ProtocolError
 from runner.protocol.model import Protocol
@@ -41,6 +41,10 @@ from runner.qa.audit import FROZEN_PROTOCOL, HashCache, verify_chain
 from runner.session.journal import JOURNAL_NAME
 from runner.session.views import StimulusView, View, view_from_dict
 
+if TYPE_CHECKING:
+    from runner.present.contact_sheet import ContactSheet
+    from runner.present.display import Display
+
 __all__ = [
     "CONTACT_SHEET",
     "ReplayPlan",
@@ -48,18 +52,10 @@ __all__ = [
     "ReplayScreen",
     "plan_replay",
     "replay_session",
-    "write_contact_sheet",
     "write_png",
-    "ContactSheet",
 ]
 
 CONTACT_SHEET = "contact-sheet.png"
-SHEET_COLUMNS = 10
-SHEET_THUMB_W = 192
-SHEET_LABEL_PX = 14
-SHEET_PAD = 6
-SHEET_BACKGROUND = (32, 32, 32)
-SHEET_TEXT = (230, 230, 230)
 # Before each timed flip, input is polled until this many refresh intervals before it, so Escape
 # is seen within a frame while the flip still lands on time.
 POLL_LEAD_INTERVALS = 1.0
@@ -77,7 +73,7 @@ PNG_RGB8 = (
     0,
     0,
 )  # bit depth 8, colour type 2 (RGB), deflate, adaptive filter, no interlace
-FRAME_NAME = "{index:05d}-{view}.png"  # as runner.present.screen.Display.save_frame names them
+FRAME_NAME = "{index:05d}-{view}.png"  # as runner.present.display.Display.save_frame names them
 
 
 @dataclass(frozen=True)
@@ -109,7 +105,7 @@ class ReplayPlan:
 
 @dataclass(frozen=True)
 class _ModelOnly:
-    """What :func:`runner.present.screen.display_for` reads from a loaded protocol: its model."""
+    """What :func:`runner.present.display.display_for` reads from a loaded protocol: its model."""
 
     model: Protocol
 
@@ -318,7 +314,8 @@ def replay_session(
     -------
     ReplayResult
     """
-    from runner.present.screen import display_for
+    from runner.present.contact_sheet import write_contact_sheet
+    from runner.present.display import display_for
     from runner.session.markers import local_clock
 
     frames = None if frames_dir is None else Path(frames_dir)
@@ -377,37 +374,37 @@ def replay_session(
 
 
 def _draw_untimed(
-    plan: ReplayPlan, display: Any, frames: Path | None
+    plan: ReplayPlan, display: Display, frames: Path | None
 ) -> tuple[list[Path], ContactSheet | None]:
     """Draw every screen as fast as possible; save each distinct one and its thumbnail.
 
-    The drawing is the presenter's own (``display.painter`` on ``display.surface``), so the
+    The drawing is the presenter's own (:meth:`runner.present.display.Display.draw`), so the
     pixels are the live ones; a screen is saved when it differs from the last saved one, the
-    rule :meth:`runner.present.screen.Display.show` follows.
+    rule :meth:`runner.present.display.Display.show` follows.
     """
-    import pygame
+    from runner.present.contact_sheet import ContactSheet
 
     if frames is None:
         for s in plan.screens:
-            display.painter.draw(display.surface, s.view, photodiode=s.photodiode)
+            display.draw(s.view, photodiode=s.photodiode)
         return [], None
     frames.mkdir(parents=True, exist_ok=True)
-    size = display.surface.get_size()
+    size = display.size
     sheet = ContactSheet(size)
     written: list[Path] = []
-    pending: list[Future[None]] = []
+    pending: list[Future[Path]] = []
     last: View | None = None
     with ThreadPoolExecutor(max_workers=PNG_WORKERS) as pool:
         for s in plan.screens:
-            display.painter.draw(display.surface, s.view, photodiode=s.photodiode)
+            display.draw(s.view, photodiode=s.photodiode)
             if s.view == last:
                 continue
             last = s.view
             path = frames / FRAME_NAME.format(index=len(written) + 1, view=type(s.view).__name__)
-            rgb = pygame.image.tobytes(display.surface, "RGB")
+            rgb = display.pixels()
             pending.append(pool.submit(write_png, path, rgb, size))
             trial = f" t{s.trial}" if s.trial is not None else ""
-            sheet.add(display.surface, f"{len(written) + 1} {s.kind}{trial}")
+            sheet.add(rgb, f"{len(written) + 1} {s.kind}{trial}")
             written.append(path)
         for job in pending:
             job.result()  # re-raises a failed write here, with its own message
@@ -459,53 +456,6 @@ def write_png(path: Path, rgb: bytes, size: tuple[int, int], *, level: int = PNG
     return path
 
 
-class ContactSheet:
-    """A grid of small copies of screens, with a caption under each, built as frames are drawn."""
-
-    def __init__(
-        self,
-        frame_size: tuple[int, int],
-        *,
-        columns: int = SHEET_COLUMNS,
-        thumb_width: int = SHEET_THUMB_W,
-    ):
-        import pygame
-
-        pygame.font.init()
-        w, h = frame_size
-        self.tw, self.th = thumb_width, max(1, round(h * thumb_width / w))
-        self.columns = columns
-        self.font = pygame.font.Font(None, SHEET_LABEL_PX + 4)
-        self.cells: list[tuple[Any, Any]] = []
-
-    def add(self, surface: Any, label: str) -> None:
-        """Add a thumbnail of ``surface`` (a pygame surface of the frame size) and its caption."""
-        import pygame
-
-        thumb = pygame.transform.smoothscale(surface, (self.tw, self.th))
-        self.cells.append((thumb, self.font.render(label, True, SHEET_TEXT)))
-
-    def save(self, out: Path) -> Path:
-        """Write the sheet to ``out`` (PNG) and return it."""
-        import pygame
-
-        if not self.cells:
-            raise InputFileError("there are no frames to put on a contact sheet.")
-        cell_w, cell_h = self.tw + SHEET_PAD, self.th + SHEET_LABEL_PX + 2 * SHEET_PAD
-        cols = max(1, min(self.columns, len(self.cells)))
-        rows = math.ceil(len(self.cells) / cols)
-        sheet = pygame.Surface((cols * cell_w + SHEET_PAD, rows * cell_h + SHEET_PAD))
-        sheet.fill(SHEET_BACKGROUND)
-        for i, (thumb, text) in enumerate(self.cells):
-            x = SHEET_PAD + (i % cols) * cell_w
-            y = SHEET_PAD + (i // cols) * cell_h
-            sheet.blit(thumb, (x, y))
-            sheet.blit(text, (x, y + self.th + 2))
-        out.parent.mkdir(parents=True, exist_ok=True)
-        pygame.image.save(sheet, str(out))
-        return out
-
-
 def _labels(screens: list[ReplayScreen], written: list[Path]) -> list[str]:
     """A caption per saved frame: its number, screen kind and trial."""
     kinds: list[ReplayScreen] = []
@@ -523,43 +473,3 @@ def _labels(screens: list[ReplayScreen], written: list[Path]) -> list[str]:
             trial = f" t{s.trial}" if s.trial is not None else ""
             out.append(f"{i + 1} {s.kind}{trial}")
     return out
-
-
-def write_contact_sheet(
-    frames: list[Path],
-    out: Path,
-    *,
-    labels: list[str] | None = None,
-    columns: int = SHEET_COLUMNS,
-    thumb_width: int = SHEET_THUMB_W,
-) -> Path:
-    """Write a grid of small copies of ``frames`` (PNG files) to ``out`` (PNG).
-
-    Parameters
-    ----------
-    frames : list of Path
-        The frame images, in order.
-    out : Path
-        The contact sheet to write.
-    labels : list of str, optional
-        A caption under each thumbnail (default: the file names).
-    columns, thumb_width : int
-        Grid columns and thumbnail width in pixels.
-
-    Returns
-    -------
-    Path
-        ``out``.
-    """
-    import pygame
-
-    if not frames:
-        raise InputFileError("there are no frames to put on a contact sheet.")
-    pygame.font.init()
-    first = pygame.image.load(str(frames[0]))
-    sheet = ContactSheet(first.get_size(), columns=columns, thumb_width=thumb_width)
-    captions = labels if labels is not None else [p.stem for p in frames]
-    for i, path in enumerate(frames):
-        img = first if i == 0 else pygame.image.load(str(path))
-        sheet.add(img, captions[i] if i < len(captions) else path.stem)
-    return sheet.save(out)

@@ -13,11 +13,16 @@ from __future__ import annotations
 
 import statistics
 import time
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from rich.console import Console as RichConsole
 from rich.live import Live
 from rich.table import Table
+
+if TYPE_CHECKING:
+    from runner.protocol.schedule import ScheduledTrial
+    from runner.session.engine import Engine
+    from runner.session.views import View
 
 SAFETY_REMINDER = (
     "Before you start: the participant has given informed consent under your ethics approval, "
@@ -62,7 +67,7 @@ class Console:
         self.live = live
         self.pause_key = pause_key
         self._live: Live | None = None
-        self._engine: Any = None
+        self._engine: Engine | None = None
         self._last_rt: float | None = None
         self._t0 = time.monotonic()
         self._note = ""
@@ -96,7 +101,7 @@ class Console:
         if self._live is not None:
             self._live.update(self.panel())
 
-    def status(self, engine: Any | None = None) -> dict[str, str]:
+    def status(self, engine: Engine | None = None) -> dict[str, str]:
         """The panel's rows as plain text (also used by tests)."""
         engine = engine or self._engine
         if engine is None:
@@ -126,7 +131,7 @@ class Console:
             "unsure": f"{100 * st.unsure / max(1, len(st.done_trials)):.0f}%",
             "last response": "-" if self._last_rt is None else f"{self._last_rt / 1000:.2f} s",
             "recorder": recorder[st.recorder_connected],
-            "late flips": str(getattr(engine.view, "late_flips", 0)),
+            "late flips": str(engine.presenter.late_flips),
             "note": self._note or "-",
         }
 
@@ -140,18 +145,18 @@ class Console:
         return table
 
     # -- engine observer hooks ---------------------------------------------------------------------
-    def on_view(self, kind: str, t: float, trial: Any, view: Any) -> None:
+    def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
         if self._live is not None:
             self._refresh()
 
-    def on_pause(self, paused: bool, engine: Any) -> None:
+    def on_pause(self, paused: bool, engine: Engine) -> None:
         self._engine = engine
         if self._live is not None:
             self._refresh()
         elif not self.quiet:
             self.info("Session paused." if paused else "Session goes on.")
 
-    def on_storage(self, problem: str | None, engine: Any) -> None:
+    def on_storage(self, problem: str | None, engine: Engine) -> None:
         self._engine = engine
         if problem is not None:
             self.warn(
@@ -163,7 +168,7 @@ class Console:
             self.info("Writing works again; the session goes on.")
         self._refresh()
 
-    def on_trial_end(self, row: dict[str, Any], engine: Any) -> None:
+    def on_trial_end(self, row: dict[str, Any], engine: Engine) -> None:
         self._engine = engine
         self._last_rt = row.get("rt_ms")
         if self._live is not None:
@@ -177,7 +182,7 @@ class Console:
         unsure = f"{100 * st.unsure / max(1, len(st.done_trials)):.0f}%"
         rt = "-" if row.get("rt_ms") is None else f"{row['rt_ms'] / 1000:.2f} s"
         rec = {True: "recorder on", False: "NO RECORDER", None: "recorder ?"}[st.recorder_connected]
-        late = getattr(engine.view, "late_flips", 0)
+        late = engine.presenter.late_flips
         left = format_duration(remaining_estimate(st.trial_seconds, engine.total_trials - done))
         self.out.print(
             f"trial {row['trial']:>3}/{engine.total_trials}  {row['part']:<8} {row['block']:<10} "

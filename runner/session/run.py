@@ -40,11 +40,11 @@ from runner.protocol.schedule import Schedule, build_schedule
 from runner.session.engine import AbortRequested, Engine
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
 from runner.session.markers import MarkerOutlet, local_clock, make_source_id, station_name
+from runner.session.ports import ConsoleLike, Observer, Presenter
 from runner.session.records import write_trials_csv
 from runner.session.resume import ResumePlan, SessionComplete, plan_resume, schedule_summary
 from runner.session.simulate import SimulatedParticipant
 from runner.session.triggers import SerialTriggers, trigger_map
-from runner.session.views import Presenter
 
 FROZEN_PROTOCOL = "protocol.yaml"
 FROZEN_TABLE = "trial_table.csv"
@@ -85,14 +85,6 @@ class RunResult:
     push_delays_us: list[float] = field(default_factory=list)
     sim_posts: list[tuple[str, float, float]] = field(default_factory=list)
     error: BaseException | None = None
-
-
-class ConsoleLike:
-    """What the session needs from the experimenter console (see runner.session.console)."""
-
-    def info(self, text: str) -> None: ...
-
-    def warn(self, text: str) -> None: ...
 
 
 def session_folder(out: Path, study: str, participant: str, session: str) -> Path:
@@ -154,9 +146,9 @@ def _header(
             "resolution": list(model.screen.resolution),
             "refresh_hz": model.screen.refresh_hz,
             "interval_s": presenter.interval,
-            "flips_block": bool(getattr(presenter, "blocking", False)),
-            "frame_clock": "paced" if getattr(presenter, "paced", True) else "vsync",
-            "stimulus_box": list(getattr(presenter, "stimulus_rect", (0, 0, 0, 0))[2:]),
+            "flips_block": bool(presenter.blocking),
+            "frame_clock": "paced" if presenter.paced else "vsync",
+            "stimulus_box": [presenter.stimulus_rect.width, presenter.stimulus_rect.height],
             "video_driver": _video_driver(),
         },
         "markers": outlet.details.as_dict(),
@@ -215,7 +207,7 @@ def check_writable(out: Path, *, min_free: int = MIN_FREE_BYTES) -> None:
 
 def _check_display(presenter: Presenter, opts: RunOptions, console: ConsoleLike) -> dict[str, Any]:
     """Apply the refresh check to this run: refuse, warn, or note the paced frame clock."""
-    check = getattr(presenter, "refresh", None)
+    check = presenter.refresh
     if check is None:
         return {"decision": "not measured"}
     info: dict[str, Any] = {"refresh": check.as_dict()}
@@ -312,7 +304,7 @@ def run_session(
     *,
     open_presenter: Callable[[], Presenter],
     console: ConsoleLike,
-    observers: list[Any] | None = None,
+    observers: list[Observer] | None = None,
 ) -> RunResult:
     """Run one session from start to closed journal and trials.csv. See the module docstring."""
     check_pause_key(loaded, opts.pause_key)
@@ -395,7 +387,7 @@ def run_session(
                 f" session goes on at attempt {plan.attempt}."
             )
         _freeze(loaded, folder)
-        all_observers = list(observers or [])
+        all_observers: list[Observer] = list(observers or [])
         if opts.mode == "pilot":
             ans = loaded.model.answer
             sim = SimulatedParticipant(
@@ -440,7 +432,8 @@ def run_session(
             triggers=triggers,
             resume_attempt=plan.attempt if plan is not None and plan.attempt > 1 else None,
         )
-        status, error = "completed", None
+        status = "completed"
+        error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
         # after a flip or key press when another thread (the simulated participant) is running.
         old_switch = sys.getswitchinterval()
@@ -492,7 +485,7 @@ def run_session(
             status=status,
             trials_done=len(engine.state.done_trials | engine.skip),
             trials_total=engine.total_trials,
-            late_flips=int(getattr(presenter, "late_flips", 0)),
+            late_flips=int(presenter.late_flips),
             attempt=plan.attempt if plan is not None else 1,
             timing=timing,
             push_delays_us=engine.push_delays_us,

@@ -18,9 +18,13 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
 
 from runner.protocol.schedule import ScheduledTrial
-from runner.session.views import View
+from runner.session.views import PageView, View
+
+if TYPE_CHECKING:
+    from runner.session.engine import Engine
 
 PAGE_READ_S = 1.2
 FRESH_SCREENS = frozenset({"page", "fixation", "answer", "rating", "break-ready"})
@@ -203,10 +207,12 @@ class SimulatedParticipant:
             # limit ended viewing), so they cannot leak into the next trial.
             self.keys.clear()
         if kind == "page":
-            self.keys.at(t + self._s(PAGE_READ_S), getattr(view, "key", "space") or "space")
+            key = view.key if isinstance(view, PageView) else ""
+            self.keys.at(t + self._s(PAGE_READ_S), key or "space")
         elif kind == "break-ready":
             # The break's minimum is over and the screen says so: go on after a moment.
-            self.keys.at(t + self._s(BREAK_EXTRA_S), getattr(view, "key", None) or "space")
+            # BreakView does not carry the break's key: the default key, the space bar, is pressed.
+            self.keys.at(t + self._s(BREAK_EXTRA_S), "space")
         elif kind == "pause":
             self.keys.at(t + self._s(self.pause_s), self.pause_key)
         elif kind == "stimulus" and trial is not None:
@@ -225,18 +231,24 @@ class SimulatedParticipant:
             else:
                 self._type(t + rt, plan)
         elif kind == "answer" and trial is not None:
-            plan = self.plans.get(trial.trial)
-            if plan is not None:
-                self._type(t + self._s(0.5), plan)
+            planned = self.plans.get(trial.trial)
+            if planned is not None:
+                self._type(t + self._s(0.5), planned)
         elif kind == "rating" and trial is not None:
-            plan = self.plans.get(trial.trial)
-            if plan is not None:
-                self._rate(t + self._s(RATING_RT_S), plan.rating)
+            planned = self.plans.get(trial.trial)
+            if planned is not None:
+                self._rate(t + self._s(RATING_RT_S), planned.rating)
 
-    def on_storage(self, problem: str | None, engine: object) -> None:
+    def on_pause(self, paused: bool, engine: Engine) -> None:
+        """The experimenter's pause needs nothing: the pause page itself is answered in on_view."""
+
+    def on_storage(self, problem: str | None, engine: Engine) -> None:
         """While the session is paused for storage, keys already planned are dropped."""
         if problem is not None:
             self.keys.clear()
+
+    def on_trial_end(self, row: dict[str, Any], engine: Engine) -> None:
+        """Nothing to do: the next trial's screens bring their own plans."""
 
     def extra_row(self, trial: ScheduledTrial) -> dict[str, float | None]:
         """The pilot-only trials.csv column: the intended response time in ms."""

@@ -1,15 +1,54 @@
 """What each screen shows, as plain data.
 
 The engine decides *what* is on the screen with these small records; the presenter
-(:mod:`runner.present.screens`) decides *how* it looks. Replay rebuilds the same records from the
+(:mod:`runner.present.painter`) decides *how* it looks. Replay rebuilds the same records from the
 journal and hands them to the same presenter, so replayed frames match the live ones pixel for
-pixel. Nothing here imports pygame.
+pixel. The few measures that both the painter and the protocol check need (the fixation cross, the
+photodiode patch, how long a chosen rating stays lit) are defined here, once. Nothing here imports
+pygame, so the check can use them too.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Protocol
+
+Rect = tuple[int, int, int, int]  # left, top, width, height in screen pixels
+
+#: The chosen rating box stays lit this long (seconds), so the choice is seen.
+RATING_SHOW_CHOICE_S = 0.15
+#: The fixation cross: half-length of an arm and bar thickness as shares of the screen height,
+#: with a minimum in pixels each.
+FIXATION_ARM_FRACTION = 0.012
+FIXATION_THICKNESS_FRACTION = 0.003
+FIXATION_MIN_ARM_PX = 6
+FIXATION_MIN_THICKNESS_PX = 2
+#: The photodiode patch is white during the stimulus and black otherwise.
+PATCH_ON = "#ffffff"
+PATCH_OFF = "#000000"
+
+
+def fixation_rects(size: tuple[int, int]) -> tuple[Rect, Rect]:
+    """The fixation cross's horizontal and vertical bars on a screen of ``size`` pixels.
+
+    The painter fills them with the text colour; the protocol check counts them in the fixation
+    screen's luminance. Both take them from here.
+    """
+    w, h = size
+    arm = max(FIXATION_MIN_ARM_PX, round(h * FIXATION_ARM_FRACTION))
+    thick = max(FIXATION_MIN_THICKNESS_PX, round(h * FIXATION_THICKNESS_FRACTION))
+    cx, cy = w // 2, h // 2
+    return (
+        (cx - arm, cy - thick // 2, 2 * arm + 1, thick),
+        (cx - thick // 2, cy - arm, thick, 2 * arm + 1),
+    )
+
+
+def photodiode_rect(size: tuple[int, int], corner: str, side: int) -> Rect:
+    """The photodiode patch: a ``side``-pixel square in ``corner`` (e.g. 'top-left')."""
+    w, h = size
+    x = 0 if corner.endswith("left") else w - side
+    y = 0 if corner.startswith("top") else h - side
+    return (x, y, side, side)
 
 
 @dataclass(frozen=True)
@@ -130,35 +169,3 @@ class KeyHit:
     key: str
     t: float
     pos: tuple[int, int] | None = None  # for 'click': where the mouse button went down
-
-
-class Presenter(Protocol):
-    """What the engine needs from a display. The pygame implementation is runner.present.screen."""
-
-    interval: float
-
-    def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
-        """Draw ``view`` and flip at (or just after) ``at``; return the time right after the flip."""
-        ...
-
-    def prepare(self, stimulus: str) -> None:
-        """Decode and scale a stimulus now, so its onset later does not wait on the disk."""
-        ...
-
-    def wait_key(self, accept: frozenset[str] | None, deadline: float | None) -> KeyHit | None:
-        """Poll input until a key in ``accept`` (any key when None) or 'escape'; None at deadline."""
-        ...
-
-    def rating_at(self, view: RatingView, pos: tuple[int, int]) -> int | None:
-        """The rating whose box holds a mouse position, or None."""
-        ...
-
-    def post_key(self, key: str) -> float:
-        """Inject a key press through the real input path now; return the time it was posted."""
-        ...
-
-    def drain(self) -> None:
-        """Drop pending input."""
-        ...
-
-    def close(self) -> None: ...

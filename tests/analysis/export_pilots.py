@@ -22,7 +22,7 @@ _MADE: dict[Path, Path] = {}
 
 def run_pilot(out: Path, *, participant: str, session: str = "1", **options: Any) -> None:
     """One headless pilot of the tiny protocol, through the same calls as `trialdeck pilot`."""
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.protocol.load import load_protocol
     from runner.session.console import Console
     from runner.session.run import RunOptions, run_session

@@ -30,6 +30,8 @@ from runner.session.journal import JOURNAL_NAME, read_journal
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "qa"))
 from xdfwrite import FixtureStream, write_xdf  # noqa: E402
 
+pytestmark = pytest.mark.slow  # runs sessions in real time
+
 NA = "n/a"
 RECORDER_OFFSET_S = 5.25  # recorder clock minus presenter clock in the XDF fixture
 EEG_SRATE = 250.0

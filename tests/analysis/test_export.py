@@ -54,6 +54,7 @@ def _csv(path: Path) -> list[dict[str, str]]:
         return list(csv.DictReader(fh))
 
 
+@pytest.mark.slow
 def test_pooled_table_agrees_with_each_sessions_trials_csv(pilots, exported):
     """Every cell of the pooled table equals the engine's per-session trials.csv for that trial.
 
@@ -79,6 +80,7 @@ def test_pooled_table_agrees_with_each_sessions_trials_csv(pilots, exported):
     assert seen == len(pooled)
 
 
+@pytest.mark.slow
 def test_pooled_columns_are_one_documented_order(pilots, exported):
     """The pooled header is contract, extra, table, pilot then context columns, in that order.
 
@@ -93,6 +95,7 @@ def test_pooled_columns_are_one_documented_order(pilots, exported):
     assert pooled_columns(load_sessions([pilots], decode=SUMMARY_EVENTS)) == expected
 
 
+@pytest.mark.slow
 def test_aborted_session_keeps_only_completed_trials_and_says_so(pilots):
     """An aborted pilot counts as aborted, its pooled rows are its completed trials only, and its
     cut-short trial appears in the events with completed 0 and an unknown end.
@@ -113,6 +116,7 @@ def test_aborted_session_keeps_only_completed_trials_and_says_so(pilots):
     assert bool(row["aborted"]) and row["n_trials"] == len(done)
 
 
+@pytest.mark.slow
 def test_session_length_is_start_to_end_in_the_journal(pilots):
     """duration_s is the session_end time minus the session_start time of the journal.
 
@@ -126,6 +130,7 @@ def test_session_length_is_start_to_end_in_the_journal(pilots):
 
 
 @pytest.mark.parametrize("decode", [None, EXPORT_EVENTS, SUMMARY_EVENTS])
+@pytest.mark.slow
 def test_fast_reader_returns_what_read_journal_returns(pilots, decode):
     """The export reader gives read_journal's records for decoded lines, and the same event,
     time and trial for the lines it does not decode.
@@ -176,6 +181,7 @@ def _drop_line(path: Path, n: int) -> None:
         (lambda p: _drop_line(p, 9), "line was removed"),
     ],
 )
+@pytest.mark.slow
 def test_damaged_journal_is_refused(pilots, tmp_path, damage, fragment):
     """An edited or shortened journal is not exported; the error names what broke.
 
@@ -187,6 +193,7 @@ def test_damaged_journal_is_refused(pilots, tmp_path, damage, fragment):
         load_session(folder)
 
 
+@pytest.mark.slow
 def test_torn_last_line_is_tolerated(pilots, tmp_path):
     """A journal whose last line was cut mid-write (a crash) exports its intact lines.
 
@@ -202,6 +209,7 @@ def test_torn_last_line_is_tolerated(pilots, tmp_path):
     assert len(session.trials) == 5
 
 
+@pytest.mark.slow
 def test_resumed_trial_counts_its_last_completion(pilots, tmp_path):
     """After a resume, the completed run of a trial replaces the interrupted one, in the pooled
     table and in the events, and the events number the attempts.
@@ -268,6 +276,7 @@ def test_task_label(study, task, expected):
         assert task_label(study, task) == expected
 
 
+@pytest.mark.slow
 def test_same_session_twice_is_refused(pilots, tmp_path):
     """Two folders holding one study, participant and session are refused before any writing.
 
@@ -278,6 +287,7 @@ def test_same_session_twice_is_refused(pilots, tmp_path):
         load_sessions([pilots, copy])
 
 
+@pytest.mark.slow
 def test_recording_count_must_match_sessions(pilots, tmp_path):
     """A --recording count other than the session count is a usage error, and nothing is written.
 
@@ -299,6 +309,7 @@ def test_missing_folder_is_named(tmp_path):
         find_session_folders([tmp_path / "empty"])
 
 
+@pytest.mark.slow
 def test_export_command_prints_what_it_wrote(pilots, tmp_path, capsys):
     """The export command writes the pooled table and one events file per session, exit code 0.
 
@@ -313,6 +324,7 @@ def test_export_command_prints_what_it_wrote(pilots, tmp_path, capsys):
     assert len(list((tmp_path / "e").glob("sub-*/ses-*/eeg/*_events.tsv"))) == 5
 
 
+@pytest.mark.slow
 def test_summary_command_renders_report_and_plots_from_real_pilots(pilots, tmp_path):
     """The summary of real pilots writes tables, PNG plots that decode, facts from the journals
     and a report.html with the plots inline.

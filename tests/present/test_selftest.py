@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import json
 
+import pytest
 from conftest import MINI_PROTOCOL
 
 from runner.cli import main
 from runner.present.selftest import run_selftest
+
+pytestmark = pytest.mark.slow  # measures the display, input and markers in real time
 
 
 def test_selftest_reports_every_figure_and_refuses_a_headless_display():

@@ -322,12 +322,27 @@ def test_json_output_lists_warnings_with_positions(tmp_path: Path, capsys) -> No
     assert all(f["line"] >= 2 for f in found if f["file"].endswith("table.csv"))
 
 
-def test_check_constants_match_the_engine_and_screens() -> None:
-    """The check's copies of engine and drawing constants equal the originals."""
-    from runner.present import screens
-    from runner.protocol import check
-    from runner.session import engine
+def test_fixation_screen_luminance_matches_the_painters_pixels(tmp_path: Path) -> None:
+    """The fixation screen's luminance (cross, patch off) equals that of the screen the painter draws.
 
-    assert check.RATING_SHOW_CHOICE_S == engine.RATING_SHOW_CHOICE_S
-    assert check.FIXATION_ARM_FRACTION == screens.FIXATION_ARM_FRACTION
-    assert check.FIXATION_THICKNESS_FRACTION == screens.FIXATION_THICKNESS_FRACTION
+    Source: WCAG 2.2 relative luminance, averaged per pixel over the fixation screen drawn by
+    runner.present.display under the SDL dummy driver (check and painter share one geometry).
+    """
+    from runner.present.display import display_for
+    from runner.protocol.load import load_protocol
+    from runner.session.views import FixationView
+
+    protocol = merged(
+        screen={"resolution": [640, 480], "refresh_hz": 60, "background": "#202020"},
+        photodiode={"corner": "bottom-left", "size_px": 40},
+    )
+    path = write_protocol(tmp_path, protocol)
+    report = check_protocol(path)
+    display = display_for(load_protocol(path), fullscreen=False)
+    try:
+        display.draw(FixationView())
+        rgb = np.frombuffer(display.pixels(), dtype=np.uint8).reshape(480, 640, 3)
+    finally:
+        display.close()
+    assert (rgb[440:, :40] == 0).all() and rgb[240, 320].tolist() != [0x20] * 3
+    assert report.luminance["fixation"] == pytest.approx(float(_wcag(rgb).mean()), abs=1e-9)

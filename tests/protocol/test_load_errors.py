@@ -600,6 +600,7 @@ SUBPROCESS_CASES = [c for c in CASES if c[0] in ("unknown key", "table: short ro
     [c[1:] for c in SUBPROCESS_CASES],
     ids=[c[0] for c in SUBPROCESS_CASES],
 )
+@pytest.mark.slow
 def test_malformed_input_through_a_real_process(
     tmp_path: Path,
     protocol: str | bytes,

@@ -7,12 +7,15 @@ import math
 from pathlib import Path
 
 import numpy as np
+import pytest
 from PIL import Image
 from protofix import merged, write_protocol
 
 from runner.cli import main
 from runner.protocol.latin import williams_rows
 from runner.session.journal import read_journal
+
+pytestmark = pytest.mark.slow  # runs sessions in real time
 
 SPEED = "25"
 

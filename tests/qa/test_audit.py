@@ -66,6 +66,7 @@ def _messages(audit, severity: str) -> list[str]:
 # Sessions without a recording
 
 
+@pytest.mark.slow
 def test_complete_pilot_is_sound(pilot, protocol_dir):
     """A completed pilot passes, with every scheduled trial completed once.
 
@@ -87,6 +88,7 @@ def test_complete_pilot_is_sound(pilot, protocol_dir):
     assert lines.index("Details") > 2
 
 
+@pytest.mark.slow
 def test_response_time_summary_matches_numpy(pilot):
     """The response-time summary equals numpy's percentiles of the journaled trial records.
 
@@ -100,6 +102,7 @@ def test_response_time_summary_matches_numpy(pilot):
     assert (got["min"], got["max"]) == (min(rts), max(rts))
 
 
+@pytest.mark.slow
 def test_fixation_timing_matches_whole_frames(pilot):
     """Fixation durations and their distance from the whole-frame request are measured right.
 
@@ -120,6 +123,7 @@ def test_fixation_timing_matches_whole_frames(pilot):
     assert fix["off_by_a_frame"] == sum(abs(e) > frame_ms / 2 for e in errors)
 
 
+@pytest.mark.slow
 def test_changed_stimulus_is_an_error(pilot, protocol_dir):
     """A stimulus file edited after the session fails the audit and is named."""
     stim = protocol_dir / "img" / "route2.png"
@@ -135,6 +139,7 @@ def test_changed_stimulus_is_an_error(pilot, protocol_dir):
     assert problem.file.endswith("route2.png")
 
 
+@pytest.mark.slow
 def test_edited_frozen_protocol_is_an_error(pilot, tmp_path):
     """An edit to the frozen protocol copy in the session folder fails the audit."""
     folder = _copy(pilot, tmp_path)
@@ -144,6 +149,7 @@ def test_edited_frozen_protocol_is_an_error(pilot, tmp_path):
     assert any("protocol.yaml differs" in m for m in _messages(audit, "error"))
 
 
+@pytest.mark.slow
 def test_missing_stimuli_are_a_warning(tmp_path, protocol_dir):
     """Stimuli that cannot be found (audit on another computer) are a warning, not an error."""
     src = _copy(protocol_dir, tmp_path, "proto")
@@ -154,6 +160,7 @@ def test_missing_stimuli_are_a_warning(tmp_path, protocol_dir):
     assert any("cannot be found" in m for m in _messages(audit, "warning"))
 
 
+@pytest.mark.slow
 def test_aborted_session_lists_trials_not_run(tmp_path, protocol_dir):
     """An experimenter abort is journaled: a warning names the trials that were not run."""
     result = run_pilot(protocol_dir / "mini.yaml", tmp_path, speed=20, abort_at=3)
@@ -167,7 +174,7 @@ def test_aborted_session_lists_trials_not_run(tmp_path, protocol_dir):
 
 def _resume(folder: Path, protocol: Path, *, speed: float = 20.0) -> None:
     """Continue an interrupted pilot session in the same journal (a second attempt)."""
-    from runner.present.screen import display_for
+    from runner.present.display import display_for
     from runner.session.engine import Engine
     from runner.session.markers import MarkerOutlet, local_clock
     from runner.session.records import trial_records, write_trials_csv
@@ -215,6 +222,7 @@ def _resume(folder: Path, protocol: Path, *, speed: float = 20.0) -> None:
     write_trials_csv(read_journal(folder / JOURNAL_NAME), folder)
 
 
+@pytest.mark.slow
 def test_crash_then_resume_is_sound(tmp_path, protocol_dir):
     """A crash mid-trial fails the audit; after a resume the interrupted trial is not a problem."""
     result = run_pilot(protocol_dir / "mini.yaml", tmp_path, speed=20)
@@ -242,6 +250,7 @@ def test_crash_then_resume_is_sound(tmp_path, protocol_dir):
     assert after.facts["trials"]["completed"] == 5
 
 
+@pytest.mark.slow
 def test_unknown_events_are_listed_not_failed(pilot, tmp_path):
     """Event kinds this audit does not know (from a newer trialdeck) are listed, not errors."""
     folder = _copy(pilot, tmp_path)
@@ -362,6 +371,7 @@ def _make_xdf(
     return write_xdf(path, streams)
 
 
+@pytest.mark.slow
 def test_complete_recording_fixture_reads_back_with_pyxdf(pilot, tmp_path):
     """The fixture holds every journaled marker at its flip time plus the clock offset.
 
@@ -377,6 +387,7 @@ def test_complete_recording_fixture_reads_back_with_pyxdf(pilot, tmp_path):
     )
 
 
+@pytest.mark.slow
 def test_complete_recording_passes(pilot, tmp_path):
     """Every journaled marker is matched with sub-microsecond residuals; EEG and gaze cover it.
 
@@ -399,6 +410,7 @@ def test_complete_recording_passes(pilot, tmp_path):
     assert "stream 3 'courier-gaze' (Gaze): nominal 120 Hz" in text
 
 
+@pytest.mark.slow
 def test_recording_missing_markers_fails(pilot, tmp_path):
     """Markers sent before the recorder connected are reported missing and fail the audit.
 
@@ -414,6 +426,7 @@ def test_recording_missing_markers_fails(pilot, tmp_path):
     )
 
 
+@pytest.mark.slow
 def test_duplicate_stream_after_restart_is_chosen_and_said(pilot, tmp_path):
     """With two marker streams of the same name and source_id, the one covering the session
     is chosen and the audit says which and why.
@@ -430,6 +443,7 @@ def test_duplicate_stream_after_restart_is_chosen_and_said(pilot, tmp_path):
     assert "chose stream 2" in note and "stream 1" in note
 
 
+@pytest.mark.slow
 def test_data_gap_in_eeg_fails(pilot, tmp_path):
     """A one-second hole in the EEG during the session is reported as a gap.
 
@@ -444,6 +458,7 @@ def test_data_gap_in_eeg_fails(pilot, tmp_path):
     assert any("courier-eeg" in m and "gap" in m for m in _messages(audit, "error"))
 
 
+@pytest.mark.slow
 def test_garbage_sample_from_closing_outlet_is_a_warning(pilot, tmp_path):
     """An empty last marker sample (outlet closed while recording) is reported, not fatal."""
     rec = read_recording(_make_xdf(pilot, tmp_path / "rec.xdf", garbage=True))
@@ -453,6 +468,7 @@ def test_garbage_sample_from_closing_outlet_is_a_warning(pilot, tmp_path):
     assert any("not a JSON object" in m for m in _messages(audit, "warning"))
 
 
+@pytest.mark.slow
 def test_journaled_markers_helper_matches_json(pilot):
     """journaled_markers gives the same (payload, t) list as reading the journal with json."""
     records = [(i, r) for i, r in enumerate(_raw_journal(pilot), start=1)]
@@ -469,6 +485,7 @@ def _args(*argv: str) -> argparse.Namespace:
     return p.parse_args(list(argv))
 
 
+@pytest.mark.slow
 def test_command_exit_codes_and_json(pilot, tmp_path, capsys):
     """`audit` exits 0 for a sound session, 1 when any session has errors; --json parses."""
     assert run_audit(_args(str(pilot))) == 0
@@ -483,6 +500,7 @@ def test_command_exit_codes_and_json(pilot, tmp_path, capsys):
     assert len(session["recording"]["markers"]["missing"]) == 2
 
 
+@pytest.mark.slow
 def test_several_sessions_summary_first(pilot, tmp_path):
     """Several sessions: one summary line each before any problem or detail line."""
     other = _copy(pilot, tmp_path)
@@ -494,6 +512,7 @@ def test_several_sessions_summary_first(pilot, tmp_path):
     assert any("trials.csv is missing" in line for line in lines)
 
 
+@pytest.mark.slow
 def test_audit_imports_without_pygame_or_pylsl():
     """The audit (and its command-line verb) import without pygame or pylsl, so it runs anywhere."""
     import subprocess

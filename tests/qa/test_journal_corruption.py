@@ -44,6 +44,7 @@ def _line_of(lines: list[bytes], event: str, nth: int = 0) -> int:
     return hits[nth]
 
 
+@pytest.mark.slow
 def test_intact_journal_passes(pilot, tmp_path):
     """An untouched pilot journal has an intact chain and the audit finds no error.
 
@@ -108,6 +109,7 @@ CORRUPTIONS = [
     CORRUPTIONS,
     ids=["truncated-mid-line", "one-line-edited", "one-line-removed", "two-lines-swapped"],
 )
+@pytest.mark.slow
 def test_corruption_is_named_at_its_line(
     pilot, tmp_path, corrupt, severity, fragment, is_chain_error
 ):
@@ -133,6 +135,7 @@ def test_corruption_is_named_at_its_line(
         assert read.torn_tail and not read.chain_errors
 
 
+@pytest.mark.slow
 def test_swapped_lines_names_both(pilot, tmp_path):
     """A swap names both exchanged lines, and the lines after them are not blamed."""
     folder = _copy(pilot, tmp_path)
@@ -142,6 +145,7 @@ def test_swapped_lines_names_both(pilot, tmp_path):
     assert f"lines {k} and {k + 1}" in problem.message
 
 
+@pytest.mark.slow
 def test_corrupt_journal_fails_the_audit(pilot, tmp_path):
     """An edited line makes the whole audit fail (exit 1), with the line in the problem list."""
     folder = _copy(pilot, tmp_path)
@@ -152,6 +156,7 @@ def test_corrupt_journal_fails_the_audit(pilot, tmp_path):
     assert any(p.line == k and "changed" in p.message for p in audit.errors)
 
 
+@pytest.mark.slow
 def test_torn_tail_is_a_warning_but_the_unfinished_session_is_an_error(pilot, tmp_path):
     """A crash mid-write is a warning on the chain; the missing trials are the audit's error."""
     folder = _copy(pilot, tmp_path)
@@ -166,6 +171,7 @@ def test_torn_tail_is_a_warning_but_the_unfinished_session_is_an_error(pilot, tm
     assert stopped[0].line == k - 1
 
 
+@pytest.mark.slow
 def test_appended_foreign_line_is_named(pilot, tmp_path):
     """A line added at the end without a valid chain link is named by its line number."""
     folder = _copy(pilot, tmp_path)

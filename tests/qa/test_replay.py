@@ -17,14 +17,8 @@ from conftest import TEST_DATA, run_pilot
 from runner.cli.replay import add_arguments as add_replay_arguments
 from runner.cli.replay import run as run_replay
 from runner.errors import InputFileError, UsageError
-from runner.qa.replay import (
-    CONTACT_SHEET,
-    SHEET_COLUMNS,
-    plan_replay,
-    replay_session,
-    write_contact_sheet,
-    write_png,
-)
+from runner.present.contact_sheet import SHEET_COLUMNS, write_contact_sheet
+from runner.qa.replay import CONTACT_SHEET, plan_replay, replay_session, write_png
 from runner.session.journal import JOURNAL_NAME
 
 
@@ -59,6 +53,7 @@ def _assert_same_pixels(live: list[Path], replayed: list[Path]) -> None:
         assert np.array_equal(pa, pb), f"{a.name} differs in {int((pa != pb).any(-1).sum())} px"
 
 
+@pytest.mark.slow
 def test_headless_frames_match_pilot_pixel_for_pixel(pilot, tmp_path):
     """Replayed frames equal the frames captured during the pilot, pixel for pixel.
 
@@ -75,6 +70,7 @@ def test_headless_frames_match_pilot_pixel_for_pixel(pilot, tmp_path):
     assert result.notes == []
 
 
+@pytest.mark.slow
 def test_every_journaled_flip_is_replayed(pilot):
     """The plan holds one screen per flip line of the journal, in order, typed answers included."""
     folder, _ = pilot
@@ -91,6 +87,7 @@ def test_every_journaled_flip_is_replayed(pilot):
     assert typed == want and typed
 
 
+@pytest.mark.slow
 def test_contact_sheet_has_one_cell_per_frame(pilot, tmp_path):
     """The contact sheet is a grid sized for every frame, and shows the frames (not blank)."""
     folder, _ = pilot
@@ -105,6 +102,7 @@ def test_contact_sheet_has_one_cell_per_frame(pilot, tmp_path):
     assert sheet[..., :3].std() > 0.05
 
 
+@pytest.mark.slow
 def test_moved_stimuli_found_with_stimuli_dir(tmp_path, protocol_dir):
     """When the live stimulus paths are gone, --stimuli DIR finds them and frames still match."""
     src = tmp_path / "proto"
@@ -123,6 +121,7 @@ def test_moved_stimuli_found_with_stimuli_dir(tmp_path, protocol_dir):
     _assert_same_pixels(_pngs(live_frames), _pngs(out))
 
 
+@pytest.mark.slow
 def test_timed_replay_keeps_recorded_timing(pilot):
     """A timed replay flips each screen at its recorded time divided by the speed, within a frame.
 
@@ -155,6 +154,7 @@ def _args(*argv: str) -> argparse.Namespace:
     return p.parse_args(list(argv))
 
 
+@pytest.mark.slow
 def test_command_headless_needs_frames(pilot):
     """Headless, `replay` without --frames is a usage error saying what to add."""
     folder, _ = pilot
@@ -162,6 +162,7 @@ def test_command_headless_needs_frames(pilot):
         run_replay(_args(str(folder)))
 
 
+@pytest.mark.slow
 def test_command_writes_frames_and_refuses_a_used_folder(pilot, tmp_path, capsys):
     """`replay --frames DIR` writes the frames and sheet; a non-empty DIR is refused."""
     folder, live_frames = pilot

@@ -5,10 +5,13 @@ from __future__ import annotations
 import csv
 import shutil
 
+import pytest
 from conftest import MINI_PROTOCOL, run_pilot
 
 from runner.cli import main
 from runner.session.journal import read_journal
+
+pytestmark = pytest.mark.slow  # runs sessions in real time
 
 
 def _rows(path):

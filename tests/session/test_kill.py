@@ -12,9 +12,12 @@ import threading
 import time
 from pathlib import Path
 
+import pytest
 from conftest import MINI_PROTOCOL, REPO
 
 from runner.session.journal import read_journal
+
+pytestmark = pytest.mark.slow  # kills and resumes pilot processes in real time
 
 KILLS_PER_CHAIN = 11  # two chains run side by side: 22 kills in all
 CHAINS = 2

@@ -5,12 +5,15 @@ from __future__ import annotations
 import csv
 import shutil
 
+import pytest
 from conftest import MINI_PROTOCOL, run_pilot
 
 from runner.protocol.load import load_protocol
 from runner.protocol.schedule import build_schedule
 from runner.session.journal import read_journal
 from runner.session.simulate import plan_trial
+
+pytestmark = pytest.mark.slow  # runs sessions in real time
 
 
 def test_mouse_ratings_are_taken_from_clicks(tmp_path):

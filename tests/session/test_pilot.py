@@ -16,6 +16,8 @@ from runner.session.journal import read_journal
 from runner.session.markers import make_source_id, station_name
 from runner.session.records import CONTRACT_COLUMNS
 
+pytestmark = pytest.mark.slow  # runs sessions in real time
+
 
 class Recorder(threading.Thread):
     """A minimal LSL consumer: resolves the session's stream by source_id and pulls every sample."""
@@ -48,7 +50,6 @@ def _read_csv(path):
         return list(csv.DictReader(fh))
 
 
-@pytest.mark.slow
 def test_demo_pilot_with_inlet_markers_match_journal(tmp_path):
     """A headless pilot of the demo: each scheduled trial once in trials.csv, and each
     stimulus_onset marker, as received by a real inlet, is stamped with that trial's onset_lsl.

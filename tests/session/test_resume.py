@@ -54,6 +54,7 @@ class Inlet(threading.Thread):
         inlet.close_stream()
 
 
+@pytest.mark.slow
 def test_resume_after_abort_continues_at_first_incomplete_trial(tmp_path):
     """An aborted session resumed runs only the missing trials, after a session_resume marker that a
     real inlet receives; trials.csv then lists every scheduled trial once."""
@@ -91,6 +92,7 @@ def test_resume_after_abort_continues_at_first_incomplete_trial(tmp_path):
     ]
 
 
+@pytest.mark.slow
 def test_existing_session_without_resume_refuses_and_suggests_it(tmp_path, capsys):
     """Starting an existing session again refuses (exit 1), names --resume, and changes nothing."""
     args = ["pilot", str(MINI_PROTOCOL), "--participant", "P01", "--out", str(tmp_path)]
@@ -113,6 +115,7 @@ def test_existing_session_without_resume_refuses_and_suggests_it(tmp_path, capsy
         ("protocol", JournalError, "changed since this session started"),
     ],
 )
+@pytest.mark.slow
 def test_resume_refusals(tmp_path, prepare, error, fragment):
     """Resume refuses a missing, completed, damaged or differently-configured session."""
     protocol = MINI_PROTOCOL
@@ -135,6 +138,7 @@ def test_resume_refusals(tmp_path, prepare, error, fragment):
         run_pilot(protocol, tmp_path / "out", resume=True)
 
 
+@pytest.mark.slow
 def test_completed_session_resume_rewrites_trials_csv(tmp_path):
     """Resuming a completed session whose trials.csv was lost rewrites it from the journal."""
     result = run_pilot(MINI_PROTOCOL, tmp_path)
@@ -145,6 +149,7 @@ def test_completed_session_resume_rewrites_trials_csv(tmp_path):
     assert result.trials_csv.read_bytes() == expected
 
 
+@pytest.mark.slow
 def test_journal_torn_in_its_header_is_kept_aside_and_the_session_starts(tmp_path):
     """A journal killed while writing its header holds no session: resume keeps its bytes under
     another name and starts the session from the beginning."""
@@ -175,6 +180,7 @@ def test_resume_index_starts_at_the_block_of_the_first_incomplete_trial():
     assert kinds[blocks[-1] + 1] == "page"
 
 
+@pytest.mark.slow
 def test_pause_between_trials_is_shown_journaled_and_marked(tmp_path):
     """The pause key pressed during trial 2 pauses after that trial: a pause page is shown, and
     pause_start / pause_end are journaled with markers; the session then completes."""

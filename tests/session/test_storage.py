@@ -32,6 +32,7 @@ runpy.run_module("runner", run_name="__main__")
 """
 
 
+@pytest.mark.slow
 def test_write_failure_mid_session_pauses_and_resumes_without_losing_data(tmp_path):
     """A pilot whose journal hits a file-size limit (RLIMIT_FSIZE) pauses with a console message,
     writes nothing while paused, and goes on once the limit is lifted: every trial is in

@@ -67,6 +67,7 @@ def test_codes_are_written_as_single_bytes():
         os.close(slave)
 
 
+@pytest.mark.slow
 def test_pilot_sends_and_journals_a_code_per_coded_marker(tmp_path):
     """A pilot with a triggers section sends, in order, one byte per coded marker event, and the
     journal records that code on the same line as the marker."""

@@ -23,7 +23,7 @@ import pygame
 
 from runner.errors import DisplayError
 from runner.present.images import ImageCache
-from runner.present.screens import Painter, Style
+from runner.present.painter import Painter, Style
 from runner.present.timing import (
     LATE_INTERVALS,
     MIN_MEASURE_FLIPS,
@@ -89,6 +89,7 @@ class Display:
         self.frames_written: list[Path] = []
         self._last_saved: View | None = None
         self._pending: View | None = None
+        self._current: View | None = None  # the view last drawn
         self._pacer = FramePacer(self.interval)
         self.nominal_interval = self.interval
         try:
@@ -120,10 +121,10 @@ class Display:
         box = pygame.Rect(0, 0, *stimulus_box)
         box.center = (self.size[0] // 2, self.size[1] // 2)
         self.stimulus_rect = box
-        self.images = ImageCache(
-            stimulus_box,
-            background=style.background,
-            **({"max_bytes": cache_bytes} if cache_bytes else {}),
+        self.images = (
+            ImageCache(stimulus_box, background=style.background, max_bytes=cache_bytes)
+            if cache_bytes
+            else ImageCache(stimulus_box, background=style.background)
         )
         self.painter = Painter(style, self.size, box, self.images.get)
         self.blocking = False
@@ -191,8 +192,18 @@ class Display:
             self._pending = view
         return t
 
+    def draw(self, view: View, *, photodiode: bool = False) -> None:
+        """Draw ``view`` without flipping (headless frame export reads it with :meth:`pixels`)."""
+        self._save_pending()
+        self.painter.draw(self.surface, view, photodiode=photodiode)
+        self._current = view
+
+    def pixels(self) -> bytes:
+        """What was last drawn, as 8-bit RGB rows from top to bottom (``size`` pixels)."""
+        return pygame.image.tobytes(self.surface, "RGB")
+
     def _save_pending(self) -> None:
-        view = getattr(self, "_pending", None)
+        view = self._pending
         if view is not None:
             self._pending = None
             self.save_frame(view)
@@ -246,7 +257,7 @@ class Display:
     def post_key(self, key: str) -> float:
         if key.startswith("click:"):
             # The simulated participant clicks the centre of a box of the rating on screen.
-            view = getattr(self, "_current", None)
+            view = self._current
             points = view.points if isinstance(view, RatingView) else 9
             pos = self.painter.rating_boxes(points)[int(key.split(":", 1)[1]) - 1].center
             t = self.clock()

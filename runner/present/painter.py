@@ -12,6 +12,8 @@ from dataclasses import dataclass
 import pygame
 
 from runner.session.views import (
+    PATCH_OFF,
+    PATCH_ON,
     AnswerView,
     BlankView,
     BreakView,
@@ -23,10 +25,10 @@ from runner.session.views import (
     RatingView,
     StimulusView,
     View,
+    fixation_rects,
+    photodiode_rect,
 )
 
-FIXATION_ARM_FRACTION = 0.012  # half-length of a fixation arm, as a share of the screen height
-FIXATION_THICKNESS_FRACTION = 0.003
 PAGE_WIDTH_FRACTION = 0.58
 HINT_MARGIN_FRACTION = 0.07
 BOX_RADIUS = 10
@@ -167,11 +169,8 @@ class Painter:
         corner = self.style.photodiode_corner
         if not corner:
             return
-        s = self.style.photodiode_px
-        w, h = self.size
-        x = 0 if corner.endswith("left") else w - s
-        y = 0 if corner.startswith("top") else h - s
-        surf.fill((255, 255, 255) if on else (0, 0, 0), pygame.Rect(x, y, s, s))
+        rect = photodiode_rect(self.size, corner, self.style.photodiode_px)
+        surf.fill(_rgb(PATCH_ON if on else PATCH_OFF), pygame.Rect(rect))
 
     def _box(
         self, surf: pygame.Surface, rect: pygame.Rect, *, filled: bool, border: int = 3
@@ -248,12 +247,8 @@ class Painter:
         return None
 
     def _draw_FixationView(self, surf: pygame.Surface, view: FixationView) -> None:
-        w, h = self.size
-        arm = max(6, round(h * FIXATION_ARM_FRACTION))
-        thick = max(2, round(h * FIXATION_THICKNESS_FRACTION))
-        cx, cy = w // 2, h // 2
-        surf.fill(self.style.text, pygame.Rect(cx - arm, cy - thick // 2, 2 * arm + 1, thick))
-        surf.fill(self.style.text, pygame.Rect(cx - thick // 2, cy - arm, thick, 2 * arm + 1))
+        for rect in fixation_rects(self.size):
+            surf.fill(self.style.text, pygame.Rect(rect))
 
     def _draw_PageView(self, surf: pygame.Surface, view: PageView) -> None:
         w, h = self.size

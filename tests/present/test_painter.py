@@ -5,7 +5,7 @@ from __future__ import annotations
 import pygame
 from conftest import MINI_PROTOCOL as MINI
 
-from runner.present.screen import display_for
+from runner.present.display import display_for
 from runner.protocol.load import load_protocol
 from runner.session.views import StimulusView
 
@@ -49,7 +49,7 @@ def test_page_lines_join_paragraphs_like_markdown():
 
     Source: CommonMark specification (paragraph continuation lines and list items), from memory.
     """
-    from runner.present.screens import page_lines
+    from runner.present.painter import page_lines
 
     text = "# Welcome\n\nOne line\nand its continuation.\n\n- first item\n  wraps here\n- second\n\nEnd."
     assert page_lines(text) == [
