@@ -10,7 +10,7 @@ import pyxdf
 from xdfwrite import FixtureStream, write_xdf
 
 from runner.errors import RecordingError
-from runner.qa.recording import (
+from runner.recording import (
     check_recording,
     find_marker_streams,
     match_markers,
