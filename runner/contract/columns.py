@@ -112,3 +112,12 @@ def own_table_columns(header_columns: object) -> list[str]:
     if not isinstance(header_columns, (list, tuple)):
         return []
     return [str(c) for c in header_columns if c not in TABLE_REQUIRED]
+
+
+def level_key(text: str) -> tuple[int, float, str]:
+    """Sort key of factor levels: numeric levels numerically ('20' < '110'), then the others
+    alphabetically (the order of block levels, sidecar levels and summary rows)."""
+    try:
+        return (0, float(text), text)
+    except ValueError:
+        return (1, 0.0, text)

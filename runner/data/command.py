@@ -12,16 +12,9 @@ from pathlib import Path
 from runner.data.export import (
     DATATYPES,
     DEFAULT_DATATYPE,
-    SUMMARY_EVENTS,
     export_sessions,
-    factor_union,
-    level_orders,
-    load_sessions,
-    pooled_trials,
-    rating_points,
-    sessions_table,
 )
-from runner.errors import EXIT_OK, InputFileError
+from runner.errors import EXIT_OK
 
 SUMMARY_TITLE = "Pilot summary"
 MAX_LISTED = 10  # events files named one by one; more are counted
@@ -141,30 +134,15 @@ def run_summary(args: argparse.Namespace) -> int:
     int
         The exit code (0).
     """
-    from runner.data.summary import write_summary
+    from runner.data.summary import summarize_sessions
 
-    sessions = load_sessions(args.sessions, decode=SUMMARY_EVENTS, keep_records=False)
-    trials = pooled_trials(sessions)
-    if trials.empty:
-        raise InputFileError(
-            "the sessions hold no completed trials, so there is nothing to summarise; check "
-            "the session folders."
-        )
-    factors = factor_union(sessions)
-    paths = write_summary(
-        trials,
-        sessions_table(sessions),
-        args.out,
-        factors=factors,
-        rating_points=rating_points(sessions),
-        include_practice=args.include_practice,
-        level_order=level_orders(sessions),
-        title=args.title,
+    result = summarize_sessions(
+        args.sessions, args.out, include_practice=args.include_practice, title=args.title
     )
     print(
-        f"Summarised {len(sessions)} session(s), {len(trials)} trial(s), by "
-        + (", ".join(factors) if factors else "no factor")
+        f"Summarised {result.n_sessions} session(s), {result.n_trials} trial(s), by "
+        + (", ".join(result.factors) if result.factors else "no factor")
         + "."
     )
-    print(f"Wrote {len(paths)} file(s) to {args.out}; the report is {paths[-1]}")
+    print(f"Wrote {len(result.paths)} file(s) to {args.out}; the report is {result.paths[-1]}")
     return EXIT_OK

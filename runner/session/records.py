@@ -15,13 +15,8 @@ import os
 from pathlib import Path
 from typing import Any
 
-from runner.contract.columns import (
-    CONTRACT_COLUMNS,
-    ENGINE_COLUMNS,
-    PILOT_COLUMNS,
-    own_table_columns,
-    trials_columns,
-)
+from runner.contract import columns as registry
+from runner.contract.columns import own_table_columns, trials_columns
 from runner.contract.events import VALUES_FIELD
 from runner.contract.layout import TMP_SUFFIX, TRIALS_NAME
 from runner.journal.read import JournalRead
@@ -41,7 +36,11 @@ __all__ = [
     "write_trials_csv",
 ]
 
+# The registry's column groups as lists (the form this module has always offered).
+CONTRACT_COLUMNS = list(registry.CONTRACT_COLUMNS)
+ENGINE_COLUMNS = list(registry.ENGINE_COLUMNS)
 EXTRA_COLUMNS = ENGINE_COLUMNS  # the name earlier versions used
+PILOT_COLUMNS = list(registry.PILOT_COLUMNS)
 
 
 def table_columns(header: dict[str, Any]) -> list[str]:
