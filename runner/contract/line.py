@@ -1,7 +1,8 @@
 """**Contract.** The journal line format.
 
-UTF-8 JSON, one object per line. Every line starts ``{"seq":N,"prev":"<hash>","event":"<name>"``
-and ends with ``,"h":"<hash>"}``: ``seq`` counts lines from 0 (the header), ``prev`` is the
+UTF-8 JSON, one object per line. Every line starts ``{"seq":N,"prev":"<hash>","event":"<name>"``,
+followed by ``"t"`` and then ``"trial"`` when the line has them (:data:`LEAD_FIELDS`), and ends
+with ``,"h":"<hash>"}``: ``seq`` counts lines from 0 (the header), ``prev`` is the
 previous line's ``h`` (32 zeros for the header), and ``h`` is the first 32 hex digits of sha256
 over ``prev`` followed by the line's text without its ``,"h":"..."`` part.
 """
@@ -21,6 +22,9 @@ LINE_END = '"}'
 HASH_TAIL = len(HASH_FIELD) + HASH_CHARS + len(LINE_END)
 HASH_FIELD_B = HASH_FIELD.encode("ascii")
 EVENT_FIELD_B = b',"event":"'
+# Fields written right after seq and prev, in this order, whenever a line has them; readers may
+# take an event's time and trial from this fixed prefix without decoding the whole line.
+LEAD_FIELDS = ("event", "t", "trial")
 
 
 def line_hash(prev: str, body: str) -> str:
@@ -36,7 +40,11 @@ def line_hash_bytes(prev: bytes, raw: bytes) -> bytes:
 
 def encode_line(record: dict[str, Any], seq: int, prev: str) -> tuple[str, str]:
     """Serialise a record with its chain fields. Returns (line without newline, its hash)."""
-    obj = {"seq": seq, "prev": prev, **record}
+    obj: dict[str, Any] = {"seq": seq, "prev": prev}
+    for key in LEAD_FIELDS:
+        if key in record:
+            obj[key] = record[key]
+    obj.update(record)  # keys already placed keep their place
     body = json.dumps(obj, ensure_ascii=False, separators=(",", ":"), allow_nan=False)
     h = line_hash(prev, body)
     return body[:-1] + f"{HASH_FIELD}{h}{LINE_END}", h

@@ -6,7 +6,6 @@ One walk over the journal pairs opening and closing events into :class:`EventRow
 
 from __future__ import annotations
 
-from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import PurePosixPath
 from typing import Any
@@ -146,23 +145,6 @@ class EventRows:
         return {r.kind for r in self.rows}
 
 
-def _winners(records: Sequence[dict[str, Any]]) -> dict[int, int]:
-    """For each trial number, which of its runs (1, 2, ... in journal order) completed last."""
-    runs: dict[int, int] = {}
-    winners: dict[int, int] = {}
-    for rec in records:
-        event = rec.get("event")
-        if event == "trial_start":
-            trial = rec.get("trial")
-            if isinstance(trial, int):
-                runs[trial] = runs.get(trial, 0) + 1
-        elif event == "trial_end":
-            trial = rec.get("trial")
-            if isinstance(trial, int):
-                winners[trial] = runs.get(trial, 1)
-    return winners
-
-
 def event_rows(session: ExportSession) -> EventRows:
     """Walk the journal once and pair opening and closing events into rows (:data:`ROW_KINDS`).
 
@@ -171,7 +153,8 @@ def event_rows(session: ExportSession) -> EventRows:
     previous attempt left open keeps an unknown end.
     """
     records = session.read.records
-    winners = _winners(records)
+    # For each trial number, which of its runs (1, 2, ... in journal order) completed last.
+    winners: dict[int, int] = {}
     rows: list[EventRow] = []
     open_rows: dict[str, EventRow] = {}
     open_trial: dict[tuple[int, str], EventRow] = {}
@@ -189,6 +172,11 @@ def event_rows(session: ExportSession) -> EventRows:
                     if t > r.t:
                         r.end = t
                 next_flip = still
+            continue
+        if event == "trial_end":
+            trial = rec.get("trial")
+            if isinstance(trial, int):
+                winners[trial] = runs.get(trial, 1)
             continue
         if t is None or event not in ROW_EVENTS:
             continue

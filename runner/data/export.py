@@ -14,7 +14,7 @@ Both outputs are documented column by column in docs/analysis.md. This module ru
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -57,8 +57,10 @@ from runner.data.sessions import (
     ExportSession,
     check_unique,
     find_session_folders,
+    in_workers,
     load_session,
     load_sessions,
+    worker_count,
 )
 from runner.errors import StorageError, UsageError
 
@@ -120,6 +122,7 @@ def export_sessions(
     task: str | None = None,
     datatype: str = DEFAULT_DATATYPE,
     recordings: Sequence[str | Path] | None = None,
+    workers: int | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -137,6 +140,13 @@ def export_sessions(
     recordings : sequence of path, optional
         One XDF recording per session, in session order: onsets then count from the first
         sample of its EEG stream. Default: from the session start.
+    workers : int, optional
+        Worker processes that read sessions and write their events files side by side. Default:
+        one per processor (at most :data:`runner.data.sessions.MAX_WORKERS`) from
+        :data:`runner.data.sessions.PARALLEL_MIN_SESSIONS`
+        sessions on, else none (everything in this process). Workers are forked, so only where
+        the platform forks and this process runs no other thread; otherwise everything runs
+        here. The files are the same either way.
 
     Returns
     -------
@@ -170,18 +180,17 @@ def export_sessions(
     origins: list[Origin] = []
     events: list[tuple[Path, Path]] = []
     seen: dict[tuple[str, str, str], Path] = {}
-    # One session at a time: read, write its events, then let its journal lines go, so memory
-    # stays at one session's worth however many are exported.
-    for i, folder in enumerate(folders):
-        # With a recording every marker payload is needed to match the recorder's clock.
-        session = load_session(folder, decode=None if recordings else EXPORT_EVENTS)
-        check_unique(session, seen)
-        origin = recording_origin(session, recordings[i]) if recordings else session_origin(session)
-        label = task_label(session.study, task)
-        events.append(write_bids_events(session, out, task=label, datatype=datatype, origin=origin))
-        session.release()
+    jobs = [
+        _Job(folder, out, task, datatype, recordings[i] if recordings else None)
+        for i, folder in enumerate(folders)
+    ]
+    workers = worker_count(len(jobs), workers)
+    # Each session is read, its events written, then its journal lines let go, so memory stays
+    # at one session's worth per process however many are exported.
+    for session, origin, written in _run_jobs(jobs, workers, seen):
         sessions.append(session)
         origins.append(origin)
+        events.append(written)
     pooled = write_pooled_trials(sessions, out / POOLED_NAME)
     try:
         others = dataset_files(out, sessions)
@@ -195,3 +204,50 @@ def export_sessions(
         n_trials=sum(len(s.trials) for s in sessions),
         other_files=others,
     )
+
+
+@dataclass(frozen=True)
+class _Job:
+    """One session to export (picklable, for a worker process)."""
+
+    folder: Path
+    out: Path
+    task: str | None
+    datatype: str
+    recording: str | Path | None
+
+
+def _load(job: _Job) -> ExportSession:
+    # With a recording every marker payload is needed to match the recorder's clock.
+    return load_session(job.folder, decode=None if job.recording is not None else EXPORT_EVENTS)
+
+
+def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
+    if job.recording is not None:
+        origin = recording_origin(session, job.recording)
+    else:
+        origin = session_origin(session)
+    label = task_label(session.study, job.task)
+    written = write_bids_events(session, job.out, task=label, datatype=job.datatype, origin=origin)
+    session.release()
+    return session, origin, written
+
+
+def _export_one(job: _Job) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
+    """Read one session and write its events files (in a worker process)."""
+    return _write(job, _load(job))
+
+
+def _run_jobs(
+    jobs: list[_Job], workers: int, seen: dict[tuple[str, str, str], Path]
+) -> Iterator[tuple[ExportSession, Origin, tuple[Path, Path]]]:
+    """Export each session, in order; two sessions with the same labels are refused."""
+    if workers <= 1:
+        for job in jobs:
+            session = _load(job)
+            check_unique(session, seen)  # before its files could overwrite the other's
+            yield _write(job, session)
+        return
+    for done in in_workers(_export_one, jobs, workers):
+        check_unique(done[0], seen)
+        yield done

@@ -25,11 +25,12 @@ from runner.contract.columns import (
     TEXT_COLUMNS,
     TIME_SUFFIX,
 )
+from runner.contract.events import VALUES_FIELD
 from runner.contract.layout import TMP_SUFFIX
 from runner.data.sessions import ExportSession
 from runner.errors import InputFileError, StorageError
 from runner.protocol.model import BlocksStep
-from runner.session.records import csv_cell, record_value
+from runner.session.records import csv_cell
 
 __all__ = [
     "factor_union",
@@ -64,18 +65,20 @@ def pooled_columns(sessions: Sequence[ExportSession]) -> list[str]:
     return cols + list(CONTEXT_COLUMNS)
 
 
-def _record_value(s: ExportSession, row: dict[str, Any], column: str) -> Any:
-    if column == "study":
-        return s.study
-    if column == "mode":
-        return s.mode
-    return record_value(row, column)
-
-
 def pooled_rows(sessions: Sequence[ExportSession]) -> tuple[list[str], list[list[Any]]]:
-    """Columns and raw values (None for missing) of the pooled table, sessions in given order."""
+    """Columns and raw values (None for missing) of the pooled table, sessions in given order.
+
+    A value is the trial record's own field, else the trial table's value
+    (:func:`runner.session.records.record_value`); ``study`` and ``mode`` are the session's.
+    """
     cols = pooled_columns(sessions)
-    rows = [[_record_value(s, rec, c) for c in cols] for s in sessions for rec in s.trials]
+    rows: list[list[Any]] = []
+    for s in sessions:
+        context = dict(zip(CONTEXT_COLUMNS, (s.study, s.mode), strict=True))
+        for rec in s.trials:
+            # The same precedence as record_value, for every column at once.
+            merged = {**(rec.get(VALUES_FIELD) or {}), **rec, **context}
+            rows.append([merged.get(c) for c in cols])
     return cols, rows
 
 
@@ -95,8 +98,13 @@ def write_pooled_trials(sessions: Sequence[ExportSession], path: str | Path) -> 
         with open(tmp, "w", encoding="utf-8", newline="") as fh:
             writer = csv.writer(fh, lineterminator="\n")
             writer.writerow(cols)
+            # Text is most cells and stays as it is; csv_cell formats the rest.
             writer.writerows(
-                [csv_cell(v, c) for v, c in zip(row, cols, strict=True)] for row in rows
+                [
+                    v if type(v) is str else "" if v is None else csv_cell(v, c)
+                    for v, c in zip(row, cols, strict=True)
+                ]
+                for row in rows
             )
         os.replace(tmp, path)
     except OSError as exc:

@@ -9,8 +9,13 @@ from __future__ import annotations
 
 import csv
 import io
-from collections.abc import Iterable
+import multiprocessing
+import os
+import threading
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
+from functools import partial
 from pathlib import Path
 from typing import Any
 
@@ -20,7 +25,7 @@ from runner.contract.layout import JOURNAL_NAME, is_label
 from runner.errors import InputFileError, JournalError
 from runner.journal.frozen import protocol_from_header
 from runner.journal.read import JournalRead, read_journal
-from runner.journal.trials import session_span, winning_records
+from runner.journal.trials import session_facts
 from runner.protocol.model import Protocol
 
 __all__ = [
@@ -32,39 +37,27 @@ __all__ = [
     "load_sessions",
 ]
 
-# Lines the BIDS events need decoded: the rows' opening and closing events, and flips (a "next
-# flip" row ends at the next screen change). Keystrokes and the like are verified, not decoded.
+# Lines the BIDS events need decoded (fields beyond event, t and trial); every other line, flips
+# included, is verified and read from its lead fields only (runner.contract.line.LEAD_FIELDS).
 EXPORT_EVENTS = frozenset(
     {
-        "flip",
         "trial_start",
         "trial_end",
+        "decision",
+        "answer",
+        "rating",
+        "block_start",
+        "rest_start",
         "session_start",
         "session_resume",
         "session_end",
-        "page_onset",
-        "page_end",
-        "rest_start",
-        "rest_end",
-        "block_start",
-        "block_end",
-        "break_start",
-        "break_end",
-        "pause_start",
-        "pause_end",
-        "fixation_onset",
-        "stimulus_onset",
-        "stimulus_offset",
-        "decision",
-        "answer_onset",
-        "answer",
-        "rating_onset",
-        "rating",
-        "feedback_onset",
-        "gap_onset",
         "abort",
     }
 )
+# Worker processes pay off from this many sessions on (starting them takes a moment).
+PARALLEL_MIN_SESSIONS = 16
+MAX_WORKERS = 4
+
 # Lines the summary needs decoded (the header is always decoded).
 SUMMARY_EVENTS = frozenset({"trial_end", "session_start", "session_resume", "session_end"})
 
@@ -232,14 +225,14 @@ def load_session(folder: str | Path, *, decode: frozenset[str] | None = None) ->
     protocol = protocol_from_header(header, path)
     table_text = header.get("trial_table_text")
     table_rows = list(csv.DictReader(io.StringIO(table_text))) if table_text else []
-    status, duration = session_span(read.records)
+    status, duration, trials = session_facts(read.records)
     start = next((float(r["t"]) for r in read.events("session_start") if "t" in r), None)
     return ExportSession(
         folder=folder,
         read=read,
         header=header,
         protocol=protocol,
-        trials=winning_records(read.records),
+        trials=trials,
         status=status,
         duration_s=duration,
         table_rows=table_rows,
@@ -262,6 +255,7 @@ def load_sessions(
     *,
     decode: frozenset[str] | None = None,
     keep_records: bool = True,
+    workers: int | None = None,
 ) -> list[ExportSession]:
     """Find and read every session under ``paths`` (see :func:`find_session_folders`).
 
@@ -274,6 +268,9 @@ def load_sessions(
     keep_records : bool, optional
         Keep every session's journal lines (default); False releases them after reading
         (:meth:`ExportSession.release`), which is all the summary needs.
+    workers : int, optional
+        Worker processes reading sessions side by side (see :func:`worker_count`); used only
+        when ``keep_records`` is False.
 
     Raises
     ------
@@ -283,12 +280,67 @@ def load_sessions(
     JournalError
         If a journal cannot be exported (see :func:`load_session`).
     """
-    sessions = []
+    folders = find_session_folders(paths)
     seen: dict[tuple[str, str, str], Path] = {}
-    for folder in find_session_folders(paths):
+    if not keep_records:
+        workers = worker_count(len(folders), workers)
+        if workers > 1:
+            sessions = []
+            for session in in_workers(partial(_load_released, decode=decode), folders, workers):
+                check_unique(session, seen)
+                sessions.append(session)
+            return sessions
+    sessions = []
+    for folder in folders:
         session = load_session(folder, decode=decode)
         check_unique(session, seen)
         if not keep_records:
             session.release()
         sessions.append(session)
     return sessions
+
+
+def _load_released(folder: Path, *, decode: frozenset[str] | None) -> ExportSession:
+    session = load_session(folder, decode=decode)
+    session.release()
+    return session
+
+
+def _processors() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # not on Linux
+        return os.cpu_count() or 1
+
+
+def can_fork() -> bool:
+    """Whether worker processes can be forked safely: the platform forks, and this process runs
+    no other thread (a fork copies only the calling thread, so locks held by others would stay
+    locked in the workers). Forked workers need no re-import of the caller's main module."""
+    return "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1
+
+
+def worker_count(n_sessions: int, workers: int | None) -> int:
+    """Worker processes for ``n_sessions``: ``workers`` if given, else one per processor (at
+    most :data:`MAX_WORKERS`) from :data:`PARALLEL_MIN_SESSIONS` sessions on; 1 (no workers)
+    when there is a single session or forking is not safe (:func:`can_fork`)."""
+    if workers is None:
+        workers = min(_processors(), MAX_WORKERS) if n_sessions >= PARALLEL_MIN_SESSIONS else 1
+    if n_sessions <= 1 or not can_fork():
+        return 1
+    return max(1, workers)
+
+
+def in_workers(func: Callable[[Any], Any], items: Iterable[Any], workers: int) -> Iterator[Any]:
+    """``func`` of each item in forked worker processes; results in the order of ``items``.
+
+    The first error raised by ``func`` (in item order) is raised here; the work not yet
+    started is cancelled.
+    """
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("fork"))
+    try:
+        futures = [pool.submit(func, item) for item in items]
+        for future in futures:
+            yield future.result()
+    finally:
+        pool.shutdown(wait=True, cancel_futures=True)

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -36,13 +37,17 @@ __all__ = ["ChainCheck", "JournalRead", "read_journal", "verify_chain"]
 
 GENESIS_B = GENESIS.encode("ascii")
 HEADER_EVENT = "header"
+# The lead fields after the event name (runner.contract.line.LEAD_FIELDS): a number ``t`` and an
+# integer ``trial``; a line whose t is not a plain number keeps it undecoded.
+LEAD_RE = re.compile(rb',"t":(-?[0-9][0-9.eE+-]*)(?:,"trial":([0-9]+))?[,}]')
 
 
 @dataclass
 class JournalRead:
     """What :func:`read_journal` found. ``records`` are the intact lines up to the first break.
 
-    Lines whose event was not asked for (``decode``) are records ``{"seq", "event"}`` only.
+    Lines whose event was not asked for (``decode``) are records ``{"seq", "event", "t",
+    "trial"}`` only (``t`` and ``trial`` where the line has them).
     """
 
     path: Path
@@ -73,7 +78,8 @@ def _fast(raws: list[bytes], want: frozenset[bytes] | None) -> list[dict[str, An
     A line's stored hash is sha256 over the previous line's hash and its own text, so a match
     proves the line is unchanged and in its place (its ``seq`` and ``prev`` fields included).
     Only the header and lines whose event is in ``want`` (all when None) are decoded, together in
-    one JSON call; the others become ``{"seq", "event"}``.
+    one JSON call; the others become ``{"seq", "event", "t", "trial"}`` from the line's lead
+    fields.
     """
     sha = hashlib.sha256
     prev = GENESIS_B
@@ -82,7 +88,9 @@ def _fast(raws: list[bytes], want: frozenset[bytes] | None) -> list[dict[str, An
     field_b = HASH_FIELD_B
     event_b = EVENT_FIELD_B
     skip = len(event_b)
+    lead = LEAD_RE.match
     records: list[dict[str, Any] | None] = []
+    names: dict[bytes, str] = {}
     wanted: list[bytes] = []
     where: list[int] = []
     for n, raw in enumerate(raws):
@@ -99,13 +107,25 @@ def _fast(raws: list[bytes], want: frozenset[bytes] | None) -> list[dict[str, An
             records.append(None)
             continue
         start = raw.find(event_b) + skip
-        event = raw[start : raw.find(b'"', start)]
+        stop = raw.find(b'"', start)
+        event = raw[start:stop]
         if event in want:
             wanted.append(raw)
             where.append(n)
             records.append(None)
+            continue
+        name = names.get(event)
+        if name is None:
+            name = names[event] = event.decode("utf-8", errors="replace")
+        found = lead(raw, stop + 1)
+        if found is None:
+            records.append({"seq": n, "event": name})
+            continue
+        t, trial = found.groups()
+        if trial is None:
+            records.append({"seq": n, "event": name, "t": float(t)})
         else:
-            records.append({"seq": n, "event": event.decode("utf-8", errors="replace")})
+            records.append({"seq": n, "event": name, "t": float(t), "trial": int(trial)})
     if not wanted:
         return []
     try:
@@ -184,7 +204,7 @@ def read_journal(path: Path, *, decode: frozenset[str] | None = None) -> Journal
         The ``journal.jsonl`` file.
     decode : frozenset of str, optional
         Events to decode from JSON (the header always is); default all. The others become
-        ``{"seq", "event"}`` records; their hash chain is verified all the same.
+        ``{"seq", "event", "t", "trial"}`` records; their hash chain is verified all the same.
 
     Raises
     ------
@@ -204,15 +224,25 @@ def read_journal(path: Path, *, decode: frozenset[str] | None = None) -> Journal
         _strict(data, out)
         if decode is not None:
             out.records = [
-                r
-                if i == 0 or r.get("event") in decode
-                else {"seq": r.get("seq"), "event": r.get("event")}
+                r if i == 0 or r.get("event") in decode else _lead(r)
                 for i, r in enumerate(out.records)
             ]
     if out.records and out.records[0].get("event") == HEADER_EVENT:
         out.header = out.records[0]
     elif out.records:
         out.chain_errors.insert(0, "line 1 is not a journal header")
+    return out
+
+
+def _lead(rec: dict[str, Any]) -> dict[str, Any]:
+    """What the fast path keeps of an undecoded line: seq, event, and a numeric t and trial."""
+    out = {"seq": rec.get("seq"), "event": rec.get("event")}
+    t = rec.get("t")
+    if isinstance(t, (int, float)) and not isinstance(t, bool):
+        out["t"] = float(t)
+        trial = rec.get("trial")
+        if isinstance(trial, int) and not isinstance(trial, bool) and trial >= 0:
+            out["trial"] = trial
     return out
 
 

@@ -25,6 +25,7 @@ __all__ = [
     "Attempt",
     "attempts",
     "completed_trials",
+    "session_facts",
     "session_span",
     "trial_of_end",
     "winning_records",
@@ -94,15 +95,26 @@ def session_span(records: Iterable[dict[str, Any]]) -> tuple[str, float]:
 
     The status is ``"incomplete"`` when the last attempt has no ``session_end`` line (a crash).
     """
+    status, total, _ = session_facts(records)
+    return status, total
+
+
+def session_facts(records: Iterable[dict[str, Any]]) -> tuple[str, float, list[dict[str, Any]]]:
+    """:func:`session_span` and :func:`winning_records` in one pass over the lines."""
     status = STATUS_INCOMPLETE
     total = 0.0
     start: float | None = None
     last_t: float | None = None
+    by_trial: dict[int, dict[str, Any]] = {}
     for rec in records:
         t = rec.get("t")
+        event = rec.get("event")
+        if event == "trial_end":
+            row = rec.get(RECORD_FIELD)
+            if isinstance(row, dict) and _int(row.get("trial")) is not None:
+                by_trial[row["trial"]] = row
         if not isinstance(t, (int, float)):
             continue
-        event = rec.get("event")
         if event in ATTEMPT_STARTS:
             if start is not None and last_t is not None:
                 total += last_t - start
@@ -116,7 +128,7 @@ def session_span(records: Iterable[dict[str, Any]]) -> tuple[str, float]:
         last_t = float(t)
     if start is not None and last_t is not None:
         total += last_t - start
-    return status, total
+    return status, total, [by_trial[k] for k in sorted(by_trial)]
 
 
 @dataclass
