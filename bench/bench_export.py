@@ -40,7 +40,7 @@ from runner.data.command import (  # noqa: E402
     run_summary,
 )
 from runner.data.export import export_sessions  # noqa: E402
-from runner.data.summary import summarize_sessions  # noqa: E402
+from runner.data.summarize import summarize_sessions  # noqa: E402
 from runner.journal.writer import Journal  # noqa: E402
 
 N_SESSIONS = 200

@@ -134,7 +134,7 @@ def run_summary(args: argparse.Namespace) -> int:
     int
         The exit code (0).
     """
-    from runner.data.summary import summarize_sessions
+    from runner.data.summarize import summarize_sessions
 
     result = summarize_sessions(
         args.sessions, args.out, include_practice=args.include_practice, title=args.title

@@ -19,7 +19,8 @@ It answers, for a lab assistant after each participant:
 
 Errors make the audit fail (exit 1); warnings are facts to note in the analysis. Nothing here
 imports pygame or pylsl. The parts: the chain walk is :func:`runner.journal.read.verify_chain`,
-attempts :mod:`runner.journal.trials`, the checks :mod:`runner.qa.audit_checks`, the result
+attempts :mod:`runner.journal.trials`, the checks :mod:`runner.qa.audit_checks` and
+:mod:`runner.qa.audit_timing`, the result
 :mod:`runner.qa.audit_facts`, the text :mod:`runner.qa.audit_text`.
 """
 
@@ -42,12 +43,12 @@ from runner.qa.audit_checks import (
     check_completion,
     check_files,
     check_responses,
-    check_timing,
     check_trials_csv,
     journaled_markers,
 )
 from runner.qa.audit_facts import AUDIT_FORMAT, EventIndex, Findings, SessionAudit
 from runner.qa.audit_text import detail_lines, format_audits
+from runner.qa.audit_timing import check_timing
 from runner.recording import (
     DEFAULT_MAX_GAP_S,
     DEFAULT_RESIDUAL_LIMIT_MS,
