@@ -20,7 +20,7 @@ from runner.contract.events import STATUS_ABORTED, STATUS_COMPLETED
 from runner.contract.hashing import HashCache
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, display_path
 from runner.errors import ProtocolError, RecordingError
-from runner.journal.frozen import frozen_protocol
+from runner.journal.frozen import frozen_protocol, frozen_text
 from runner.journal.trials import Attempt, trial_of_end
 from runner.qa.audit_facts import (
     CompletedTrial,
@@ -380,8 +380,8 @@ def check_responses(
 
 def _rating_points(header: dict[str, Any]) -> int | None:
     """The rating scale's number of points, from the frozen protocol text (None: unreadable)."""
-    text = header.get("protocol_text")
-    if not isinstance(text, str):
+    text = frozen_text(header)
+    if text is None:
         return None
     try:
         return int(frozen_protocol(text).rating.points)
