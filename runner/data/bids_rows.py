@@ -200,21 +200,22 @@ def event_rows(session: ExportSession) -> EventRows:
                 row.end = t
                 if kind in SESSION_KINDS:
                     row.label = rec.get("status")
-        kind = OPENERS.get(event)
-        if kind is None:
+        opened = OPENERS.get(event)
+        if opened is None:
             continue
+        kind = opened
         in_trial = kind in TRIAL_KINDS and isinstance(trial, int)
         row = EventRow(
             t=t,
             end=None,
             kind=kind,
-            event=event,
+            event=str(event),
             trial=trial if in_trial else None,
             key=rec.get("key") if kind == "decision" else None,
             label=rec.get("label") if kind == "rest" else rec.get("status"),
             timed_out=rec.get("timed_out", False) if kind in ("answer", "rating") else None,
             attempt=attempt,
-            run=runs.get(trial, 1) if in_trial else None,
+            run=runs.get(trial, 1) if in_trial and isinstance(trial, int) else None,
             block=rec.get("block") if kind == "block" else None,
             part=rec.get("part") if kind == "block" else None,
         )
@@ -224,7 +225,7 @@ def event_rows(session: ExportSession) -> EventRows:
             row.end = t
         elif closer == NEXT_FLIP:
             next_flip.append(row)
-        elif in_trial:
+        elif in_trial and isinstance(trial, int):
             open_trial[(trial, kind)] = row
         else:
             if kind in SESSION_KINDS:
@@ -246,19 +247,19 @@ def event_rows(session: ExportSession) -> EventRows:
             winner = winners.get(trial)
             if winner is not None and row.run != winner:
                 continue  # superseded by a later completion of the same trial
-            rec = by_trial.get(trial) if winner is not None else None
+            done = by_trial.get(trial) if winner is not None else None
             tail: Any = (trial, row.run)
             if tail not in tails:
-                tails[tail] = _trial_tail(rec, starts.get(tail, {}), table_rows, table_cols)
+                tails[tail] = _trial_tail(done, starts.get(tail, {}), table_rows, table_cols)
             row.tail = tail
             if kind == "stimulus":
                 stimulus = tails[tail][2]
                 row.stim_file = _stim_file(str(stimulus)) if stimulus else None
-                if rec is not None and rec.get("rt_ms") is not None:
-                    row.response_time = float(rec["rt_ms"]) / MS_PER_S
+                if done is not None and done.get("rt_ms") is not None:
+                    row.response_time = float(done["rt_ms"]) / MS_PER_S
             elif kind == "rating_prompt":
-                if rec is not None and rec.get("rating_rt_ms") is not None:
-                    row.response_time = float(rec["rating_rt_ms"]) / MS_PER_S
+                if done is not None and done.get("rating_rt_ms") is not None:
+                    row.response_time = float(done["rating_rt_ms"]) / MS_PER_S
             elif kind == "answer_prompt" and row.end is not None:
                 row.response_time = row.end - row.t
         elif kind == "block":
