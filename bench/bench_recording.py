@@ -19,7 +19,7 @@ REPO = Path(__file__).resolve().parent.parent
 sys.path[:0] = [str(REPO), str(REPO / "tests" / "qa")]
 from xdfwrite import FixtureStream, write_xdf  # noqa: E402
 
-from runner.qa.recording import check_recording, read_recording  # noqa: E402
+from runner.recording import check_recording, read_recording  # noqa: E402
 
 MINUTES = 5
 EEG_SRATE = 500.0

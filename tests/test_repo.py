@@ -38,7 +38,7 @@ def test_readme_has_exactly_two_quick_start_commands_and_ci_runs_the_test_one():
         ("runner.session.journal", ("pygame", "pylsl")),
         ("runner.session.records", ("pygame", "pylsl")),
         ("runner.session.markers", ("pygame",)),
-        ("runner.qa.recording", ("pygame", "pylsl")),
+        ("runner.recording", ("pygame", "pylsl")),
         ("runner.data.summary", ("pygame", "pylsl")),
     ],
 )

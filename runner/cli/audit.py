@@ -8,7 +8,7 @@ from pathlib import Path
 
 from runner.cli.args import positive_float
 from runner.errors import EXIT_OK, EXIT_PROBLEMS
-from runner.qa.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
+from runner.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -50,7 +50,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Print the audit (or JSON); exit 0 when every session is sound, 1 when any has errors."""
     from runner.qa.audit import audit_sessions, format_audits
-    from runner.qa.recording import read_recording
+    from runner.recording import read_recording
 
     rec = None
     if args.recording:

@@ -31,13 +31,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Write the summary, then print what was read and written; exit 0."""
-    from runner.data.summary import summarise_sessions
+    from runner.data.summarize import summarize_sessions
 
-    done = summarise_sessions(
+    done = summarize_sessions(
         args.sessions, args.out, include_practice=args.include_practice, title=args.title
     )
     print(
-        f"Summarised {done.sessions} session(s), {done.trials} trial(s), by "
+        f"Summarised {done.n_sessions} session(s), {done.n_trials} trial(s), by "
         + (", ".join(done.factors) if done.factors else "no factor")
         + "."
     )

@@ -7,12 +7,12 @@ Every problem found is collected (not just the first) and raised together as one
 from __future__ import annotations
 
 import hashlib
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from pydantic import ValidationError
 
+from runner.contract.layout import display_path
 from runner.errors import Problem, ProtocolError
 from runner.protocol.model import (
     BlocksStep,
@@ -51,13 +51,7 @@ class LoadedProtocol:
         return self.table.stimulus_path(row)
 
 
-def display_name(path: Path) -> str:
-    """How a file is named in problem lines: relative to the working folder when inside it."""
-    try:
-        rel = os.path.relpath(path)
-    except ValueError:
-        return str(path)
-    return str(path) if rel.startswith("..") else rel
+display_name = display_path  # how a file is named in problem lines
 
 
 def select_rows(table: TrialTable, where: Where) -> list[TrialRow]:

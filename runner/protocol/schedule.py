@@ -13,6 +13,7 @@ import re
 from dataclasses import asdict, dataclass, field
 from typing import Literal
 
+from runner.contract.columns import level_key
 from runner.errors import ProtocolError, UsageError
 from runner.protocol.arrange import ArrangementError, constrained_shuffle
 from runner.protocol.latin import block_order
@@ -283,7 +284,7 @@ def build_schedule(loaded: LoadedProtocol, participant: str, session: str = "1")
         elif isinstance(step, BlocksStep):
             spec = step.blocks
             rows = select_rows(loaded.table, spec.where)
-            present = sorted({r.value(spec.by) for r in rows}, key=_level_key)
+            present = sorted({r.value(spec.by) for r in rows}, key=level_key)
             levels = [str(v) for v in spec.levels] if spec.levels else present
             order = block_order(levels, p_index, method=spec.order, seed=seed)
             for level in order:
@@ -300,11 +301,3 @@ def build_schedule(loaded: LoadedProtocol, participant: str, session: str = "1")
                 block_index += 1
                 add_main_block(make_trials(level_rows, "main", level, False), level, i)
     return Schedule(participant, session, seed, p_index, tuple(items))
-
-
-def _level_key(level: str) -> tuple[int, float, str]:
-    """Sort numeric levels numerically ('20' < '110') and others alphabetically."""
-    try:
-        return (0, float(level), "")
-    except ValueError:
-        return (1, 0.0, level)

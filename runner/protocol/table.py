@@ -11,28 +11,15 @@ import io
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from runner.contract.columns import RESERVED_TABLE_COLUMNS, TABLE_REQUIRED
 from runner.errors import Problem
 
 MAX_TABLE_BYTES = 20 * 1024 * 1024
 MAX_TABLE_ROWS = 100_000
-REQUIRED_COLUMNS = ("stimulus", "expected")
-RESERVED_COLUMNS = frozenset(
-    {
-        "participant",
-        "session",
-        "block",
-        "trial",
-        "answer",
-        "unsure",
-        "correct",
-        "rating",
-        "rt_ms",
-        "onset_lsl",
-        "part",
-        "outcome",
-        "sim_rt_ms",
-    }
-)
+REQUIRED_COLUMNS = TABLE_REQUIRED
+# Every name trialdeck writes itself into trials.csv, the pooled table or events.tsv: a table
+# column of that name would be shadowed or lost (runner.contract.columns).
+RESERVED_COLUMNS = RESERVED_TABLE_COLUMNS
 
 
 @dataclass(frozen=True)
@@ -146,7 +133,8 @@ def read_trial_table(
             err(
                 1,
                 c,
-                f"column {col!r} is a name trialdeck writes itself; rename it",
+                f"column {col!r} is a name trialdeck writes itself into trials.csv or the "
+                "exports; rename it",
                 code="reserved-column",
             )
         seen.setdefault(col, i)

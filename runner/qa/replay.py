@@ -34,11 +34,12 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from runner.contract.hashing import HashCache
+from runner.contract.layout import FROZEN_PROTOCOL, JOURNAL_NAME
 from runner.errors import InputFileError, ProtocolError
+from runner.journal.frozen import frozen_file_text, frozen_protocol, frozen_text
+from runner.journal.read import verify_chain
 from runner.protocol.model import Protocol
-from runner.protocol.yamlsafe import read_yaml_text
-from runner.qa.audit import FROZEN_PROTOCOL, HashCache, verify_chain
-from runner.session.journal import JOURNAL_NAME
 from runner.session.views import StimulusView, View, view_from_dict
 
 if TYPE_CHECKING:
@@ -126,24 +127,24 @@ class ReplayResult:
 
 def _protocol_model(folder: Path, header: dict[str, Any], notes: list[str]) -> Protocol:
     """The protocol the session ran with: the frozen copy, else the journal header's text."""
-    text = header.get("protocol_text")
+    text = frozen_text(header)
     frozen = folder / FROZEN_PROTOCOL
-    if frozen.is_file():
-        frozen_text = frozen.read_bytes().decode("utf-8-sig", errors="replace")
-        if isinstance(text, str) and frozen_text != text:
+    on_disk = frozen_file_text(folder)
+    if on_disk is not None:
+        if text is not None and on_disk != text:
             notes.append(
                 f"{frozen} differs from the protocol text in the journal header; the header's "
                 "text (what the session ran with) was used."
             )
-        elif not isinstance(text, str):
-            text = frozen_text
-    if not isinstance(text, str):
+        elif text is None:
+            text = on_disk
+    if text is None:
         raise InputFileError(
             f"{folder} holds neither a frozen protocol.yaml nor the protocol text in its journal "
             "header, so its screens cannot be redrawn."
         )
     try:
-        return Protocol.model_validate(read_yaml_text(text, filename=str(frozen)).data)
+        return frozen_protocol(text, str(frozen))
     except (ProtocolError, ValueError) as exc:
         raise InputFileError(
             f"the frozen protocol of {folder} cannot be read by this trialdeck ({exc}); replay "
@@ -237,9 +238,9 @@ def plan_replay(folder: str | Path, *, stimuli_dir: str | Path | None = None) ->
             "the lines say, which may not be what was on the screen. Run trialdeck audit."
         )
     records = chain.records
-    if not records or records[0][1].get("event") != "header":
+    header = chain.header
+    if not header:
         raise InputFileError(f"{path} has no header line, so its screens cannot be redrawn.")
-    header = records[0][1]
     model = _protocol_model(folder, header, notes)
     trial_stimulus: dict[int, str] = {}
     for _, rec in records:

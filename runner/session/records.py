@@ -2,10 +2,10 @@
 
 **Contract.** One row per completed trial, columns in this order: the contract columns
 ``participant, session, block, trial, stimulus, expected, answer, unsure, correct, rating,
-rt_ms, onset_lsl``, then trialdeck's extra columns, then the trial table's own columns, then
-``sim_rt_ms`` for pilot sessions. Empty cells mean "none" (no answer, unscored, no rating).
-When a trial was completed more than once (an interrupted attempt before a resume), the last
-completion counts.
+rt_ms, onset_lsl``, then trialdeck's engine columns, then the trial table's own columns, then
+``sim_rt_ms`` for pilot sessions (the registry is :mod:`runner.contract.columns`). Empty cells
+mean "none" (no answer, unscored, no rating). When a trial was completed more than once (an
+interrupted attempt before a resume), the last completion counts.
 """
 
 from __future__ import annotations
@@ -15,50 +15,42 @@ import os
 from pathlib import Path
 from typing import Any
 
-from runner.session.journal import JournalRead
+from runner.contract import columns as registry
+from runner.contract.columns import own_table_columns, trials_columns
+from runner.contract.events import VALUES_FIELD
+from runner.contract.layout import TMP_SUFFIX, TRIALS_NAME
+from runner.journal.read import JournalRead
+from runner.journal.trials import winning_records
 
-TRIALS_NAME = "trials.csv"
-CONTRACT_COLUMNS = [
-    "participant",
-    "session",
-    "block",
-    "trial",
-    "stimulus",
-    "expected",
-    "answer",
-    "unsure",
-    "correct",
-    "rating",
-    "rt_ms",
-    "onset_lsl",
+__all__ = [
+    "CONTRACT_COLUMNS",
+    "ENGINE_COLUMNS",
+    "EXTRA_COLUMNS",
+    "PILOT_COLUMNS",
+    "TRIALS_NAME",
+    "columns_for",
+    "csv_cell",
+    "record_value",
+    "table_columns",
+    "trial_records",
+    "write_trials_csv",
 ]
-EXTRA_COLUMNS = [
-    "part",
-    "outcome",
-    "block_index",
-    "typing_ms",
-    "rating_rt_ms",
-    "timed_out",
-    "fixation_ms",
-    "interrupted",
-]
-PILOT_COLUMNS = ["sim_rt_ms"]
+
+# The registry's column groups as lists (the form this module has always offered).
+CONTRACT_COLUMNS = list(registry.CONTRACT_COLUMNS)
+ENGINE_COLUMNS = list(registry.ENGINE_COLUMNS)
+EXTRA_COLUMNS = ENGINE_COLUMNS  # the name earlier versions used
+PILOT_COLUMNS = list(registry.PILOT_COLUMNS)
 
 
 def table_columns(header: dict[str, Any]) -> list[str]:
     """The trial table's own columns (other than stimulus and expected), from the journal header."""
-    cols = header.get("trial_table_columns") or []
-    return [c for c in cols if c not in ("stimulus", "expected")]
+    return own_table_columns(header.get("trial_table_columns"))
 
 
 def trial_records(read: JournalRead) -> list[dict[str, Any]]:
     """Completed trials in session order, one per trial number (the last completion wins)."""
-    by_trial: dict[int, dict[str, Any]] = {}
-    for rec in read.events("trial_end"):
-        row = rec.get("record")
-        if isinstance(row, dict) and isinstance(row.get("trial"), int):
-            by_trial[row["trial"]] = row
-    return [by_trial[k] for k in sorted(by_trial)]
+    return winning_records(read.records)
 
 
 def csv_cell(value: Any, column: str) -> str:
@@ -74,11 +66,17 @@ def csv_cell(value: Any, column: str) -> str:
     return str(value)
 
 
+def record_value(row: dict[str, Any], column: str) -> Any:
+    """A trial record's value of ``column``: its own field, else the trial table's value."""
+    if column in row:
+        return row[column]
+    values = row.get(VALUES_FIELD) or {}
+    return values.get(column)
+
+
 def columns_for(header: dict[str, Any]) -> list[str]:
-    cols = CONTRACT_COLUMNS + EXTRA_COLUMNS + table_columns(header)
-    if header.get("mode") == "pilot":
-        cols += PILOT_COLUMNS
-    return cols
+    """The columns of a session's trials.csv, from its journal header."""
+    return trials_columns(table_columns(header), pilot=header.get("mode") == "pilot")
 
 
 def write_trials_csv(read: JournalRead, folder: Path) -> Path:
@@ -86,13 +84,12 @@ def write_trials_csv(read: JournalRead, folder: Path) -> Path:
     header = read.header or {}
     columns = columns_for(header)
     path = folder / TRIALS_NAME
-    tmp = folder / (TRIALS_NAME + ".tmp")
+    tmp = folder / (TRIALS_NAME + TMP_SUFFIX)
     with open(tmp, "w", encoding="utf-8", newline="") as fh:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(columns)
         for row in trial_records(read):
-            values = row.get("values") or {}
-            writer.writerow([csv_cell(row.get(c, values.get(c)), c) for c in columns])
+            writer.writerow([csv_cell(record_value(row, c), c) for c in columns])
         fh.flush()
         os.fsync(fh.fileno())
     os.replace(tmp, path)

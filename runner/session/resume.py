@@ -13,12 +13,13 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from runner.contract.events import ATTEMPT_STARTS, STATUS_COMPLETED
+from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE
 from runner.errors import JournalError
+from runner.journal.read import JournalRead, read_journal
+from runner.journal.trials import completed_trials as _completed
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Schedule
-from runner.session.journal import JournalRead, read_journal
-
-START_EVENTS = ("session_start", "session_resume")
 
 
 class SessionComplete(JournalError):
@@ -51,19 +52,14 @@ def schedule_summary(schedule: Schedule) -> list[dict[str, Any]]:
 
 def completed_trials(read: JournalRead) -> set[int]:
     """Trial numbers with a ``trial_end`` line in the journal."""
-    done = set()
-    for rec in read.events("trial_end"):
-        trial = rec.get("trial")
-        if isinstance(trial, int):
-            done.add(trial)
-    return done
+    return _completed(read.records)
 
 
 def describe_interruption(read: JournalRead, torn_bytes: int) -> dict[str, Any]:
     """What the last attempt was doing when it stopped (journaled as ``session_interrupted``)."""
     records = read.records
     last = records[-1]
-    starts = [i for i, r in enumerate(records) if r.get("event") in START_EVENTS]
+    starts = [i for i, r in enumerate(records) if r.get("event") in ATTEMPT_STARTS]
     attempt_records = records[starts[-1] :] if starts else records
     ended = {r.get("trial") for r in attempt_records if r.get("event") == "trial_end"}
     in_progress = None
@@ -107,16 +103,16 @@ def plan_resume(path: Path, loaded: LoadedProtocol, schedule: Schedule) -> Resum
         raise JournalError(
             f"the protocol, its trial table or its pages changed since this session started, so"
             f" it cannot be resumed with {loaded.path}. The session's frozen copies are"
-            f" {path.parent / 'protocol.yaml'} and {path.parent / 'trial_table.csv'}."
+            f" {path.parent / FROZEN_PROTOCOL} and {path.parent / FROZEN_TABLE}."
         )
     if header.get("schedule") != schedule_summary(schedule):
         raise JournalError(
             "the schedule derived now differs from the one in the journal, so the session cannot"
             " be resumed (different participant, session or trialdeck version?)."
         )
-    starts = [r for r in read.records if r.get("event") in START_EVENTS]
+    starts = [r for r in read.records if r.get("event") in ATTEMPT_STARTS]
     ends = [r for r in read.records if r.get("event") == "session_end"]
-    if ends and ends[-1].get("status") == "completed" and read.records[-1] is ends[-1]:
+    if ends and ends[-1].get("status") == STATUS_COMPLETED and read.records[-1] is ends[-1]:
         raise SessionComplete(
             f"the session at {path.parent} is complete; there is nothing to resume."
         )

@@ -15,7 +15,6 @@
 from __future__ import annotations
 
 import datetime as _dt
-import hashlib
 import os
 import platform
 import shutil
@@ -27,6 +26,8 @@ from pathlib import Path
 from typing import Any, Literal
 
 from runner import __version__
+from runner.contract.hashing import file_sha256
+from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TORN_SUFFIX, session_folder
 from runner.errors import (
     DisplayError,
     JournalError,
@@ -46,12 +47,8 @@ from runner.session.resume import ResumePlan, SessionComplete, plan_resume, sche
 from runner.session.simulate import SimulatedParticipant
 from runner.session.triggers import SerialTriggers, trigger_map
 
-FROZEN_PROTOCOL = "protocol.yaml"
-FROZEN_TABLE = "trial_table.csv"
-HASH_CHUNK = 1 << 20
 SWITCH_INTERVAL_S = 0.0002
 MIN_FREE_BYTES = 200 * 2**20  # room to spare: a long session's journal is a few MB
-TORN_SUFFIX = ".torn"
 
 
 @dataclass
@@ -85,19 +82,6 @@ class RunResult:
     push_delays_us: list[float] = field(default_factory=list)
     sim_posts: list[tuple[str, float, float]] = field(default_factory=list)
     error: BaseException | None = None
-
-
-def session_folder(out: Path, study: str, participant: str, session: str) -> Path:
-    """**Contract.** ``<out>/<study>/sub-<participant>/ses-<session>/``."""
-    return out / study / f"sub-{participant}" / f"ses-{session}"
-
-
-def file_sha256(path: Path) -> str:
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        while chunk := fh.read(HASH_CHUNK):
-            digest.update(chunk)
-    return digest.hexdigest()
 
 
 def stimulus_hashes(loaded: LoadedProtocol) -> dict[str, str]:

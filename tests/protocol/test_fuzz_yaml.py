@@ -210,7 +210,5 @@ def test_pyyaml_dumps_read_back_to_the_same_data(data, flow):
         lines = text.splitlines()
         for key in data:
             mark = doc.marks[(key,)]
-            # PyYAML quotes keys that YAML 1.1 would read otherwise ('no', 'on'): the mark is
-            # on the opening quote then.
-            at = lines[mark.line - 1][mark.column - 1 :]
-            assert at.startswith(key) or at.startswith(f"'{key}'") or at.startswith(f'"{key}"')
+            # PyYAML quotes keys that would read as other types ('no', 'null', '12').
+            assert lines[mark.line - 1][mark.column - 1 :].lstrip("'\"").startswith(key)

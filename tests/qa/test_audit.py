@@ -19,7 +19,7 @@ from runner.errors import InputFileError
 from runner.protocol.load import load_protocol
 from runner.protocol.schedule import build_schedule
 from runner.qa.audit import audit_session, audit_sessions, format_audits, journaled_markers
-from runner.qa.recording import read_recording
+from runner.recording import read_recording
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
 
 # Recorder clock = presenter clock + this; the marker stream's ClockOffset chunks say so.

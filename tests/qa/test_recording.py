@@ -1,4 +1,4 @@
-"""Checking a session journal against an XDF recording (runner.qa.recording)."""
+"""Checking a session journal against an XDF recording (runner.recording)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import pyxdf
 from xdfwrite import FixtureStream, write_xdf
 
 from runner.errors import RecordingError
-from runner.qa.recording import (
+from runner.recording import (
     check_recording,
     find_marker_streams,
     match_markers,

@@ -1,0 +1,483 @@
+"""The audit's checks of one session: completeness, files, responses, recording.
+
+The timing check is :mod:`runner.qa.audit_timing`.
+
+Each check reads the journal's event lines (:class:`runner.qa.audit_facts.EventIndex`), adds
+problems to a :class:`runner.qa.audit_facts.Findings` and its measurements to ``facts``.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+from collections import Counter, defaultdict
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from runner.contract.events import STATUS_ABORTED, STATUS_COMPLETED
+from runner.contract.hashing import HashCache
+from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, display_path
+from runner.errors import ProtocolError, RecordingError
+from runner.journal.frozen import frozen_protocol, frozen_text
+from runner.journal.trials import Attempt, trial_of_end
+from runner.qa.audit_facts import (
+    CompletedTrial,
+    EventIndex,
+    Findings,
+    Numbered,
+    as_int,
+    listing,
+    num,
+    plural,
+    ranges,
+    stats,
+)
+from runner.recording import Recording, RecordingReport, check_recording
+
+# Responses faster than this (divided by the pilot speed) are flagged as possible anticipations
+# or a stuck key. No published floor exists for counting tasks; 200 ms is common practice for
+# simple reaction times, and counting the stops on a route takes far longer.
+ANTICIPATION_MS = 200.0
+CLEAN_END = STATUS_COMPLETED
+ABORTED = STATUS_ABORTED
+
+
+@dataclass(frozen=True)
+class Mismatch:
+    """A trial record value that disagrees with the journal's key presses (or the scale)."""
+
+    trial: int
+    line: int
+    what: str
+    journaled: Any
+    recorded: Any
+
+
+def check_completion(
+    header: dict[str, Any],
+    ix: EventIndex,
+    attempts: list[Attempt],
+    out: Findings,
+    facts: dict[str, Any],
+) -> dict[int, CompletedTrial]:
+    """Every scheduled trial completed once, or the rest journaled as aborted.
+
+    Returns the completed trials by trial number.
+    """
+    schedule = header.get("schedule") if isinstance(header.get("schedule"), list) else []
+    planned: dict[int, dict[str, Any]] = {}
+    for s in schedule:
+        if isinstance(s, dict) and as_int(s.get("trial")) is not None:
+            planned[s["trial"]] = s
+    if header and not planned:
+        out.error(
+            "the journal header holds no trial schedule, so completeness cannot be checked.", 1
+        )
+    ends: dict[int, list[Numbered]] = defaultdict(list)
+    for n, rec in ix.of("trial_end"):
+        t = trial_of_end(rec)
+        row = rec.get("record")
+        if t is None or not isinstance(row, dict):
+            out.error(f"line {n} closes a trial but holds no trial record.", n)
+            continue
+        ends[t].append((n, row))
+
+    completed: dict[int, CompletedTrial] = {}
+    for t, found in sorted(ends.items()):
+        if t not in planned:
+            out.error(
+                f"trial {t} was completed (line {found[0][0]}) but is not in the "
+                "session's schedule.",
+                found[0][0],
+            )
+            continue
+        if len(found) > 1:
+            lines = ", ".join(str(n) for n, _ in found)
+            out.error(
+                f"trial {t} was completed {len(found)} times (lines {lines}); each trial "
+                "must be completed once. Analyse the last completion or exclude the trial.",
+                found[1][0],
+            )
+        n, row = found[-1]
+        completed[t] = CompletedTrial(n, row)
+        want = planned[t].get("stimulus")
+        if want is not None and row.get("stimulus") != want:
+            out.error(
+                f"trial {t} showed {row.get('stimulus')!r} but the schedule planned {want!r}.", n
+            )
+
+    missing = [t for t in planned if t not in completed]
+    last = attempts[-1] if attempts else None
+    status = last.status if last else None
+    aborts = ix.of("abort")
+    aborted_at: int | None = aborts[-1][0] if aborts else None
+    events = ix.events
+    if missing:
+        rng = ranges(missing)
+        if last is None:
+            out.error(
+                f"the session never started: none of its {len(planned)} scheduled trials were run.",
+                1,
+            )
+        elif status is None:
+            n = events[-1][0] if events else 1
+            out.error(
+                f"the session stopped without its closing line (a crash, power loss or a killed "
+                f"program after line {n}); {plural(len(missing), 'scheduled trial')} "
+                f"({rng}) {'was' if len(missing) == 1 else 'were'} not completed. Resume the "
+                "session to run them.",
+                n,
+            )
+        elif status == ABORTED:
+            out.warning(
+                f"the session was aborted by the experimenter (line {aborted_at or last.end_line}"
+                f"); {plural(len(missing), 'scheduled trial')} ({rng}) "
+                f"{'was' if len(missing) == 1 else 'were'} not run.",
+                aborted_at or last.end_line or 0,
+            )
+        elif status == CLEAN_END:
+            what = plural(len(missing), "scheduled trial")
+            verb = "has" if len(missing) == 1 else "have"
+            out.error(
+                f"the session says it completed, but {what} ({rng}) {verb} no result.",
+                last.end_line or 0,
+            )
+        else:
+            out.error(
+                f"the session ended with status {status!r} (line {last.end_line}); "
+                f"{plural(len(missing), 'scheduled trial')} ({rng}) "
+                f"{'was' if len(missing) == 1 else 'were'} not completed. Resume the session "
+                "to run them.",
+                last.end_line or 0,
+            )
+    elif last is not None and status is None:
+        out.warning(
+            "every trial was completed, but the journal has no closing session_end "
+            "line (the program stopped before the end screen).",
+            events[-1][0] if events else 0,
+        )
+
+    # Attempts before the last: each must have stopped (else a second program wrote into the
+    # same journal), and its interrupted trials must be completed later.
+    resumed: list[dict[str, Any]] = []
+    for a in attempts:
+        later_done = {t for b in attempts if b.index > a.index for t in b.completed}
+        for t in a.interrupted_trials:
+            if t in later_done:
+                resumed.append({"trial": t, "interrupted_in": a.index})
+        if a is not last and a.status == CLEAN_END:
+            out.warning(
+                f"attempt {a.index} (line {a.start_line}) completed, yet the journal "
+                "continues with another attempt.",
+                a.start_line,
+            )
+    for b in attempts[1:]:
+        if b.kind != "session_resume":
+            out.warning(
+                f"line {b.start_line} starts the session again without a resume line; "
+                "an earlier attempt is in the same journal.",
+                b.start_line,
+            )
+        repeated = sorted(
+            set(b.started) & {t for x in attempts[: b.index - 1] for t in x.completed}
+        )
+        if repeated:
+            out.error(
+                f"attempt {b.index} (line {b.start_line}) ran trials already completed "
+                f"before it: {ranges(repeated)}.",
+                b.start_line,
+            )
+    facts["trials"] = {
+        "scheduled": len(planned),
+        "completed": len(completed),
+        "missing": sorted(missing),
+        "final_status": status,
+        "attempts": len(attempts),
+        "interrupted_then_completed": resumed,
+    }
+    return completed
+
+
+# --------------------------------------------------------------------------------------------
+# Files: stimuli, frozen protocol and trial table
+
+
+def check_files(
+    header: dict[str, Any], folder: Path, out: Findings, facts: dict[str, Any], cache: HashCache
+) -> None:
+    info: dict[str, Any] = {}
+    for name, key in ((FROZEN_PROTOCOL, "protocol_text"), (FROZEN_TABLE, "trial_table_text")):
+        path = folder / name
+        text = header.get(key)
+        if not isinstance(text, str):
+            continue
+        if not path.is_file():
+            out.warning(
+                f"the frozen copy {name} is missing from the session folder; the "
+                "journal header still holds its text.",
+                file=display_path(path),
+            )
+            info[name] = "missing"
+            continue
+        have = path.read_bytes().decode("utf-8-sig", errors="replace")
+        if have != text:
+            out.error(
+                f"the frozen copy {name} differs from the text the session ran with "
+                "(journal header); it was edited after the session.",
+                file=display_path(path),
+            )
+            info[name] = "changed"
+        else:
+            info[name] = "unchanged"
+
+    hashes = header.get("stimulus_hashes")
+    table_file = header.get("trial_table_file")
+    if not isinstance(hashes, dict) or not isinstance(table_file, str):
+        facts["files"] = info
+        return
+    base = Path(table_file).parent
+    changed, absent, same = [], [], 0
+    for rel, want in hashes.items():
+        path = base / str(rel)
+        try:
+            have = cache.sha256(path)
+        except OSError:
+            absent.append(str(rel))
+            continue
+        if have != want:
+            changed.append(str(rel))
+        else:
+            same += 1
+    if changed:
+        out.error(
+            f"{plural(len(changed), 'stimulus file')} changed since the session "
+            f"({listing(changed)}, in {base}): participants saw the earlier version. Restore "
+            "the files from the study's archive before the next session or analysis.",
+            file=display_path(base / changed[0]),
+        )
+    if absent:
+        out.warning(
+            f"{plural(len(absent), 'stimulus file')} cannot be found at {base} to check "
+            f"({listing(absent)}); audit on the presenter computer, or copy the stimuli to the "
+            "same place, to verify them.",
+        )
+    info["stimuli"] = {
+        "checked": len(hashes),
+        "unchanged": same,
+        "changed": changed,
+        "not_found": absent,
+        "folder": str(base),
+    }
+    facts["files"] = info
+
+
+# --------------------------------------------------------------------------------------------
+# Answers, ratings, response times
+
+
+def check_responses(
+    header: dict[str, Any],
+    ix: EventIndex,
+    completed: dict[int, CompletedTrial],
+    out: Findings,
+    facts: dict[str, Any],
+) -> None:
+    speed = num(header.get("speed")) or 1.0
+    points = _rating_points(header)
+    answered: dict[int, dict[str, Any]] = {}
+    rated: dict[int, dict[str, Any]] = {}
+    for _, rec in ix.of("answer", "rating"):
+        tr = as_int(rec.get("trial"))
+        if tr is None:
+            continue
+        if rec.get("event") == "answer":
+            answered[tr] = rec
+        elif rec.get("event") == "rating":
+            rated[tr] = rec
+    no_answer: list[int] = []
+    no_rating: list[int] = []
+    timed_out: list[int] = []
+    bad: list[Mismatch] = []
+    rts: list[float] = []
+    fast: list[int] = []
+    floor = ANTICIPATION_MS / speed
+    for tr, done in sorted(completed.items()):
+        n, row = done.line, done.record
+        ans, unsure = row.get("answer"), bool(row.get("unsure"))
+        t_out = bool(row.get("timed_out"))
+        if ans is None and not unsure:
+            (timed_out if t_out else no_answer).append(tr)
+        ev = answered.get(tr)
+        if ev is not None and (ev.get("answer") != ans or bool(ev.get("unsure")) != unsure):
+            bad.append(Mismatch(tr, n, "answer", ev.get("answer"), ans))
+        rating = row.get("rating")
+        if rating is None:
+            no_rating.append(tr)
+        else:
+            rev = rated.get(tr)
+            if rev is not None and rev.get("rating") != rating:
+                bad.append(Mismatch(tr, n, "rating", rev.get("rating"), rating))
+            if points is not None and not (as_int(rating) is not None and 1 <= rating <= points):
+                bad.append(Mismatch(tr, n, "rating", f"1..{points}", rating))
+        expected = row.get("expected")
+        correct = row.get("correct")
+        if expected is not None and as_int(ans) is not None and not unsure:
+            want = int(ans == expected)
+            if correct != want:
+                bad.append(Mismatch(tr, n, "correct", want, correct))
+        rt = num(row.get("rt_ms"))
+        if rt is not None:
+            rts.append(rt)
+            if rt < floor:
+                fast.append(tr)
+    first_line = {tr: done.line for tr, done in completed.items()}
+    if no_answer:
+        out.error(
+            f"{plural(len(no_answer), 'completed trial')} ({ranges(no_answer)}) "
+            f"{'has' if len(no_answer) == 1 else 'have'} no answer, yet "
+            f"{'was' if len(no_answer) == 1 else 'were'} neither marked unsure nor timed "
+            "out; the trial record is inconsistent.",
+            first_line[no_answer[0]],
+        )
+    if timed_out:
+        out.warning(
+            f"{plural(len(timed_out), 'trial')} ({ranges(timed_out)}) timed out without an answer.",
+            first_line[timed_out[0]],
+        )
+    if no_rating:
+        out.warning(
+            f"{plural(len(no_rating), 'trial')} ({ranges(no_rating)}) "
+            f"{'has' if len(no_rating) == 1 else 'have'} no difficulty rating (the "
+            "rating screen timed out).",
+            first_line[no_rating[0]],
+        )
+    for m in bad:
+        out.error(
+            f"trial {m.trial}: the trial record's {m.what} is {m.recorded!r}, but the journal's "
+            f"key presses give {m.journaled!r}.",
+            m.line,
+        )
+    if fast:
+        out.warning(
+            f"{plural(len(fast), 'response')} came faster than {floor:g} ms after "
+            f"stimulus onset (trials {ranges(fast)}): possible anticipations or a "
+            "stuck key.",
+            first_line[fast[0]],
+        )
+    outcomes = Counter(str(done.record.get("outcome")) for done in completed.values())
+    facts["responses"] = {
+        "rt_ms": stats(rts),
+        "outcomes": dict(sorted(outcomes.items())),
+        "no_answer": no_answer,
+        "timed_out": timed_out,
+        "no_rating": no_rating,
+        "fast": fast,
+        "anticipation_floor_ms": floor,
+    }
+
+
+def _rating_points(header: dict[str, Any]) -> int | None:
+    """The rating scale's number of points, from the frozen protocol text (None: unreadable)."""
+    text = frozen_text(header)
+    if text is None:
+        return None
+    try:
+        return int(frozen_protocol(text).rating.points)
+    except (ProtocolError, ValueError):  # pydantic's ValidationError is a ValueError
+        # An unreadable frozen protocol only skips this one check.
+        return None
+
+
+def check_trials_csv(
+    folder: Path,
+    completed: dict[int, CompletedTrial],
+    out: Findings,
+    facts: dict[str, Any],
+) -> None:
+    path = folder / TRIALS_NAME
+    if not path.is_file():
+        out.warning(
+            f"{TRIALS_NAME} is missing from the session folder; it is derived from the "
+            "journal and can be written again from it.",
+            file=display_path(path),
+        )
+        facts["trials_csv"] = "missing"
+        return
+    with open(path, newline="", encoding="utf-8") as fh:
+        rows = list(csv.DictReader(fh))
+    have = sorted(int(r["trial"]) for r in rows if (r.get("trial") or "").isdigit())
+    if have != sorted(completed):
+        out.warning(
+            f"{TRIALS_NAME} lists {len(rows)} trials but the journal completed "
+            f"{len(completed)}; it is out of date with the journal (the journal is the "
+            "source of truth).",
+            file=display_path(path),
+        )
+        facts["trials_csv"] = "out of date"
+    else:
+        facts["trials_csv"] = "matches the journal"
+
+
+# --------------------------------------------------------------------------------------------
+# Against the recording
+
+
+def journaled_markers(events: Iterable[tuple[int, dict[str, Any]]]) -> list[tuple[str, float]]:
+    """(payload, LSL timestamp) of every marker the journal says it sent."""
+    out: list[tuple[str, float]] = []
+    for _, rec in events:
+        payload, t = rec.get("marker"), num(rec.get("t"))
+        if isinstance(payload, str) and t is not None:
+            out.append((payload, t))
+    return out
+
+
+def check_against_recording(
+    header: dict[str, Any],
+    events: list[tuple[int, dict[str, Any]]],
+    recording: Recording,
+    out: Findings,
+    facts: dict[str, Any],
+    max_gap_s: float,
+    residual_limit_ms: float,
+) -> RecordingReport | None:
+    rec_file = display_path(recording.path)
+    markers = header.get("markers") if isinstance(header.get("markers"), dict) else {}
+    source_id = markers.get("source_id") if isinstance(markers.get("source_id"), str) else None
+    name = markers.get("name") if isinstance(markers.get("name"), str) else None
+    journaled = journaled_markers(events)
+    try:
+        report = check_recording(
+            recording,
+            journaled,
+            source_id=source_id,
+            name=name,
+            max_gap_s=max_gap_s,
+            residual_limit_ms=residual_limit_ms,
+        )
+    except RecordingError as exc:
+        out.error(str(exc), file=rec_file)
+        facts["recording"] = {"path": str(recording.path), "error": str(exc)}
+        return None
+    # A garbage sample left by a closing outlet, notes of the XDF reader and a restart that split
+    # the marker stream are reported as warnings; everything else the check finds is an error.
+    calm = dataclasses.replace(
+        report,
+        reader_notes=[],
+        match=dataclasses.replace(report.match, garbage=[]),
+        choice=dataclasses.replace(report.choice, combined=False),
+    )
+    errors = calm.problems()
+    for sentence in errors:
+        out.error(sentence, file=rec_file)
+    for sentence in report.problems():
+        if sentence not in errors:
+            out.warning(sentence, file=rec_file)
+    if report.choice.note and not report.choice.combined:
+        out.warning(
+            f"several marker streams could be this session's: {report.choice.note}", file=rec_file
+        )
+    facts["recording"] = report.as_dict()
+    return report
