@@ -3,6 +3,9 @@
 Every problem found is reported at once as ``FILE:LINE:COL: error: message``, naming the field
 by its path (``sets[1].densities.dense``), echoing the value and listing what is allowed.
 docs/stimuli.md describes every field.
+
+Length: one module on purpose: the spec's fields and their checks read top to bottom in the
+order docs/stimuli.md lists them.
 """
 
 from __future__ import annotations

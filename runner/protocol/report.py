@@ -5,6 +5,9 @@ points at the line and column of that setting in the YAML file, echoes the bad v
 ``repr`` and says what is allowed. The functions work with any pydantic v2 model; they need the
 :class:`~runner.protocol.yamlsafe.YamlDoc` the data came from, for the positions.
 
+Length: one module on purpose: it is a table of pydantic error kinds with one phrasing rule each,
+and the rules share the path and value formatting.
+
 Conventions the model can use to get better messages:
 
 - a field's ``description`` is used as the "expected" phrase when the value has the wrong type

@@ -5,6 +5,9 @@ plain where YAML 1.1 is surprising. It uses PyYAML's ``SafeLoader`` only to scan
 compose the node graph; the plain Python values are then built here, so no YAML tag can ever
 construct an arbitrary object.
 
+Length: one module on purpose. The scanner hooks, the node walk and the YAML 1.2 scalar rules
+share the mark bookkeeping; split apart they would need it passed through every call.
+
 What the reader refuses (each as a :class:`~runner.errors.ProtocolError` whose problems point
 at ``FILE:LINE:COL``):
 
