@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import numpy as np
-import pyxdf
 import pytest
+import pyxdf
 from xdfwrite import FixtureStream, write_xdf
 
 from runner.recording.dejitter import dejitter, segments
