@@ -58,6 +58,9 @@ class RecordedStream:
     clock_offset_s: float = 0.0
     clock_offset_count: int = 0
     has_footer: bool = True
+    # What the stream's header says about the session that sent it (trialdeck's marker streams
+    # carry study, participant, session, protocol_hash and mode in desc/session); empty otherwise.
+    identity: dict[str, str] = field(default_factory=dict)
 
     @property
     def created_at_value(self) -> float:
@@ -204,6 +207,21 @@ def _scan_chunks(path: Path, data_size: int) -> tuple[int, str | None]:
     return count, None
 
 
+def stream_identity(info: dict[str, Any]) -> dict[str, str]:
+    """The ``desc/session`` entries of a stream header as read by pyxdf (text values only)."""
+    desc = info.get("desc")
+    node = desc[0] if isinstance(desc, list) and desc else None
+    session = node.get("session") if isinstance(node, dict) else None
+    entry = session[0] if isinstance(session, list) and session else None
+    if not isinstance(entry, dict):
+        return {}
+    out: dict[str, str] = {}
+    for key, value in entry.items():
+        if isinstance(value, list) and value and isinstance(value[0], str):
+            out[key] = value[0]
+    return out
+
+
 def _first(info: dict[str, Any], key: str, default: str = "") -> str:
     value = info.get(key)
     if isinstance(value, list) and value:
@@ -321,6 +339,7 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
                 clock_offset_s=float(np.median(offsets)) if len(offsets) else 0.0,
                 clock_offset_count=len(offsets),
                 has_footer="footer" in entry,
+                identity=stream_identity(info),
             )
         )
         if not len(offsets) and len(ts):

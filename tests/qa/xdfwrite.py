@@ -93,6 +93,7 @@ class FixtureStream:
     channel_count: int | None = None
     clock_offsets: list[tuple[float, float]] = field(default_factory=list)
     footer_sample_count: int | None = None  # to imitate a footer that disagrees with the data
+    desc_xml: str = ""  # inner XML of the header's <desc> (e.g. a marker stream's session identity)
 
     def channels(self) -> int:
         if self.channel_count is not None:
@@ -136,7 +137,7 @@ def stream_header_xml(s: FixtureStream) -> str:
         ("created_at", _fmt(s.created_at)),
     ]
     body = "".join(f"<{k}>{escape(v)}</{k}>" for k, v in fields)
-    return f'<?xml version="1.0"?><info>{body}<desc></desc></info>'
+    return f'<?xml version="1.0"?><info>{body}<desc>{s.desc_xml}</desc></info>'
 
 
 def stream_footer_xml(s: FixtureStream) -> str:
