@@ -1,0 +1,137 @@
+"""Photodiode edges: when light actually left the screen, measured on a recorded analog channel.
+
+A light sensor taped over trialdeck's photodiode patch (a small square that turns white with
+each stimulus onset) and wired to an auxiliary input of the recorder gives, per onset, the time
+the screen really changed. Matched with the journaled onset flips (mapped onto the recorder's
+clock), the difference is the display latency: what the marker cannot know (the display's own
+processing and pixel response).
+
+Edges are found with a threshold from the signal's own levels (halfway between a low and a high
+percentile, so the sensor's gain and offset do not matter), with hysteresis and a dead time
+against noise and flicker (debouncing).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+LOW_PERCENTILE = 5.0
+HIGH_PERCENTILE = 99.5  # the patch may be lit for a small share of the time
+HYSTERESIS = 0.1  # share of the level range either side of the threshold
+DEAD_TIME_S = 0.05  # shorter than any screen in a trial (several frames), longer than flicker
+MAX_LATENCY_S = 0.2  # an edge more than this after an onset belongs to no onset
+# Level range over the sample-to-sample noise below which no edge is trusted. Noise is judged
+# from first differences (robust to the rare edges): white noise alone gives a ratio near 3.3.
+MIN_LEVEL_RATIO = 8.0
+MAD_TO_SD = 1.4826
+
+
+@dataclass(frozen=True)
+class Edges:
+    """Rising (light on) edges of a photodiode channel."""
+
+    times: np.ndarray  # recorder times of the edges, interpolated between samples
+    low: float
+    high: float
+    threshold: float
+
+
+def find_edges(values: np.ndarray, times: np.ndarray) -> Edges:
+    """Rising edges (dark to light) of one photodiode channel.
+
+    Parameters
+    ----------
+    values : array
+        The channel's samples (any unit; larger means brighter).
+    times : array
+        Each sample's time on the recorder's clock (dejittered for a regular stream).
+
+    Returns
+    -------
+    Edges
+        Empty when the signal never changes level (no sensor, or sensor not on the patch).
+    """
+    v = np.asarray(values, dtype=float)
+    t = np.asarray(times, dtype=float)
+    if len(v) < 2:
+        return Edges(np.array([]), 0.0, 0.0, 0.0)
+    low, high = (float(x) for x in np.percentile(v, [LOW_PERCENTILE, HIGH_PERCENTILE]))
+    threshold = (low + high) / 2
+    steps = np.diff(v)
+    noise = MAD_TO_SD * float(np.median(np.abs(steps - np.median(steps)))) / np.sqrt(2)
+    if high - low <= 0 or (noise > 0 and (high - low) / noise < MIN_LEVEL_RATIO):
+        return Edges(np.array([]), low, high, threshold)
+    on = threshold + HYSTERESIS * (high - low)
+    off = threshold - HYSTERESIS * (high - low)
+    out: list[float] = []
+    light = v[0] > on
+    last = -np.inf
+    for i in range(1, len(v)):
+        if light:
+            if v[i] < off:
+                light = False
+        elif v[i] > on:
+            light = True
+            # The crossing of the middle threshold, interpolated between the samples around it.
+            j = i
+            while j > 0 and v[j - 1] > threshold:
+                j -= 1
+            if j == 0:
+                continue
+            a, b = v[j - 1], v[j]
+            frac = (threshold - a) / (b - a) if b != a else 0.0
+            edge = t[j - 1] + frac * (t[j] - t[j - 1])
+            if edge - last >= DEAD_TIME_S:
+                out.append(edge)
+                last = edge
+    return Edges(np.asarray(out), low, high, threshold)
+
+
+@dataclass(frozen=True)
+class Latency:
+    """Display latency per onset: ``latency_s[i]`` belongs to ``onsets[i]`` (NaN when missed)."""
+
+    onsets: np.ndarray  # onset flips on the recorder's clock
+    latency_s: np.ndarray
+    extra_edges: np.ndarray  # edges that belong to no onset
+
+    @property
+    def missed(self) -> int:
+        return int(np.isnan(self.latency_s).sum())
+
+    def summary(self) -> dict[str, float | int | None]:
+        found = self.latency_s[~np.isnan(self.latency_s)] * 1000
+        if not len(found):
+            return {"matched": 0, "missed": self.missed, "extra": len(self.extra_edges)}
+        return {
+            "matched": len(found),
+            "missed": self.missed,
+            "extra": len(self.extra_edges),
+            "median_ms": float(np.median(found)),
+            "iqr_ms": float(np.subtract(*np.percentile(found, [75, 25]))),
+            "worst_ms": float(np.max(found)),
+        }
+
+
+def pair_edges(onsets: Sequence[float], edges: np.ndarray) -> Latency:
+    """Pair each onset with the first edge at or after it, within :data:`MAX_LATENCY_S`.
+
+    An edge can serve one onset only; onsets and edges are on the recorder's clock.
+    """
+    on = np.sort(np.asarray(onsets, dtype=float))
+    e = np.sort(np.asarray(edges, dtype=float))
+    lat = np.full(len(on), np.nan)
+    used = np.zeros(len(e), dtype=bool)
+    j = 0
+    for i, t in enumerate(on):
+        # A small negative tolerance: clock-model error can put an edge a fraction of a ms early.
+        while j < len(e) and e[j] < t - 0.001:
+            j += 1
+        if j < len(e) and e[j] - t <= MAX_LATENCY_S:
+            lat[i] = e[j] - t
+            used[j] = True
+            j += 1
+    return Latency(on, lat, e[~used])
