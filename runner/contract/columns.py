@@ -48,7 +48,7 @@ TABLE_REQUIRED = ("stimulus", "expected")
 RECORD_KEYS = ("values",)
 
 # BIDS events: BIDS columns first (onset and duration must lead), then trialdeck's own.
-BIDS_COLUMNS = ("onset", "duration", "trial_type", "response_time", "stim_file")
+BIDS_COLUMNS = ("onset", "duration", "trial_type", "value", "response_time", "stim_file")
 # Columns that belong to the row (the event), then columns shared by every row of one trial.
 EVENT_ROW_COLUMNS = ("event", "trial", "key", "label", "timed_out", "attempt")
 EVENT_TRIAL_COLUMNS = (

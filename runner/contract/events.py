@@ -74,6 +74,31 @@ RECORD_FIELD = "record"  # a trial_end line's trials.csv row
 VALUES_FIELD = "values"  # inside a record: the trial table's own values
 
 
+# **Contract.** The integer ``value`` of each events.tsv row kind (``trial_type``): the same in every
+# session and study, so EEG tools that need integer event codes (MNE's events arrays) can pool
+# sessions whose event sets differ. Never renumber; add new kinds with new numbers.
+EVENT_VALUES: dict[str, int] = {
+    "session": 1,
+    "resume": 2,
+    "page": 3,
+    "rest": 4,
+    "block": 5,
+    "break": 6,
+    "pause": 7,
+    "fixation": 10,
+    "stimulus": 11,
+    "decision": 12,
+    "answer_prompt": 13,
+    "answer": 14,
+    "rating_prompt": 15,
+    "rating": 16,
+    "feedback": 17,
+    "gap": 18,
+    "anticipation": 19,
+    "abort": 90,
+}
+
+
 def encode_marker(event: str, **fields: Any) -> str:
     """The JSON payload of one marker sample (compact, ``event`` first, fields in given order)."""
     return json.dumps({"event": event, **fields}, ensure_ascii=False, separators=(",", ":"))

@@ -17,6 +17,7 @@ from typing import Any
 import pandas as pd
 
 from runner.contract.columns import level_key
+from runner.contract.events import EVENT_VALUES
 from runner.contract.layout import (
     PARTICIPANT_PREFIX,
     SESSION_PREFIX,
@@ -108,6 +109,7 @@ def bids_events(session: ExportSession, origin: Origin | None = None) -> pd.Data
                 r.t - origin.t0,
                 duration,
                 r.kind,
+                EVENT_VALUES[r.kind],
                 r.response_time,
                 r.stim_file,
                 r.event,
@@ -151,7 +153,7 @@ def events_tsv(ev: EventRows, origin: Origin) -> str:
         append(
             f"{t - t0:.{SECONDS_DECIMALS}f}\t"
             + (NA if end is None else f"{max(0.0, end - t):.{SECONDS_DECIMALS}f}")
-            + f"\t{r.kind}\t{_seconds(r.response_time)}\t"
+            + f"\t{r.kind}\t{EVENT_VALUES[r.kind]}\t{_seconds(r.response_time)}\t"
             + f"{NA if stim is None else _tsv_cell(stim)}\t{r.event}\t"
             + f"{NA if r.trial is None else r.trial}\t{NA if key is None else _tsv_cell(key)}\t"
             + f"{NA if label is None else _tsv_cell(label)}\t"
@@ -182,6 +184,11 @@ def events_sidecar(session: ExportSession, origin: Origin, ev: EventRows) -> dic
             "Description": "What the row is: a screen, a response or a pause. Experimental "
             "conditions are in the factor columns.",
             "Levels": {k: ROW_KINDS[k][2] for k in ROW_KINDS if k in kinds_present},
+        },
+        "value": {
+            "Description": "A fixed integer code for the trial_type, the same in every session "
+            "and study (see docs/markers.md), for tools that need integer event codes.",
+            "Levels": {str(EVENT_VALUES[k]): k for k in ROW_KINDS if k in kinds_present},
         },
         "response_time": {
             "Description": "On stimulus rows: seconds from stimulus onset to the first key press "

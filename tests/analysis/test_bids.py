@@ -308,3 +308,25 @@ def test_recording_without_eeg_or_markers_is_refused(pilots, tmp_path):
     path = write_xdf(tmp_path / "no-eeg.xdf", [only_markers])
     with pytest.raises(RecordingError, match="no EEG stream"):
         recording_origin(load_session(folders[0]), path)
+
+
+def test_event_values_are_one_fixed_code_per_trial_type_in_every_session(bids_out: Path):
+    """Every row's value is its trial_type's fixed code, identical across sessions whose event
+    sets differ (an aborted session has abort rows, the others none), so sessions pool.
+
+    Source: common practice (no published source): integer event codes shared across recordings
+    are what MNE's events arrays and epoch pooling need; the codes are listed in docs/markers.md.
+    """
+    from runner.contract.events import EVENT_VALUES
+
+    seen: dict[str, set[str]] = {}
+    kinds_per_file = []
+    for path in _events_files(bids_out):
+        columns, rows = _tsv(path)
+        assert columns[:4] == ["onset", "duration", "trial_type", "value"]
+        kinds_per_file.append({r["trial_type"] for r in rows})
+        for r in rows:
+            seen.setdefault(r["trial_type"], set()).add(r["value"])
+    assert len({frozenset(k) for k in kinds_per_file}) > 1  # the event sets do differ
+    assert seen == {k: {str(EVENT_VALUES[k])} for k in seen}
+    assert len(set(EVENT_VALUES.values())) == len(EVENT_VALUES)
