@@ -270,6 +270,11 @@ def events_sidecar(session: ExportSession, origin: Origin, ev: EventRows) -> dic
         presentation["OperatingSystem"] = str(system)
     if screen.distance_cm is not None:
         presentation["ScreenDistance"] = round(screen.distance_cm / 100.0, 4)
+    if screen.width_cm is not None:
+        # The protocol gives the visible width; the height follows from square pixels.
+        width_m = screen.width_cm / 100.0
+        height_m = width_m * screen.resolution[1] / screen.resolution[0]
+        presentation["ScreenSize"] = [round(width_m, 4), round(height_m, 4)]
     sidecar["StimulusPresentation"] = presentation
     return sidecar
 

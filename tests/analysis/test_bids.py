@@ -330,3 +330,31 @@ def test_event_values_are_one_fixed_code_per_trial_type_in_every_session(bids_ou
     assert len({frozenset(k) for k in kinds_per_file}) > 1  # the event sets do differ
     assert seen == {k: {str(EVENT_VALUES[k])} for k in seen}
     assert len(set(EVENT_VALUES.values())) == len(EVENT_VALUES)
+
+
+@pytest.mark.slow
+def test_stimulus_presentation_gives_the_screen_in_metres(tmp_path: Path, bids_schema):
+    """The sidecar's StimulusPresentation holds the screen size and distance in metres, the
+    resolution and refresh rate, with only fields the BIDS schema defines for it.
+
+    Source: BIDS schema (bidsschematools), objects.metadata.StimulusPresentation and its
+    ScreenSize / ScreenDistance definitions (metres).
+    """
+    import json
+
+    from conftest import run_pilot as run_one
+    from protofix import BASE_PROTOCOL, write_protocol
+
+    protocol = json.loads(json.dumps(BASE_PROTOCOL))
+    protocol["screen"] |= {"width_cm": 52.7, "distance_cm": 60}
+    path = write_protocol(tmp_path / "study", protocol)
+    run_one(path, tmp_path / "sessions", speed=50.0)
+    out = tmp_path / "bids"
+    export_sessions([tmp_path / "sessions"], out)
+    (sidecar_path,) = out.glob("sub-*/ses-*/*/*_events.json")
+    pres = json.loads(sidecar_path.read_text(encoding="utf-8"))["StimulusPresentation"]
+    allowed = set(bids_schema.objects.metadata["StimulusPresentation"]["properties"])
+    assert set(pres) <= allowed
+    assert pres["ScreenSize"] == [0.527, round(0.527 * 480 / 640, 4)]
+    assert pres["ScreenDistance"] == 0.6
+    assert pres["ScreenResolution"] == [640, 480] and pres["ScreenRefreshRate"] == 60.0
