@@ -106,7 +106,7 @@ def bids_events(session: ExportSession, origin: Origin | None = None) -> pd.Data
         duration = None if r.end is None else max(0.0, r.end - r.t)
         data.append(
             (
-                r.t - origin.t0,
+                origin.onset(r.t),
                 duration,
                 r.kind,
                 EVENT_VALUES[r.kind],
@@ -145,13 +145,13 @@ def events_tsv(ev: EventRows, origin: Origin) -> str:
     width = len(TRIAL_COLUMNS) + len(ev.table_columns)
     empty = "\t".join([NA] * width)
     tail_text = {k: "\t".join(_tsv_cell(v) for v in vals) for k, vals in ev.tails.items()}
-    t0 = origin.t0
+    onset = origin.onset
     lines = ["\t".join(ev.columns)]
     append = lines.append
     for r in ev.rows:
         t, end, stim, key, label, timed = r.t, r.end, r.stim_file, r.key, r.label, r.timed_out
         append(
-            f"{t - t0:.{SECONDS_DECIMALS}f}\t"
+            f"{onset(t):.{SECONDS_DECIMALS}f}\t"
             + (NA if end is None else f"{max(0.0, end - t):.{SECONDS_DECIMALS}f}")
             + f"\t{r.kind}\t{EVENT_VALUES[r.kind]}\t{_seconds(r.response_time)}\t"
             + f"{NA if stim is None else _tsv_cell(stim)}\t{r.event}\t"

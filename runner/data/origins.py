@@ -1,7 +1,11 @@
 """Time zero of a session's BIDS events: the session start, or the first EEG sample of a recording.
 
 With a recording, the journal's markers are matched with the recording's marker stream
-(:func:`runner.recording.check_recording`) to map presenter times onto the recorder's clock.
+(:func:`runner.recording.check_recording`) and a clock model (offset plus drift,
+:mod:`runner.recording.clock`) maps presenter times onto the recorder's clock. An event whose
+marker was recorded takes its recorded time; the model fills in the others. Time zero is the
+first sample of the EEG stream after pyxdf's clock synchronisation and dejittering (one line per
+segment, :mod:`runner.recording.dejitter`), never the raw stamp of a chunk.
 """
 
 from __future__ import annotations
@@ -12,6 +16,9 @@ from typing import Any
 
 from runner.data.sessions import ExportSession
 from runner.errors import RecordingError
+from runner.recording.clock import ClockModel
+from runner.recording.dejitter import dejitter
+from runner.recording.identity import compare_identity
 
 __all__ = ["Origin", "recording_origin", "session_origin"]
 
@@ -20,6 +27,11 @@ EEG_STREAM_TYPE = "eeg"  # compared case-insensitively with the XDF stream type
 # timing difference (after the clock offset) is within the recording check's limit. Half is a
 # tolerance for a recorder that joined late, not a published figure.
 MIN_MATCHED_SHARE = 0.5
+# After the clock model (offset and drift), markers of the right session line up to well under a
+# millisecond; those of another session with the same payloads (same protocol) scatter by
+# hundreds. A median residual above this means the timing sequence is not this session's. The
+# value is ours (common practice: ten times the worst residual seen on a loaded test machine).
+SEQUENCE_LIMIT_MS = 5.0
 # Seconds are written with 6 decimals (1 microsecond): the journal clock has sub-microsecond
 # resolution, and no recorder samples faster than 1 MHz.
 SECONDS_DECIMALS = 6
@@ -37,6 +49,18 @@ class Origin:
     t0: float
     description: str
     details: dict[str, Any] = field(default_factory=dict)
+    # With a recording: the clock model, the recorded time of each journaled marker time, and
+    # the recorder time of time zero. Onsets are then counted on the recorder's clock.
+    clock: ClockModel | None = None
+    recorded: dict[float, float] = field(default_factory=dict, repr=False)
+    zero: float = 0.0
+
+    def onset(self, t: float) -> float:
+        """Seconds from time zero of an event at presenter time ``t``."""
+        if self.clock is None:
+            return t - self.t0
+        exact = self.recorded.get(t)
+        return (self.clock.to_recorder(t) if exact is None else exact) - self.zero
 
 
 def session_origin(session: ExportSession) -> Origin:
@@ -85,8 +109,15 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
     markers = session.markers()
     info = session.header.get("markers") or {}
     report = check_recording(rec, markers, source_id=info.get("source_id"), name=info.get("name"))
+    for sid in report.choice.stream_ids:
+        identity = compare_identity(rec.stream(sid).identity, session.header)
+        if identity.known and not identity.matches:
+            raise RecordingError(
+                f"{recording} is not the recording of {session.folder}: "
+                f"{identity.describe()}. Pick that session's recording."
+            )
     match = report.match
-    if match.offset_s is None or match.matched == 0:
+    if match.clock is None or match.matched == 0:
         raise RecordingError(
             f"none of the {len(markers)} markers of {session.folder} were found in {recording}, "
             "so its clock cannot be lined up with the session; check that this recording "
@@ -94,38 +125,52 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
         )
     residual = match.residual_median_abs_ms
     if match.matched < len(markers) * MIN_MATCHED_SHARE or (
-        residual is not None and residual > report.residual_limit_ms
+        residual is not None and residual > SEQUENCE_LIMIT_MS
     ):
         raise RecordingError(
-            f"the markers of {session.folder} do not line up with {recording} ({match.matched} of "
-            f"{len(markers)} found, median timing difference {residual or 0:.3f} ms after the "
-            "clock offset); it is probably another session's recording. Check the file, or run "
-            "`trialdeck audit` with it."
+            f"the markers of {session.folder} do not line up with {recording} as a sequence "
+            f"({match.matched} of {len(markers)} found; after the clock's offset and drift their "
+            f"times still differ by {residual or 0:.1f} ms at the median); it is probably another "
+            "session's recording. Check the file, or run `trialdeck audit --recording` with it."
         )
-    first = float(stream.first_timestamp)  # type: ignore[arg-type]
-    t0 = first - match.offset_s
+    clock = match.clock
+    eeg_times = dejitter(rec.timestamps(stream.stream_id), stream.nominal_srate)
+    first = float(eeg_times[0])
+    seg = clock.segments[0]  # the session's first attempt (segments follow the recorder clock)
+    t0 = (first - seg.offset_s + seg.slope * seg.t_ref) / (1.0 + seg.slope)
+    raw_first = float(stream.first_timestamp)  # type: ignore[arg-type]
+    drift = seg.drift_ppm
     return Origin(
         kind="recording",
         t0=t0,
         description=(
             f"Onset in seconds from the first sample of EEG stream {stream.name!r} "
             f"(source_id {stream.source_id!r}) in recording {Path(recording).name}, at "
-            f"recorder time {first:.{SECONDS_DECIMALS}f} s after clock synchronisation. "
-            f"Presenter times were mapped onto the recorder clock with the marker clock offset "
-            f"{match.offset_s:.{SECONDS_DECIMALS}f} s (recorder minus presenter), the median over "
-            f"{match.matched} of {len(markers)} markers matched by payload"
+            f"recorder time {first:.{SECONDS_DECIMALS}f} s after clock synchronisation and "
+            "dejittering. Events whose marker was recorded are at their recorded times; the "
+            f"others were mapped onto the recorder clock by a clock model fitted to "
+            f"{match.matched} of {len(markers)} markers matched by payload (offset "
+            f"{seg.offset_s:.{SECONDS_DECIMALS}f} s, drift {drift:.2f} ppm"
             + (f", median residual {residual:.3f} ms" if residual is not None else "")
-            + ". Negative onsets are events before the first EEG sample."
+            + "). Negative onsets are events before the first EEG sample."
         ),
         details={
             "recording": str(recording),
             "eeg_stream": stream.name,
             "eeg_source_id": stream.source_id,
             "eeg_first_timestamp": first,
+            "eeg_first_timestamp_raw": raw_first,
             "marker_offset_s": match.offset_s,
+            "clock_offset_s": seg.offset_s,
+            "clock_drift_ppm": drift,
+            "clock_segments": len(clock.segments),
             "markers_matched": match.matched,
             "markers_journaled": len(markers),
+            "markers_outliers": match.outliers,
             "residual_median_abs_ms": residual,
             "origin_presenter_lsl": t0,
         },
+        clock=clock,
+        recorded={t: r for _, t, r in match.pairs},
+        zero=first,
     )

@@ -216,16 +216,11 @@ class RecordingReport:
             )
         if m.residual_max_abs_ms is not None and m.residual_max_abs_ms > self.residual_limit_ms:
             worst = m.worst[0] if m.worst else ""
-            drift = (
-                f" The difference changes steadily over the session ({m.drift_ppm:.1f} ppm), "
-                "which points to the two clocks running at slightly different rates."
-                if m.drift_ppm is not None
-                else ""
-            )
             out.append(
                 f"Recorded marker times differ from the journal by up to "
-                f"{m.residual_max_abs_ms:.3f} ms after removing the clock offset (limit "
-                f"{self.residual_limit_ms:g} ms; worst: {_preview(worst)}).{drift}"
+                f"{m.residual_max_abs_ms:.3f} ms after the clock model (offset and drift; limit "
+                f"{self.residual_limit_ms:g} ms; worst: {_preview(worst)}); the recorder or the "
+                "network delayed some markers, so use the clock model's times for them."
             )
         for c in self.coverage:
             label = f"Stream {c.stream_id} ({c.name!r}, {c.type})"

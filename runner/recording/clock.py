@@ -23,7 +23,6 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
 
 PPM = 1e6
 MS = 1000.0
@@ -64,8 +63,11 @@ class ClockSegment:
 class ClockModel:
     """Segments in presenter-time order; :meth:`to_recorder` maps any presenter time."""
 
-    segments: tuple[ClockSegment, ...]
+    segments: tuple[
+        ClockSegment, ...
+    ]  # in the order of the pairs given (time order of the session)
     outliers: tuple[int, ...]  # indices (into the fitted pairs) set aside as outliers
+    assignment: tuple[int, ...] = ()  # for each fitted pair, the index of its segment
 
     @property
     def n_pairs(self) -> int:
@@ -76,8 +78,17 @@ class ClockModel:
         """The segment with the most pairs (its drift is the one reported)."""
         return max(self.segments, key=lambda s: s.n_pairs)
 
+    def fitted(self, i: int, t: float) -> float:
+        """The model's recorder time for fitted pair ``i`` (journaled time ``t``), on its own
+        segment (spans of segments overlap in presenter time after a presenter reboot)."""
+        return float(self.segments[self.assignment[i]].to_recorder(t))
+
     def segment_for(self, t: float) -> ClockSegment:
-        """The segment whose span holds ``t``, else the nearest one in presenter time."""
+        """The segment whose span holds ``t``, else the nearest one in presenter time.
+
+        After a presenter reboot two segments can span the same presenter times; callers that
+        know an event's attempt should pick its segment themselves.
+        """
         for s in self.segments:
             if s.start <= t <= s.end:
                 return s
@@ -101,6 +112,16 @@ def split_at_resets(presenter: np.ndarray, recorder: np.ndarray) -> list[np.ndar
     return [np.arange(a, b) for a, b in zip(bounds, bounds[1:], strict=False) if b > a]
 
 
+def theil_sen(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """Theil-Sen line: the median of the slopes between all pairs of points, then the median
+    intercept as median(y) - slope * median(x) (Sen 1968; the convention scipy uses); robust to nearly a third of the points being outliers."""
+    i, j = np.triu_indices(len(x), k=1)
+    dx = x[j] - x[i]
+    ok = dx != 0
+    slope = float(np.median((y[j] - y[i])[ok] / dx[ok])) if ok.any() else 0.0
+    return slope, float(np.median(y) - slope * np.median(x))
+
+
 def _fit_segment(p: np.ndarray, r: np.ndarray) -> tuple[ClockSegment, np.ndarray]:
     """The robust line of one segment; also a mask of the pairs kept (not outliers)."""
     d = r - p
@@ -113,8 +134,8 @@ def _fit_segment(p: np.ndarray, r: np.ndarray) -> tuple[ClockSegment, np.ndarray
         slope = 0.0
     else:
         step = max(1, len(p) // THEIL_SEN_MAX)
-        start = stats.theilslopes(d[::step], x[::step])
-        guess = start.intercept + start.slope * x
+        slope0, intercept0 = theil_sen(x[::step], d[::step])
+        guess = intercept0 + slope0 * x
         res0 = (d - guess) * MS
         spread = MAD_TO_SD * float(np.median(np.abs(res0 - np.median(res0))))
         limit = max(OUTLIER_MIN_MS, OUTLIER_MADS * spread)
@@ -161,9 +182,10 @@ def fit_clock(presenter_t: Sequence[float], recorder_t: Sequence[float]) -> Cloc
         raise ValueError("the clock model needs matched pairs of equal count (at least one).")
     segments = []
     outliers: list[int] = []
-    for idx in split_at_resets(p, r):
+    assignment = np.zeros(len(p), dtype=int)
+    for k, idx in enumerate(split_at_resets(p, r)):
         seg, keep = _fit_segment(p[idx], r[idx])
         segments.append(seg)
         outliers.extend(int(i) for i in idx[~keep])
-    segments.sort(key=lambda s: s.start)
-    return ClockModel(tuple(segments), tuple(sorted(outliers)))
+        assignment[idx] = k
+    return ClockModel(tuple(segments), tuple(sorted(outliers)), tuple(int(a) for a in assignment))

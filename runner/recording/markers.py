@@ -17,6 +17,7 @@ from typing import Any
 import numpy as np
 
 from runner.errors import RecordingError
+from runner.recording.clock import ClockModel, fit_clock
 from runner.recording.xdf import RecordedStream, Recording
 
 # A candidate marker stream "covers" the session when at least this fraction of the session
@@ -249,10 +250,12 @@ class MarkerMatch:
 
     ``missing``: journaled, not recorded. ``extra``: recorded payloads never journaled.
     ``duplicated``: recorded copies of a journaled payload beyond the journaled count.
-    ``garbage``: recorded samples that are not a JSON object string. Residuals are
-    (recorded - journaled) minus ``offset_s`` (the median of that difference), in milliseconds.
-    ``drift_ppm`` is the slope of (recorded - journaled) against journaled time: a steady
-    rate difference between the two clocks shows up there rather than in a late marker.
+    ``garbage``: recorded samples that are not a JSON object string. ``clock`` is the clock model
+    fitted to the pairs (offset plus drift per segment, :mod:`runner.recording.clock`); residuals
+    are recorded times minus the model's, in milliseconds, over the pairs it kept (``outliers``
+    pairs, delayed by more than its limit, are counted apart). ``offset_s`` is the median of
+    (recorded - journaled); ``drift_ppm`` the model's drift (of its longest segment): a steady
+    rate difference between the clocks is modelled, never mistaken for late markers.
     """
 
     matched: int
@@ -267,6 +270,8 @@ class MarkerMatch:
     drift_ppm: float | None
     worst: tuple[str, float] | None
     pairs: list[tuple[str, float, float]] = field(default_factory=list, repr=False)
+    clock: ClockModel | None = field(default=None, repr=False)
+    outliers: int = 0
 
     def as_dict(self) -> dict[str, Any]:
         def items(xs: list[tuple[str, float]]) -> list[dict[str, Any]]:
@@ -395,20 +400,30 @@ def match_markers(
     missing.sort(key=lambda x: x[1])
     duplicated.sort(key=lambda x: x[1])
     extra.sort(key=lambda x: x[1])
-    pairs.sort(key=lambda x: x[1])
+    # Recorder order is the true order even when the presenter clock restarted (a reboot
+    # between attempts), which the clock model then sees as a reset.
+    pairs.sort(key=lambda x: x[2])
 
     if not pairs:
         return MarkerMatch(
             0, missing, extra, duplicated, garbage, None, None, None, None, None, None, []
         )
     jt = np.array([q[1] for q in pairs])
-    diffs = np.array([q[2] - q[1] for q in pairs])
+    rt = np.array([q[2] for q in pairs])
+    diffs = rt - jt
     offset = float(np.median(diffs))
-    res = np.abs(diffs - offset) * MS_PER_S
-    worst_i = int(np.argmax(res))
-    drift: float | None = None
-    if len(pairs) >= MIN_POINTS_FOR_DRIFT and np.ptp(jt) > 0:
-        drift = float(np.polyfit(jt - jt[0], diffs, 1)[0] * PPM)
+    # Pairs in journal order for the clock model, so a presenter clock reset splits segments.
+    clock = fit_clock(jt, rt)
+    modelled = np.array([clock.fitted(i, t) for i, t in enumerate(jt)])
+    res_all = np.abs(rt - modelled) * MS_PER_S
+    kept = np.ones(len(pairs), dtype=bool)
+    kept[list(clock.outliers)] = False
+    res = res_all[kept] if kept.any() else res_all
+    worst_i = int(np.argmax(np.where(kept, res_all, -1.0)))
+    main = clock.main
+    drift: float | None = (
+        main.drift_ppm if main.n_pairs >= MIN_POINTS_FOR_DRIFT and main.end > main.start else None
+    )
     return MarkerMatch(
         matched=len(pairs),
         missing=missing,
@@ -418,8 +433,10 @@ def match_markers(
         offset_s=offset,
         residual_median_abs_ms=float(np.median(res)),
         residual_p99_abs_ms=float(np.percentile(res, PERCENTILE_HIGH)),
-        residual_max_abs_ms=float(res[worst_i]),
+        residual_max_abs_ms=float(res_all[worst_i]),
         drift_ppm=drift,
-        worst=(pairs[worst_i][0], float(res[worst_i])),
+        worst=(pairs[worst_i][0], float(res_all[worst_i])),
         pairs=pairs,
+        clock=clock,
+        outliers=len(clock.outliers),
     )

@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 import pyxdf
 from bidsschematools import rules, schema, validator
@@ -358,3 +359,77 @@ def test_stimulus_presentation_gives_the_screen_in_metres(tmp_path: Path, bids_s
     assert pres["ScreenSize"] == [0.527, round(0.527 * 480 / 640, 4)]
     assert pres["ScreenDistance"] == 0.6
     assert pres["ScreenResolution"] == [640, 480] and pres["ScreenRefreshRate"] == 60.0
+
+
+@pytest.mark.parametrize("sign", [-1.0, 1.0])
+def test_onsets_agree_with_pyxdf_under_drift_lost_markers_and_chunk_jitter(pilots, tmp_path, sign):
+    """Every onset agrees with pyxdf's synchronised, dejittered reading to within 0.5 ms, with the
+    clocks drifting as much as 50 ppm does over an hour (180 ms end to end, squeezed into the
+    short test session), an offset of hours, chunk-stamped EEG and a fifth of the markers lost
+    (those onsets come from the clock model).
+
+    Source: pyxdf.load_xdf(synchronize_clocks=True, dejitter_timestamps=True) as the reference for
+    recorded markers and the EEG origin; the drift line that generated the clock offsets for lost
+    markers (XDF specification for the ClockOffset chunks).
+    """
+    folder = find_session_folders([pilots])[0]
+    read = read_journal(folder / JOURNAL_NAME)
+    markers = [(r["marker"], r["t"]) for r in read.records if "marker" in r]
+    lo, hi = markers[0][1], markers[-1][1]
+    offset = 3 * 3600.0 + 0.123
+    drift = sign * 50e-6 * 3600.0 / (hi - lo)  # the clocks part by 180 ms over the session
+    drift_ppm = drift * 1e6
+
+    def to_recorder(t):
+        return t + offset + drift * (t - lo)
+
+    rng = np.random.default_rng(int(50 + sign))
+    kept = [m for i, m in enumerate(markers) if i < 2 or rng.random() > 0.2]
+    info = read.header["markers"]
+    offsets_at = np.linspace(lo - 1, hi + 1, 40)
+    marker_stream = FixtureStream(
+        1, info["name"], "Markers", "string", 0.0,
+        [t for _, t in kept], [p for p, _ in kept], source_id=info["source_id"],
+        created_at=lo - 10.0,
+        clock_offsets=[(t, to_recorder(t) - t) for t in offsets_at],
+    )  # fmt: skip
+    first_true = to_recorder(lo) - EEG_LEAD_S
+    n = int((hi - lo + 2 * EEG_LEAD_S) * EEG_SRATE)
+    true_times = first_true + np.arange(n) / EEG_SRATE
+    stamps = true_times.copy()
+    for start in range(0, n, 25):  # chunks stamped on arrival, 2-14 ms late
+        stamps[start : start + 25] += rng.uniform(0.002, 0.014)
+    eeg = FixtureStream(
+        2, "depot-eeg", "EEG", "float32", EEG_SRATE, stamps, np.zeros((n, 1), dtype=np.float32),
+        source_id="amp-01", clock_offsets=[(first_true, 0.0), (true_times[-1], 0.0)],
+    )  # fmt: skip
+    xdf = write_xdf(tmp_path / "drift.xdf", [marker_stream, eeg])
+
+    streams, _ = pyxdf.load_xdf(str(xdf), synchronize_clocks=True, dejitter_timestamps=True)
+    ref_eeg = next(s for s in streams if s["info"]["type"][0] == "EEG")
+    ref_mk = next(s for s in streams if s["info"]["type"][0] == "Markers")
+    zero = float(ref_eeg["time_stamps"][0])
+    recorded: dict[str, list[float]] = {}
+    for value, t in zip(ref_mk["time_series"], ref_mk["time_stamps"], strict=True):
+        recorded.setdefault(value[0], []).append(float(t))
+    session = load_session(folder)
+    origin = recording_origin(session, xdf)
+    assert origin.details["clock_drift_ppm"] == pytest.approx(drift_ppm, rel=1e-3)
+    tsv, _ = write_bids_events(session, tmp_path / "b", datatype="eeg", origin=origin)
+    events = pd.read_csv(tsv, sep="\t", na_values="n/a", keep_default_na=False)
+    kept_set = set(kept)
+    worst = 0.0
+    checked_lost = 0
+    for row in events.itertuples():
+        # The journal marker of this row: the one of that event closest to its onset.
+        candidates = [(p, jt) for p, jt in markers if json.loads(p)["event"] == row.event]
+        payload, t = min(candidates, key=lambda m: abs(to_recorder(m[1]) - zero - row.onset))
+        if (payload, t) in kept_set:
+            rec_t = min(recorded[payload], key=lambda r: abs(r - to_recorder(t)))
+            expected = rec_t - zero
+        else:
+            expected = to_recorder(t) - zero
+            checked_lost += 1
+        worst = max(worst, abs(row.onset - expected))
+    assert checked_lost > 5
+    assert worst < 0.0005

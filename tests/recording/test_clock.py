@@ -69,9 +69,11 @@ def test_a_clock_reset_splits_the_pairs_into_two_segments():
     assert [len(ix) for ix in split_at_resets(p, r)] == [300, 200]
     model = fit_clock(p, r)
     assert len(model.segments) == 2
-    for seg, ps, ts in zip(model.segments, (p2, p1), (t2, t1), strict=True):
+    for seg, ps, ts in zip(model.segments, (p1, p2), (t1, t2), strict=True):
         mapped = np.asarray(seg.to_recorder(ps))
         assert np.max(np.abs(mapped - ts)) * 1000 < 0.5
+    fitted = np.array([model.fitted(i, t) for i, t in enumerate(p)])
+    assert np.max(np.abs(fitted - np.concatenate([t1, t2]))) * 1000 < 0.5
 
 
 def test_one_pair_gives_an_offset_without_drift():
@@ -79,6 +81,23 @@ def test_one_pair_gives_an_offset_without_drift():
     model = fit_clock([10.0], [5010.25])
     assert model.main.drift_ppm == 0.0
     assert model.to_recorder(11.0) == pytest.approx(5011.25)
+
+
+def test_theil_sen_agrees_with_scipy():
+    """The Theil-Sen start line equals scipy's on data with outliers.
+
+    Source: scipy.stats.theilslopes as the reference implementation.
+    """
+    from runner.recording.clock import theil_sen
+
+    rng = np.random.default_rng(21)
+    x = np.sort(rng.uniform(0, 100, 200))
+    y = 0.3 * x + 2 + rng.normal(0, 0.1, 200)
+    y[::17] += 40
+    ref = stats.theilslopes(y, x)
+    slope, intercept = theil_sen(x, y)
+    assert slope == pytest.approx(ref.slope, rel=1e-12)
+    assert intercept == pytest.approx(ref.intercept, rel=1e-12)
 
 
 def test_no_pairs_is_refused():
