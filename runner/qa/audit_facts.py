@@ -101,11 +101,13 @@ class Findings:
         self.file = file
         self.items: list[Problem] = []
 
-    def error(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("error", file or self.file, line, 0, message))
+    def error(self, message: str, line: int = 0, file: str | None = None, *, code: str) -> None:
+        """Add an error; ``code`` is its stable code from :data:`runner.errors.PROBLEM_CODES`."""
+        self.items.append(Problem("error", file or self.file, line, 0, message, code=code))
 
-    def warning(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("warning", file or self.file, line, 0, message))
+    def warning(self, message: str, line: int = 0, file: str | None = None, *, code: str) -> None:
+        """Add a warning; ``code`` is its stable code from :data:`runner.errors.PROBLEM_CODES`."""
+        self.items.append(Problem("warning", file or self.file, line, 0, message, code=code))
 
 
 @dataclass(frozen=True)
