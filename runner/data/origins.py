@@ -102,7 +102,7 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
             "clock offset); it is probably another session's recording. Check the file, or run "
             "`trialdeck audit` with it."
         )
-    first = float(stream.first_timestamp)  # type: ignore[arg-type]
+    first = float(stream.first_timestamp)  # type: ignore[arg-type]  # matched markers: not empty
     t0 = first - match.offset_s
     return Origin(
         kind="recording",

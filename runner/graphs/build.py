@@ -385,7 +385,7 @@ def write_stimulus(stim: Stimulus, spec: StimulusSpec, out: Path) -> dict[str, o
     )
     features["ink_coverage"] = ink_coverage(pixels, spec.canvas.background)
     features["mean_luminance"] = mean_luminance(pixels)
-    stim.features = features
+    stim.features = dict(features)
     row: dict[str, object] = {
         "stimulus": png.as_posix(),
         "expected": stim.expected,

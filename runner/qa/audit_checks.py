@@ -66,7 +66,7 @@ def check_completion(
 
     Returns the completed trials by trial number.
     """
-    schedule = header.get("schedule") if isinstance(header.get("schedule"), list) else []
+    schedule = header["schedule"] if isinstance(header.get("schedule"), list) else []
     planned: dict[int, dict[str, Any]] = {}
     for s in schedule:
         if isinstance(s, dict) and as_int(s.get("trial")) is not None:
@@ -474,7 +474,7 @@ def check_against_recording(
     residual_limit_ms: float,
 ) -> RecordingReport | None:
     rec_file = display_path(recording.path)
-    markers = header.get("markers") if isinstance(header.get("markers"), dict) else {}
+    markers = header["markers"] if isinstance(header.get("markers"), dict) else {}
     source_id = markers.get("source_id") if isinstance(markers.get("source_id"), str) else None
     name = markers.get("name") if isinstance(markers.get("name"), str) else None
     journaled = journaled_markers(events)

@@ -46,7 +46,7 @@ def check_timing(
     out: Findings,
     facts: dict[str, Any],
 ) -> None:
-    screen = header.get("screen") if isinstance(header.get("screen"), dict) else {}
+    screen = header["screen"] if isinstance(header.get("screen"), dict) else {}
     interval = num(screen.get("interval_s"))
     if interval is None or interval <= 0:
         hz = num(screen.get("refresh_hz"))
