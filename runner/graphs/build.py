@@ -45,7 +45,6 @@ GRAPHML_DIR = "graphml"
 MANIFEST = "manifest.csv"
 # A new graph is drawn after this many rejected layouts of the same graph.
 LAYOUTS_PER_GRAPH = 3
-TARGET_ROLES = ("first", "second")
 COORD_DECIMALS = 2
 FEATURE_DECIMALS = 4
 

@@ -31,6 +31,7 @@ from runner.contract.line import (
     split_hash,
     stored_hash,
 )
+from runner.contract.line import as_int as _int
 from runner.errors import JournalError, Problem
 
 __all__ = ["ChainCheck", "JournalRead", "read_journal", "verify_chain"]
@@ -286,10 +287,6 @@ class _Line:
     prev: str | None
     h: str | None
     self_ok: bool
-
-
-def _int(x: Any) -> int | None:
-    return x if isinstance(x, int) and not isinstance(x, bool) else None
 
 
 def _line_of(n: int, raw: bytes, obj: Any) -> _Line:

@@ -19,6 +19,7 @@ from typing import Any
 from runner.contract.events import STATUS_ABORTED, STATUS_COMPLETED
 from runner.contract.hashing import HashCache
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, display_path
+from runner.contract.line import as_int, num
 from runner.errors import ProtocolError, RecordingError
 from runner.journal.frozen import frozen_protocol, frozen_text
 from runner.journal.trials import Attempt, trial_of_end
@@ -27,9 +28,7 @@ from runner.qa.audit_facts import (
     EventIndex,
     Findings,
     Numbered,
-    as_int,
     listing,
-    num,
     plural,
     ranges,
     stats,

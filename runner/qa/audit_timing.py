@@ -6,7 +6,8 @@ from dataclasses import dataclass
 from typing import Any
 
 from runner.contract.events import MARKED_EVENTS
-from runner.qa.audit_facts import EventIndex, Findings, as_int, num, plural, ranges, stats
+from runner.contract.line import as_int, num
+from runner.qa.audit_facts import EventIndex, Findings, plural, ranges, stats
 
 __all__ = ["LateFlip", "Pause", "check_timing"]
 
