@@ -81,6 +81,75 @@ PROBLEM_CODES: dict[str, str] = {
     # The stimulus kit.
     "no-target-pair": "no target pair of a stimulus meets its set's pairs rule",
     "unreadable-drawing": "no drawing of a stimulus meets the readability limits",
+    # Sessions and recordings (`trialdeck audit` and the journal reader).
+    # The session journal.
+    "journal-empty": "the journal is empty; the session never started writing it",
+    "journal-torn-line": (
+        "the journal's last line is incomplete (the program stopped while writing it)"
+    ),
+    "journal-format": "the journal header names a format this trialdeck cannot read",
+    "journal-no-header": "line 1 of the journal is not a journal header",
+    "journal-bad-line": "a journal line is not a complete JSON line",
+    "journal-no-integrity": "a journal line lacks its integrity fields (seq, prev, h)",
+    "journal-line-changed": (
+        "a journal line was changed after it was written (its hash does not match)"
+    ),
+    "journal-lines-swapped": "two neighbouring journal lines are in the wrong order",
+    "journal-lines-missing": "journal lines were removed before this line",
+    "journal-line-repeated": "a journal line repeats or moves an earlier entry",
+    "journal-line-foreign": (
+        "a journal line does not link to the line before it (put there from elsewhere)"
+    ),
+    # Completeness of a session.
+    "no-schedule": "the journal header holds no trial schedule, so completeness cannot be checked",
+    "trial-without-record": "a trial_end line holds no trial record",
+    "unscheduled-trial": "a completed trial is not in the session's schedule",
+    "trial-repeated": "a trial was completed more than once",
+    "wrong-stimulus": "a trial showed another stimulus than the schedule planned",
+    "session-not-started": "the session never started: no scheduled trial was run",
+    "session-interrupted": (
+        "the session stopped without its closing line (crash, power loss, killed program)"
+    ),
+    "session-aborted": "the experimenter aborted the session before every trial was run",
+    "trials-missing": "the session says it completed, but scheduled trials have no result",
+    "session-incomplete": (
+        "the session ended with another status and scheduled trials were not completed"
+    ),
+    "no-session-end": "every trial was completed, but the closing session_end line is missing",
+    "attempt-after-end": "an attempt completed, yet the journal continues with another attempt",
+    "restart-without-resume": "the session starts again without a resume line",
+    "trial-rerun": "an attempt ran trials that were already completed before it",
+    # Files of a session.
+    "frozen-copy-missing": (
+        "a frozen copy (protocol or trial table) is missing from the session folder"
+    ),
+    "frozen-copy-changed": "a frozen copy was edited after the session",
+    "stimulus-changed": "a stimulus file changed since the session",
+    "stimulus-not-found": "a stimulus file cannot be found to check its hash",
+    "trials-csv-missing": "trials.csv is missing from the session folder (it can be written again)",
+    "trials-csv-stale": "trials.csv disagrees with the journal's completed trials",
+    # Responses.
+    "answer-missing": "a completed trial has no answer and is neither unsure nor timed out",
+    "trial-timed-out": "trials timed out without an answer",
+    "rating-missing": "trials have no difficulty rating (the rating screen timed out)",
+    "record-mismatch": (
+        "a trial record's answer, rating or score disagrees with the journal's key presses"
+    ),
+    "fast-response": "responses came faster than the anticipation floor after stimulus onset",
+    # Timing.
+    "no-refresh-interval": (
+        "the journal header gives no refresh interval, so flip timing cannot be checked"
+    ),
+    "late-flips": "flips missed their frame",
+    "fixation-off": "fixations lasted a frame or more longer or shorter than requested",
+    "short-break": "a break lasted less than its minimum",
+    "rest-off": "a rest lasted longer or shorter than its whole-frame request",
+    # Against the recording.
+    "unreadable-recording": "the XDF recording cannot be read or holds no usable marker stream",
+    "recording-mismatch": (
+        "the recording disagrees with the journal's markers (lost, repeated, extra or garbled markers, late start)"
+    ),
+    "ambiguous-marker-stream": "several marker streams in the recording could be this session's",
 }
 
 

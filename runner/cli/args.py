@@ -10,6 +10,7 @@ import math
 import os
 import sys
 import tempfile
+from typing import NoReturn
 
 from runner.errors import EXIT_USAGE
 
@@ -29,7 +30,7 @@ MAX_SELFTEST_SECONDS = 3600.0
 class Parser(argparse.ArgumentParser):
     """argparse, but usage errors exit 2 with one plain line (and the usage)."""
 
-    def error(self, message: str) -> None:  # type: ignore[override]
+    def error(self, message: str) -> NoReturn:
         self.print_usage(sys.stderr)
         self.exit(EXIT_USAGE, f"error: {message}\n")
 

@@ -118,7 +118,7 @@ def run_one_session(
         participant=args.participant,
         session=args.session,
         out=Path(args.out),
-        mode=mode,  # type: ignore[arg-type]
+        mode=mode,  # type: ignore[arg-type]  # the verbs pass 'live' or 'pilot'
         speed=getattr(args, "speed", 1.0),
         wait_for_recorder=args.wait_for_recorder,
         station=args.station,

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 from typing import Any
 
 JOURNAL_FORMAT = "trialdeck-journal/1"
@@ -25,6 +26,19 @@ EVENT_FIELD_B = b',"event":"'
 # Fields written right after seq and prev, in this order, whenever a line has them; readers may
 # take an event's time and trial from this fixed prefix without decoding the whole line.
 LEAD_FIELDS = ("event", "t", "trial")
+
+
+def num(x: Any) -> float | None:
+    """``x`` as a finite float, or None (journals are data from disk: never trust a type)."""
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        return None
+    v = float(x)
+    return v if math.isfinite(v) else None
+
+
+def as_int(x: Any) -> int | None:
+    """``x`` if it is an int (not a bool), else None."""
+    return x if isinstance(x, int) and not isinstance(x, bool) else None
 
 
 def line_hash(prev: str, body: str) -> str:

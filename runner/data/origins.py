@@ -138,7 +138,7 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
     first = float(eeg_times[0])
     seg = clock.segments[0]  # the session's first attempt (segments follow the recorder clock)
     t0 = (first - seg.offset_s + seg.slope * seg.t_ref) / (1.0 + seg.slope)
-    raw_first = float(stream.first_timestamp)  # type: ignore[arg-type]
+    raw_first = float(stream.first_timestamp)  # type: ignore[arg-type]  # EEG streams here have samples
     drift = seg.drift_ppm
     return Origin(
         kind="recording",

@@ -50,7 +50,8 @@ JITTER_SEED = 20240601
 DARK_CELL_LUMINANCE = 0.3
 RATING_SHADE_STEP = 0.1
 
-_STYLE: dict[str, Any] = {
+# Keys are matplotlib rc names (typed by matplotlib as literal names).
+_STYLE: dict[Any, Any] = {
     "font.size": 9.5,
     "axes.titlesize": 11,
     "axes.titleweight": "bold",

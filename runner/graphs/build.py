@@ -45,7 +45,6 @@ GRAPHML_DIR = "graphml"
 MANIFEST = "manifest.csv"
 # A new graph is drawn after this many rejected layouts of the same graph.
 LAYOUTS_PER_GRAPH = 3
-TARGET_ROLES = ("first", "second")
 COORD_DECIMALS = 2
 FEATURE_DECIMALS = 4
 
@@ -385,7 +384,7 @@ def write_stimulus(stim: Stimulus, spec: StimulusSpec, out: Path) -> dict[str, o
     )
     features["ink_coverage"] = ink_coverage(pixels, spec.canvas.background)
     features["mean_luminance"] = mean_luminance(pixels)
-    stim.features = features
+    stim.features = dict(features)
     row: dict[str, object] = {
         "stimulus": png.as_posix(),
         "expected": stim.expected,

@@ -129,34 +129,6 @@ def crossing_angles(pos: np.ndarray, links: np.ndarray, pairs: np.ndarray) -> np
     return np.degrees(np.arccos(np.clip(cos, 0.0, 1.0)))
 
 
-def point_segment_distance(points: np.ndarray, seg: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Distances from every point to every segment, with the foot parameters.
-
-    Parameters
-    ----------
-    points : numpy.ndarray
-        Shape ``(n, 2)``.
-    seg : numpy.ndarray
-        Shape ``(m, 2, 2)``.
-
-    Returns
-    -------
-    distance : numpy.ndarray
-        Shape ``(n, m)``.
-    t : numpy.ndarray
-        Shape ``(n, m)``: where the nearest point lies on each segment, 0 at its first end and
-        1 at its second.
-    """
-    ax, ay = seg[None, :, 0, 0], seg[None, :, 0, 1]
-    dx, dy = seg[None, :, 1, 0] - ax, seg[None, :, 1, 1] - ay
-    px, py = points[:, 0:1], points[:, 1:2]
-    length2 = dx * dx + dy * dy
-    t = ((px - ax) * dx + (py - ay) * dy) / np.where(length2 > 0, length2, 1.0)
-    np.clip(t, 0.0, 1.0, out=t)
-    ex, ey = px - (ax + t * dx), py - (ay + t * dy)
-    return np.sqrt(ex * ex + ey * ey), t
-
-
 def paired_point_segment(points: np.ndarray, seg: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Vector from the nearest point of ``seg[k]`` to ``points[k]``, and its foot parameter.
 

@@ -268,11 +268,10 @@ def repair(
             np.add.at(move, links[e, 0], -(1 - NODE_SHARE) * (1 - t)[:, None] * push)
             np.add.at(move, links[e, 1], -(1 - NODE_SHARE) * t[:, None] * push)
         pos = np.clip(pos + move, lo, hi)
-    left = Readability(
+    return pos, Readability(
         close_pairs=len(close_node_pairs(pos, min_distance, extra)),
         overlaps=len(node_link_overlaps(pos, links, clearance, extra)),
     )
-    return pos, left
 
 
 def readable_layout(

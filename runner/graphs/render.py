@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from pathlib import Path
+from typing import cast
 
 import matplotlib
 import numpy as np
@@ -152,7 +153,8 @@ def rasterise(fig: Figure) -> np.ndarray:
         The opaque image (the background is opaque, so alpha is dropped).
     """
     fig.canvas.draw()
-    return np.array(fig.canvas.buffer_rgba())[:, :, :3]
+    # figure() gives every figure an Agg canvas.
+    return np.array(cast(FigureCanvasAgg, fig.canvas).buffer_rgba())[:, :, :3]
 
 
 def palette(style: Style) -> list[tuple[int, int, int]]:
@@ -183,7 +185,7 @@ def palette(style: Style) -> list[tuple[int, int, int]]:
             w = k / PALETTE_STEPS
             mix = tuple(int(round((1 - w) * x + w * y)) for x, y in zip(a, b, strict=True))
             if mix not in colours:
-                colours.append(mix)  # type: ignore[arg-type]
+                colours.append(mix)  # type: ignore[arg-type]  # three channels, as a and b
     return colours
 
 

@@ -257,6 +257,7 @@ def _style(r: _Reader, node: yaml.Node, background: str) -> Style:
     allowed = _STYLE_SIZES + _STYLE_COLOURS + ("target_shapes", "target_colors", "labels")
     m = r.mapping(node, "style", allowed) or {}
     kw: dict[str, Any] = {"background": background}
+    v: float | str | None
     for key in _STYLE_SIZES:
         if key in m:
             v = r.number(m[key], f"style.{key}", lo=0.5, hi=200, integer=False)

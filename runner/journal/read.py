@@ -14,10 +14,10 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 from runner.contract.layout import display_path
 from runner.contract.line import (
@@ -31,6 +31,7 @@ from runner.contract.line import (
     split_hash,
     stored_hash,
 )
+from runner.contract.line import as_int as _int
 from runner.errors import JournalError, Problem
 
 __all__ = ["ChainCheck", "JournalRead", "read_journal", "verify_chain"]
@@ -138,7 +139,7 @@ def _fast(raws: list[bytes], want: frozenset[bytes] | None) -> list[dict[str, An
         if not isinstance(obj, dict) or obj.get("seq") != n:
             return None
         records[n] = obj
-    return records  # type: ignore[return-value]
+    return records  # type: ignore[return-value]  # the loop above filled every None slot
 
 
 def _strict(data: bytes, out: JournalRead) -> None:
@@ -288,10 +289,6 @@ class _Line:
     self_ok: bool
 
 
-def _int(x: Any) -> int | None:
-    return x if isinstance(x, int) and not isinstance(x, bool) else None
-
-
 def _line_of(n: int, raw: bytes, obj: Any) -> _Line:
     if not isinstance(obj, dict):
         return _Line(n, None, None, None, None, False)
@@ -358,14 +355,14 @@ def verify_chain(path: Path) -> ChainCheck:
     problems: list[Problem] = []
     first_break: int | None = None
 
-    def err(n: int, message: str) -> None:
+    def err(n: int, message: str, *, code: str) -> None:
         nonlocal first_break
-        problems.append(Problem("error", name, n, 0, message))
+        problems.append(Problem("error", name, n, 0, message, code=code))
         if first_break is None or n < first_break:
             first_break = n
 
     if not raws and torn_raw is None:
-        err(0, "the journal is empty; the session never started writing it.")
+        err(0, "the journal is empty; the session never started writing it.", code="journal-empty")
 
     fast = _fast(raws, None) if raws else None
     if fast is not None:
@@ -384,6 +381,7 @@ def verify_chain(path: Path) -> ChainCheck:
                 f"line {torn_line}, the last one, is incomplete ({len(torn_raw)} bytes without "
                 "an end of line): the program stopped while writing it (crash or power loss). "
                 "The lines before it are kept; a resume cuts it off.",
+                code="journal-torn-line",
             )
         )
     if records and records[0][0] == 1 and records[0][1].get("event") == HEADER_EVENT:
@@ -393,9 +391,14 @@ def verify_chain(path: Path) -> ChainCheck:
                 1,
                 f"line 1 is a header of format {fmt!r}, not {JOURNAL_FORMAT!r}; this "
                 "trialdeck cannot audit it.",
+                code="journal-format",
             )
     elif raws:
-        err(1, "line 1 is not a journal header; this is not a trialdeck session journal.")
+        err(
+            1,
+            "line 1 is not a journal header; this is not a trialdeck session journal.",
+            code="journal-no-header",
+        )
     problems.sort(key=lambda p: (p.line, p.severity != "error"))
     intact = len(raws) if first_break is None else first_break - 1
     return ChainCheck(
@@ -403,14 +406,24 @@ def verify_chain(path: Path) -> ChainCheck:
     )
 
 
-def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int, dict[str, Any]]]:
-    """Follow the chain line by line, calling ``err(line, message)`` at each break."""
+class _Report(Protocol):
+    """How :func:`_walk` reports a break: ``err(line, message, code=...)``."""
+
+    def __call__(self, n: int, message: str, *, code: str) -> None: ...
+
+
+def _walk(lines: list[_Line], err: _Report) -> list[tuple[int, dict[str, Any]]]:
+    """Follow the chain line by line, calling ``err(line, message, code=...)`` at each break."""
     last_seq, last_h = -1, GENESIS
     i = 0
     while i < len(lines):
         ln = lines[i]
         if ln.obj is None:
-            err(ln.n, f"line {ln.n} is not a complete JSON line (it was cut short or edited).")
+            err(
+                ln.n,
+                f"line {ln.n} is not a complete JSON line (it was cut short or edited).",
+                code="journal-bad-line",
+            )
             i += 1
             continue
         if ln.h is None or ln.seq is None:
@@ -418,6 +431,7 @@ def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int
                 ln.n,
                 f"line {ln.n} has no integrity fields (seq, prev, h); it was not written "
                 "by trialdeck or was edited.",
+                code="journal-no-integrity",
             )
             i += 1
             continue
@@ -425,6 +439,7 @@ def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int
             err(
                 ln.n,
                 f"line {ln.n} was changed after it was written (its hash does not match its text).",
+                code="journal-line-changed",
             )
         expected = last_seq + 1
         if ln.seq == expected and ln.prev == last_h:
@@ -440,12 +455,17 @@ def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int
             and ln.seq == expected + 1
             and ln.prev == nxt.h
         ):
-            err(ln.n, f"lines {ln.n} and {nxt.n} are in the wrong order (they were swapped).")
+            err(
+                ln.n,
+                f"lines {ln.n} and {nxt.n} are in the wrong order (they were swapped).",
+                code="journal-lines-swapped",
+            )
             if not nxt.self_ok:
                 err(
                     nxt.n,
                     f"line {nxt.n} was changed after it was written (its hash does not "
                     "match its text).",
+                    code="journal-line-changed",
                 )
             last_seq, last_h = ln.seq, ln.h
             i += 2
@@ -456,6 +476,7 @@ def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int
                 ln.n,
                 f"{_plural(missing, 'line is', 'lines are')} missing before line {ln.n} "
                 f"(entry {expected}{'' if missing == 1 else f' to {ln.seq - 1}'} was removed).",
+                code="journal-lines-missing",
             )
             last_seq, last_h = ln.seq, ln.h
         elif ln.seq < expected:
@@ -464,12 +485,14 @@ def _walk(lines: list[_Line], err: Callable[[int, str], None]) -> list[tuple[int
                 ln.n,
                 f"line {ln.n} repeats or moves an earlier entry (number {ln.seq}, expected "
                 f"{expected}); a line was added or moved here.",
+                code="journal-line-repeated",
             )
         else:
             err(
                 ln.n,
                 f"line {ln.n} does not follow line {ln.n - 1} (its link to the previous "
                 "line does not match); lines from elsewhere were put here.",
+                code="journal-line-foreign",
             )
             last_seq, last_h = ln.seq, ln.h
         i += 1

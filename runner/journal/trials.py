@@ -8,7 +8,6 @@ completion: its *winning* record.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Any
@@ -19,6 +18,8 @@ from runner.contract.events import (
     STATUS_COMPLETED,
     STATUS_INCOMPLETE,
 )
+from runner.contract.line import as_int as _int
+from runner.contract.line import num as _num
 
 __all__ = [
     "ATTEMPT_EVENTS",
@@ -47,18 +48,6 @@ ATTEMPT_EVENTS = (
     "abort",
     "session_end",
 )
-
-
-def _num(x: Any) -> float | None:
-    """``x`` as a finite float, or None (journals are data from disk: never trust a type)."""
-    if isinstance(x, bool) or not isinstance(x, (int, float)):
-        return None
-    v = float(x)
-    return v if math.isfinite(v) else None
-
-
-def _int(x: Any) -> int | None:
-    return x if isinstance(x, int) and not isinstance(x, bool) else None
 
 
 def trial_of_end(rec: dict[str, Any]) -> int | None:

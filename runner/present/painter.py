@@ -65,7 +65,7 @@ def _rgb(colour: str) -> tuple[int, int, int]:
 
 
 def _mix(a: tuple[int, int, int], b: tuple[int, int, int], w: float) -> tuple[int, int, int]:
-    return tuple(round(x * (1 - w) + y * w) for x, y in zip(a, b, strict=True))  # type: ignore[return-value]
+    return tuple(round(x * (1 - w) + y * w) for x, y in zip(a, b, strict=True))  # type: ignore[return-value]  # 3 in, 3 out
 
 
 @dataclass
@@ -235,6 +235,7 @@ class Painter:
         if overlap.width and overlap.height:
             surf.blit(img, overlap, overlap.move(-rect.left, -rect.top))
         self._box(surf, box, filled=False)
+        assert view.typed is not None  # called only while a count is typed over the stimulus
         self._text(surf, self.body, view.typed + "_", self.style.text, box.center)
         # Whatever else a full draw puts over the box area (the hint on small screens) goes
         # back on, clipped to the box, so both ways of drawing give the same pixels.

@@ -168,7 +168,7 @@ def run_selftest(
         make_source_id,
         station_name,
     )
-    from runner.session.views import BlankView, FixationView
+    from runner.session.views import BlankView, FixationView, View
 
     loaded = None
     if protocol is not None:
@@ -190,7 +190,7 @@ def run_selftest(
     try:
         check = display.refresh
         # Flips each asked for the next refresh, alternating two screens, for `seconds`.
-        views = [BlankView(), FixationView()]
+        views: list[View] = [BlankView(), FixationView()]
         late0, n = display.late_flips, 0
         t = display.show(views[0])
         end = t + seconds

@@ -98,7 +98,7 @@ def _level(item: Mapping[str, object], factor: str, position: int) -> Hashable:
     except TypeError:
         # Unhashable cells (lists from YAML) are compared by their text form.
         return repr(value)
-    return value  # type: ignore[return-value]
+    return value
 
 
 def _limit_text(limit: int) -> str:

@@ -543,7 +543,7 @@ class _Checker:
             ("stimulus area", "area", float(largest)),
         ]
         if self.looks.patch is not None:
-            parts.append(("photodiode patch", "patch", float(model.photodiode.size_px**2)))  # type: ignore[union-attr]
+            parts.append(("photodiode patch", "patch", float(model.photodiode.size_px**2)))  # type: ignore[union-attr]  # a patch implies a photodiode
         ack = model.checks.acknowledge_flashes
         worst = 0
         for label, attr, area in parts:
@@ -678,7 +678,7 @@ def _trial_seconds(model: Protocol, trial: ScheduledTrial) -> tuple[float, float
     if t.rating_limit_s is not None:
         rating = min(rating, t.rating_limit_s)
     typical += rating + tail
-    longest = None if any(v is None for v in limits) else high + sum(limits) + tail  # type: ignore[arg-type]
+    longest = None if any(v is None for v in limits) else high + sum(limits) + tail  # type: ignore[arg-type]  # any() ruled out None
     return shortest, typical, longest
 
 

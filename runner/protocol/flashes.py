@@ -219,6 +219,7 @@ def count_general_flashes_in_windows(
         qualifies = _big(abs(b - a)) and min(a, b) < DARK_LIMIT
         transitions.append(Transition(onsets[end], start, end, a, b, qualifies))
     counted = [t for t in transitions if t.qualifies]
+    best_indices: tuple[int, ...]
     best, best_start, best_indices = 0, None, ()
     right = 0
     for left, first in enumerate(counted):

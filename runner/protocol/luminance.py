@@ -22,6 +22,7 @@ import os
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import cast
 
 import numpy as np
 from PIL import Image, UnidentifiedImageError
@@ -153,7 +154,8 @@ def relative_luminance(rgb: ColourSpec | np.ndarray) -> float | np.ndarray:
         if rgb.shape[-1] != 3:
             raise ValueError("An array of colours needs R, G and B along its last axis.")
         return np.asarray(srgb_to_linear(rgb)) @ RGB_WEIGHTS
-    channels = np.array(parse_colour(rgb))  # type: ignore[arg-type]
+    # A 1-D array of R, G, B is a sequence of int, which parse_colour accepts.
+    channels: np.ndarray = np.array(parse_colour(rgb))  # type: ignore[arg-type]
     return float(_LINEAR_LUT[channels] @ RGB_WEIGHTS)
 
 
@@ -293,7 +295,9 @@ def _decode(data: bytes, name: str) -> ImageStats:
                 width, height = pixels.size
                 colours = pixels.getcolors(MAX_LISTED_COLOURS)
                 if colours is not None:
-                    return _stats_from_colours(width, height, colours)
+                    # RGB and RGBA images list each colour as a tuple of channels.
+                    rgba = cast(list[tuple[int, tuple[int, ...]]], colours)
+                    return _stats_from_colours(width, height, rgba)
                 return _stats_from_histograms(pixels)
     except (UnidentifiedImageError, OSError, ValueError) as err:
         raise InputFileError(
@@ -303,14 +307,14 @@ def _decode(data: bytes, name: str) -> ImageStats:
     import matplotlib.image
 
     try:
-        pixels = matplotlib.image.imread(io.BytesIO(data))
+        array = matplotlib.image.imread(io.BytesIO(data))
     except (OSError, ValueError, SyntaxError) as err:
         raise InputFileError(f"The image {name} cannot be read ({err}).") from err
-    pixels = np.asarray(pixels)
-    if pixels.dtype.kind in "ui":
-        pixels = pixels / np.iinfo(pixels.dtype).max
+    array = np.asarray(array)
+    if array.dtype.kind in "ui":
+        array = array / np.iinfo(array.dtype).max
     try:
-        return _stats_from_float(pixels)
+        return _stats_from_float(array)
     except ValueError as err:
         raise InputFileError(
             f"The image {name} uses a pixel format whose brightness cannot be measured; "

@@ -331,6 +331,8 @@ def _match(data: object, loc: Sequence[str | int]) -> tuple[Path_, tuple[_Skip, 
 
 
 def _match_greedy(data: object, loc: Path_) -> tuple[Path_, tuple[_Skip, ...]]:
+    kept: Path_
+    skips: tuple[_Skip, ...]
     node, kept, skips = data, (), ()
     for element in loc:
         if _has(node, element):

@@ -18,7 +18,15 @@ from runner.errors import ProtocolError, UsageError
 from runner.protocol.arrange import ArrangementError, constrained_shuffle
 from runner.protocol.latin import block_order
 from runner.protocol.load import LoadedProtocol, display_name, select_rows
-from runner.protocol.model import BlocksStep, PageStep, PracticeStep, RestStep, TrialsStep
+from runner.protocol.model import (
+    BlocksSpec,
+    BlocksStep,
+    PageStep,
+    PracticeStep,
+    RestStep,
+    TrialsSpec,
+    TrialsStep,
+)
 from runner.protocol.table import TrialRow
 
 LABEL_RE = re.compile(r"^[A-Za-z0-9]{1,64}$")
@@ -175,7 +183,7 @@ def build_schedule(loaded: LoadedProtocol, participant: str, session: str = "1")
             out.append(
                 ScheduledTrial(
                     trial=counter,
-                    part=part,  # type: ignore[arg-type]
+                    part=part,  # type: ignore[arg-type]  # callers pass 'practice' or 'main'
                     block=label,
                     block_index=block_index,
                     row=r.row,
@@ -228,6 +236,7 @@ def build_schedule(loaded: LoadedProtocol, participant: str, session: str = "1")
                 Item("block", len(items), step_i, part="main", label=label, trials=tuple(chunk))
             )
 
+    spec: TrialsSpec | BlocksSpec
     for i, step in enumerate(model.sequence):
         if isinstance(step, PageStep):
             items.append(

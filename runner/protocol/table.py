@@ -106,9 +106,9 @@ def read_trial_table(
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         line = raw[: exc.start].count(b"\n") + 1
-        col = exc.start - (raw.rfind(b"\n", 0, exc.start) + 1) + 1
+        at = exc.start - (raw.rfind(b"\n", 0, exc.start) + 1) + 1
         return None, [
-            Problem("error", name, line, col, "the trial table is not UTF-8 text", code="not-utf8")
+            Problem("error", name, line, at, "the trial table is not UTF-8 text", code="not-utf8")
         ]
     if not text.strip():
         return None, [Problem("error", name, 1, 1, "the trial table is empty", code="empty-file")]

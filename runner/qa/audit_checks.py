@@ -19,6 +19,7 @@ from typing import Any
 from runner.contract.events import STATUS_ABORTED, STATUS_COMPLETED
 from runner.contract.hashing import HashCache
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, display_path
+from runner.contract.line import as_int, num
 from runner.errors import ProtocolError, RecordingError
 from runner.journal.frozen import frozen_protocol, frozen_text
 from runner.journal.trials import Attempt, trial_of_end
@@ -27,9 +28,7 @@ from runner.qa.audit_facts import (
     EventIndex,
     Findings,
     Numbered,
-    as_int,
     listing,
-    num,
     plural,
     ranges,
     stats,
@@ -66,21 +65,27 @@ def check_completion(
 
     Returns the completed trials by trial number.
     """
-    schedule = header.get("schedule") if isinstance(header.get("schedule"), list) else []
+    schedule = header["schedule"] if isinstance(header.get("schedule"), list) else []
     planned: dict[int, dict[str, Any]] = {}
     for s in schedule:
         if isinstance(s, dict) and as_int(s.get("trial")) is not None:
             planned[s["trial"]] = s
     if header and not planned:
         out.error(
-            "the journal header holds no trial schedule, so completeness cannot be checked.", 1
+            "the journal header holds no trial schedule, so completeness cannot be checked.",
+            1,
+            code="no-schedule",
         )
     ends: dict[int, list[Numbered]] = defaultdict(list)
     for n, rec in ix.of("trial_end"):
         t = trial_of_end(rec)
         row = rec.get("record")
         if t is None or not isinstance(row, dict):
-            out.error(f"line {n} closes a trial but holds no trial record.", n)
+            out.error(
+                f"line {n} closes a trial but holds no trial record.",
+                n,
+                code="trial-without-record",
+            )
             continue
         ends[t].append((n, row))
 
@@ -91,6 +96,7 @@ def check_completion(
                 f"trial {t} was completed (line {found[0][0]}) but is not in the "
                 "session's schedule.",
                 found[0][0],
+                code="unscheduled-trial",
             )
             continue
         if len(found) > 1:
@@ -99,13 +105,16 @@ def check_completion(
                 f"trial {t} was completed {len(found)} times (lines {lines}); each trial "
                 "must be completed once. Analyse the last completion or exclude the trial.",
                 found[1][0],
+                code="trial-repeated",
             )
         n, row = found[-1]
         completed[t] = CompletedTrial(n, row)
         want = planned[t].get("stimulus")
         if want is not None and row.get("stimulus") != want:
             out.error(
-                f"trial {t} showed {row.get('stimulus')!r} but the schedule planned {want!r}.", n
+                f"trial {t} showed {row.get('stimulus')!r} but the schedule planned {want!r}.",
+                n,
+                code="wrong-stimulus",
             )
 
     missing = [t for t in planned if t not in completed]
@@ -120,6 +129,7 @@ def check_completion(
             out.error(
                 f"the session never started: none of its {len(planned)} scheduled trials were run.",
                 1,
+                code="session-not-started",
             )
         elif status is None:
             n = events[-1][0] if events else 1
@@ -129,6 +139,7 @@ def check_completion(
                 f"({rng}) {'was' if len(missing) == 1 else 'were'} not completed. Resume the "
                 "session to run them.",
                 n,
+                code="session-interrupted",
             )
         elif status == ABORTED:
             out.warning(
@@ -136,6 +147,7 @@ def check_completion(
                 f"); {plural(len(missing), 'scheduled trial')} ({rng}) "
                 f"{'was' if len(missing) == 1 else 'were'} not run.",
                 aborted_at or last.end_line or 0,
+                code="session-aborted",
             )
         elif status == CLEAN_END:
             what = plural(len(missing), "scheduled trial")
@@ -143,6 +155,7 @@ def check_completion(
             out.error(
                 f"the session says it completed, but {what} ({rng}) {verb} no result.",
                 last.end_line or 0,
+                code="trials-missing",
             )
         else:
             out.error(
@@ -151,12 +164,14 @@ def check_completion(
                 f"{'was' if len(missing) == 1 else 'were'} not completed. Resume the session "
                 "to run them.",
                 last.end_line or 0,
+                code="session-incomplete",
             )
     elif last is not None and status is None:
         out.warning(
             "every trial was completed, but the journal has no closing session_end "
             "line (the program stopped before the end screen).",
             events[-1][0] if events else 0,
+            code="no-session-end",
         )
 
     # Attempts before the last: each must have stopped (else a second program wrote into the
@@ -172,6 +187,7 @@ def check_completion(
                 f"attempt {a.index} (line {a.start_line}) completed, yet the journal "
                 "continues with another attempt.",
                 a.start_line,
+                code="attempt-after-end",
             )
     for b in attempts[1:]:
         if b.kind != "session_resume":
@@ -179,6 +195,7 @@ def check_completion(
                 f"line {b.start_line} starts the session again without a resume line; "
                 "an earlier attempt is in the same journal.",
                 b.start_line,
+                code="restart-without-resume",
             )
         repeated = sorted(
             set(b.started) & {t for x in attempts[: b.index - 1] for t in x.completed}
@@ -188,6 +205,7 @@ def check_completion(
                 f"attempt {b.index} (line {b.start_line}) ran trials already completed "
                 f"before it: {ranges(repeated)}.",
                 b.start_line,
+                code="trial-rerun",
             )
     facts["trials"] = {
         "scheduled": len(planned),
@@ -218,6 +236,7 @@ def check_files(
                 f"the frozen copy {name} is missing from the session folder; the "
                 "journal header still holds its text.",
                 file=display_path(path),
+                code="frozen-copy-missing",
             )
             info[name] = "missing"
             continue
@@ -227,6 +246,7 @@ def check_files(
                 f"the frozen copy {name} differs from the text the session ran with "
                 "(journal header); it was edited after the session.",
                 file=display_path(path),
+                code="frozen-copy-changed",
             )
             info[name] = "changed"
         else:
@@ -256,12 +276,14 @@ def check_files(
             f"({listing(changed)}, in {base}): participants saw the earlier version. Restore "
             "the files from the study's archive before the next session or analysis.",
             file=display_path(base / changed[0]),
+            code="stimulus-changed",
         )
     if absent:
         out.warning(
             f"{plural(len(absent), 'stimulus file')} cannot be found at {base} to check "
             f"({listing(absent)}); audit on the presenter computer, or copy the stimuli to the "
             "same place, to verify them.",
+            code="stimulus-not-found",
         )
     info["stimuli"] = {
         "checked": len(hashes),
@@ -340,11 +362,13 @@ def check_responses(
             f"{'was' if len(no_answer) == 1 else 'were'} neither marked unsure nor timed "
             "out; the trial record is inconsistent.",
             first_line[no_answer[0]],
+            code="answer-missing",
         )
     if timed_out:
         out.warning(
             f"{plural(len(timed_out), 'trial')} ({ranges(timed_out)}) timed out without an answer.",
             first_line[timed_out[0]],
+            code="trial-timed-out",
         )
     if no_rating:
         out.warning(
@@ -352,12 +376,14 @@ def check_responses(
             f"{'has' if len(no_rating) == 1 else 'have'} no difficulty rating (the "
             "rating screen timed out).",
             first_line[no_rating[0]],
+            code="rating-missing",
         )
     for m in bad:
         out.error(
             f"trial {m.trial}: the trial record's {m.what} is {m.recorded!r}, but the journal's "
             f"key presses give {m.journaled!r}.",
             m.line,
+            code="record-mismatch",
         )
     if fast:
         out.warning(
@@ -365,6 +391,7 @@ def check_responses(
             f"stimulus onset (trials {ranges(fast)}): possible anticipations or a "
             "stuck key.",
             first_line[fast[0]],
+            code="fast-response",
         )
     outcomes = Counter(str(done.record.get("outcome")) for done in completed.values())
     facts["responses"] = {
@@ -402,6 +429,7 @@ def check_trials_csv(
             f"{TRIALS_NAME} is missing from the session folder; it is derived from the "
             "journal and can be written again from it.",
             file=display_path(path),
+            code="trials-csv-missing",
         )
         facts["trials_csv"] = "missing"
         return
@@ -414,6 +442,7 @@ def check_trials_csv(
             f"{len(completed)}; it is out of date with the journal (the journal is the "
             "source of truth).",
             file=display_path(path),
+            code="trials-csv-stale",
         )
         facts["trials_csv"] = "out of date"
     else:
@@ -444,7 +473,7 @@ def check_against_recording(
     residual_limit_ms: float,
 ) -> RecordingReport | None:
     rec_file = display_path(recording.path)
-    markers = header.get("markers") if isinstance(header.get("markers"), dict) else {}
+    markers = header["markers"] if isinstance(header.get("markers"), dict) else {}
     source_id = markers.get("source_id") if isinstance(markers.get("source_id"), str) else None
     name = markers.get("name") if isinstance(markers.get("name"), str) else None
     journaled = journaled_markers(events)
@@ -458,7 +487,7 @@ def check_against_recording(
             residual_limit_ms=residual_limit_ms,
         )
     except RecordingError as exc:
-        out.error(str(exc), file=rec_file)
+        out.error(str(exc), file=rec_file, code="unreadable-recording")
         facts["recording"] = {"path": str(recording.path), "error": str(exc)}
         return None
     # A garbage sample left by a closing outlet, notes of the XDF reader and a restart that split
@@ -471,13 +500,15 @@ def check_against_recording(
     )
     errors = calm.problems()
     for sentence in errors:
-        out.error(sentence, file=rec_file)
+        out.error(sentence, file=rec_file, code="recording-mismatch")
     for sentence in report.problems():
         if sentence not in errors:
-            out.warning(sentence, file=rec_file)
+            out.warning(sentence, file=rec_file, code="recording-mismatch")
     if report.choice.note and not report.choice.combined:
         out.warning(
-            f"several marker streams could be this session's: {report.choice.note}", file=rec_file
+            f"several marker streams could be this session's: {report.choice.note}",
+            file=rec_file,
+            code="ambiguous-marker-stream",
         )
     facts["recording"] = report.as_dict()
     return report

@@ -23,18 +23,6 @@ MAX_LISTED = 8  # trials or lines named in one sentence before "and N more"
 Numbered = tuple[int, dict[str, Any]]  # a journal line: (1-based line number, record)
 
 
-def num(x: Any) -> float | None:
-    """``x`` as a finite float, or None (journals are data from disk: never trust a type)."""
-    if isinstance(x, bool) or not isinstance(x, (int, float)):
-        return None
-    v = float(x)
-    return v if math.isfinite(v) else None
-
-
-def as_int(x: Any) -> int | None:
-    return x if isinstance(x, int) and not isinstance(x, bool) else None
-
-
 def listing(items: Sequence[Any], limit: int = MAX_LISTED) -> str:
     shown = ", ".join(str(i) for i in items[:limit])
     return shown if len(items) <= limit else f"{shown} and {len(items) - limit} more"
@@ -101,11 +89,13 @@ class Findings:
         self.file = file
         self.items: list[Problem] = []
 
-    def error(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("error", file or self.file, line, 0, message))
+    def error(self, message: str, line: int = 0, file: str | None = None, *, code: str) -> None:
+        """Add an error; ``code`` is its stable code from :data:`runner.errors.PROBLEM_CODES`."""
+        self.items.append(Problem("error", file or self.file, line, 0, message, code=code))
 
-    def warning(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("warning", file or self.file, line, 0, message))
+    def warning(self, message: str, line: int = 0, file: str | None = None, *, code: str) -> None:
+        """Add a warning; ``code`` is its stable code from :data:`runner.errors.PROBLEM_CODES`."""
+        self.items.append(Problem("warning", file or self.file, line, 0, message, code=code))
 
 
 @dataclass(frozen=True)

@@ -6,7 +6,8 @@ from dataclasses import dataclass
 from typing import Any
 
 from runner.contract.events import MARKED_EVENTS
-from runner.qa.audit_facts import EventIndex, Findings, as_int, num, plural, ranges, stats
+from runner.contract.line import as_int, num
+from runner.qa.audit_facts import EventIndex, Findings, plural, ranges, stats
 
 __all__ = ["LateFlip", "Pause", "check_timing"]
 
@@ -46,7 +47,7 @@ def check_timing(
     out: Findings,
     facts: dict[str, Any],
 ) -> None:
-    screen = header.get("screen") if isinstance(header.get("screen"), dict) else {}
+    screen = header["screen"] if isinstance(header.get("screen"), dict) else {}
     interval = num(screen.get("interval_s"))
     if interval is None or interval <= 0:
         hz = num(screen.get("refresh_hz"))
@@ -59,7 +60,9 @@ def check_timing(
     facts["timing"] = timing
     if interval is None:
         out.warning(
-            "the journal header gives no refresh interval, so flip timing cannot be checked.", 1
+            "the journal header gives no refresh interval, so flip timing cannot be checked.",
+            1,
+            code="no-refresh-interval",
         )
         return
     frame_ms = interval * MS
@@ -92,6 +95,7 @@ def check_timing(
             f"at line {worst.line}, a {worst.kind} screen){late_onsets}. Close other programs on "
             "the presenter computer, and for pilots run without --frames when timing matters.",
             worst.line,
+            code="late-flips",
         )
 
     # Fixation: the requested duration (divided by the pilot speed) became whole frames; the
@@ -139,6 +143,7 @@ def check_timing(
             f"{ranges([x[0] for x in off])}. Analyses of pre-stimulus baselines should use "
             "the actual durations (trials.csv fixation_ms).",
             off[0][1],
+            code="fixation-off",
         )
 
     # Rests and breaks: a rest lasts its whole-frame request; a break lasts at least its minimum.
@@ -168,6 +173,7 @@ def check_timing(
                     f"the break at line {last.line} lasted {actual_s:.2f} s, less "
                     f"than its minimum of {requested / speed:.2f} s.",
                     last.line,
+                    code="short-break",
                 )
             last.actual_s, last.ended = actual_s, True
     rest_info = []
@@ -184,6 +190,7 @@ def check_timing(
                 f"the rest at line {n} lasted {actual_s:.3f} s instead of "
                 f"{want_s:.3f} s ({frames} frames).",
                 n,
+                code="rest-off",
             )
     timing["rests"] = rest_info
 

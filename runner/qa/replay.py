@@ -160,9 +160,7 @@ def _stimulus_resolver(
 ):
     table_file = header.get("trial_table_file")
     table_dir = Path(table_file).parent if isinstance(table_file, str) else None
-    hashes = (
-        header.get("stimulus_hashes") if isinstance(header.get("stimulus_hashes"), dict) else {}
-    )
+    hashes = header["stimulus_hashes"] if isinstance(header.get("stimulus_hashes"), dict) else {}
     cache = HashCache()
     resolved: dict[tuple[str, str | None], str] = {}
 
@@ -461,6 +459,7 @@ def _labels(screens: list[ReplayScreen], written: list[Path]) -> list[str]:
     """A caption per saved frame: its number, screen kind and trial."""
     kinds: list[ReplayScreen] = []
     last: View | None = None
+    s: ReplayScreen | None
     for s in screens:
         if s.view != last:
             kinds.append(s)

@@ -159,7 +159,9 @@ def _fit_segment(p: np.ndarray, r: np.ndarray) -> tuple[ClockSegment, np.ndarray
     return seg, keep
 
 
-def fit_clock(presenter_t: Sequence[float], recorder_t: Sequence[float]) -> ClockModel:
+def fit_clock(
+    presenter_t: Sequence[float] | np.ndarray, recorder_t: Sequence[float] | np.ndarray
+) -> ClockModel:
     """Fit the clock model to matched markers, given in journal order.
 
     Parameters

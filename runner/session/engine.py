@@ -65,7 +65,6 @@ class SessionState:
     answered: int = 0
     correct: int = 0
     unsure: int = 0
-    last_rt_ms: float | None = None
     recorder_connected: bool | None = None
     started: float = 0.0
     attempt: int = 1

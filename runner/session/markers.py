@@ -152,7 +152,7 @@ class MarkerOutlet:
 
     def close(self) -> None:
         # Dropping the outlet closes the stream; keep the object alive until the journal is done.
-        self._outlet = None  # type: ignore[assignment]
+        self._outlet = None
 
 
 def loopback_latency(outlet: MarkerOutlet, samples: int, *, timeout: float = 5.0) -> list[float]:

@@ -420,7 +420,7 @@ class TrialScreens:
         e.state.done_trials.add(trial.trial)
         e.state.trial_seconds.append(t_gap - e.trial_t0)
         e.state.current_trial = None
-        self._tally(outcome, rt_ms)
+        self._tally(outcome)
         e.watch_recorder(t_gap)
         for obs in e.observers:
             obs.on_trial_end(row, e)
@@ -437,7 +437,7 @@ class TrialScreens:
             trial.values.get(col, "") or e.model.rating.question if col else e.model.rating.question
         )
 
-    def _tally(self, outcome: str, rt_ms: float | None) -> None:
+    def _tally(self, outcome: str) -> None:
         e = self.engine
         s = e.state
         if outcome in ("correct", "wrong"):
@@ -445,7 +445,6 @@ class TrialScreens:
             s.correct += outcome == "correct"
         if outcome == "unsure":
             s.unsure += 1
-        s.last_rt_ms = rt_ms
 
 
 def stimulus_abspath(loaded: LoadedProtocol, trial: ScheduledTrial) -> Path:

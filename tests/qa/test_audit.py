@@ -58,8 +58,8 @@ def _raw_journal(folder: Path) -> list[dict]:
     return [json.loads(x) for x in (folder / JOURNAL_NAME).read_text("utf-8").splitlines()]
 
 
-def _messages(audit, severity: str) -> list[str]:
-    return [p.message for p in audit.problems if p.severity == severity]
+def _codes(audit, severity: str) -> list[str]:
+    return [p.code for p in audit.problems if p.severity == severity]
 
 
 # --------------------------------------------------------------------------------------------
@@ -134,8 +134,9 @@ def test_changed_stimulus_is_an_error(pilot, protocol_dir):
     finally:
         stim.write_bytes(original)
     assert not audit.ok
-    (problem,) = [p for p in audit.errors if "stimulus file" in p.message]
-    assert "img/route2.png" in problem.message
+    (problem,) = [p for p in audit.errors if p.code == "stimulus-changed"]
+    # The message names the file and the fix.
+    assert "img/route2.png" in problem.message and "Restore" in problem.message
     assert problem.file.endswith("route2.png")
 
 
@@ -146,7 +147,8 @@ def test_edited_frozen_protocol_is_an_error(pilot, tmp_path):
     with open(folder / "protocol.yaml", "a", encoding="utf-8") as fh:
         fh.write("# edited later\n")
     audit = audit_session(folder)
-    assert any("protocol.yaml differs" in m for m in _messages(audit, "error"))
+    (problem,) = [p for p in audit.errors if p.code == "frozen-copy-changed"]
+    assert problem.file.endswith("protocol.yaml")
 
 
 @pytest.mark.slow
@@ -157,7 +159,7 @@ def test_missing_stimuli_are_a_warning(tmp_path, protocol_dir):
     shutil.rmtree(src / "img")
     audit = audit_session(result.folder)
     assert audit.ok
-    assert any("cannot be found" in m for m in _messages(audit, "warning"))
+    assert "stimulus-not-found" in _codes(audit, "warning")
 
 
 @pytest.mark.slow
@@ -167,8 +169,8 @@ def test_aborted_session_lists_trials_not_run(tmp_path, protocol_dir):
     assert result.status == "aborted"
     audit = audit_session(result.folder)
     assert audit.ok, [p.format() for p in audit.errors]
-    (warning,) = [m for m in _messages(audit, "warning") if "aborted" in m]
-    assert "(3-5)" in warning
+    (warning,) = [p for p in audit.warnings if p.code == "session-aborted"]
+    assert "(3-5)" in warning.message
     assert audit.facts["trials"]["missing"] == [3, 4, 5]
 
 
@@ -234,7 +236,10 @@ def test_crash_then_resume_is_sound(tmp_path, protocol_dir):
     (folder / JOURNAL_NAME).write_bytes(crashed)
     before = audit_session(folder)
     assert not before.ok
-    assert any("stopped without its closing line" in m for m in _messages(before, "error"))
+    assert "session-interrupted" in _codes(before, "error")
+    # The message names the fix.
+    (problem,) = [p for p in before.errors if p.code == "session-interrupted"]
+    assert "Resume the session" in problem.message
     assert before.facts["trials"]["missing"] == [3, 4, 5]
 
     _resume(folder, protocol_dir / "mini.yaml")
@@ -422,7 +427,9 @@ def test_recording_missing_markers_fails(pilot, tmp_path):
     missing = audit.recording.match.missing
     assert [p for p, _ in missing] == [p for p, _ in _markers(pilot)[:4]]
     assert any(
-        "4 journaled markers never reached the recording" in m for m in _messages(audit, "error")
+        p.code == "recording-mismatch"
+        and p.message.startswith("4 journaled markers never reached the recording")
+        for p in audit.errors
     )
 
 
@@ -439,7 +446,7 @@ def test_duplicate_stream_after_restart_is_chosen_and_said(pilot, tmp_path):
     assert audit.ok, [p.format() for p in audit.errors]
     assert audit.recording.choice.stream_ids == [2]
     assert audit.recording.choice.candidates == [1, 2]
-    (note,) = [m for m in _messages(audit, "warning") if "several marker streams" in m]
+    (note,) = [p.message for p in audit.warnings if p.code == "ambiguous-marker-stream"]
     assert "chose stream 2" in note and "stream 1" in note
 
 
@@ -455,7 +462,7 @@ def test_data_gap_in_eeg_fails(pilot, tmp_path):
     (eeg,) = [c for c in audit.recording.coverage if c.name == "courier-eeg"]
     (gap,) = eeg.gaps
     assert gap[1] - gap[0] == pytest.approx(GAP_S, abs=2 / EEG_SRATE)
-    assert any("courier-eeg" in m and "gap" in m for m in _messages(audit, "error"))
+    assert any(p.code == "recording-mismatch" and "courier-eeg" in p.message for p in audit.errors)
 
 
 @pytest.mark.slow
@@ -465,7 +472,7 @@ def test_garbage_sample_from_closing_outlet_is_a_warning(pilot, tmp_path):
     audit = audit_session(pilot, recording=rec)
     assert audit.ok, [p.format() for p in audit.errors]
     assert len(audit.recording.match.garbage) == 1
-    assert any("not a JSON object" in m for m in _messages(audit, "warning"))
+    assert "recording-mismatch" in _codes(audit, "warning")
 
 
 @pytest.mark.slow
@@ -498,6 +505,7 @@ def test_command_exit_codes_and_json(pilot, tmp_path, capsys):
     (session,) = data["sessions"]
     assert session["ok"] is False
     assert len(session["recording"]["markers"]["missing"]) == 2
+    assert "recording-mismatch" in [p["code"] for p in session["problems"]]
 
 
 @pytest.mark.slow
