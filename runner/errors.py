@@ -149,6 +149,12 @@ PROBLEM_CODES: dict[str, str] = {
     "recording-mismatch": (
         "the recording disagrees with the journal's markers (lost, repeated, extra or garbled markers, late start)"
     ),
+    "recording-identity": (
+        "the recording's marker stream names another session (participant, session, study or protocol)"
+    ),
+    "recording-sequence": (
+        "the recorded markers do not line up with the journal's in time, even after offset and drift"
+    ),
     "ambiguous-marker-stream": "several marker streams in the recording could be this session's",
 }
 

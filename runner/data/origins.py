@@ -27,11 +27,6 @@ EEG_STREAM_TYPE = "eeg"  # compared case-insensitively with the XDF stream type
 # timing difference (after the clock offset) is within the recording check's limit. Half is a
 # tolerance for a recorder that joined late, not a published figure.
 MIN_MATCHED_SHARE = 0.5
-# After the clock model (offset and drift), markers of the right session line up to well under a
-# millisecond; those of another session with the same payloads (same protocol) scatter by
-# hundreds. A median residual above this means the timing sequence is not this session's. The
-# value is ours (common practice: ten times the worst residual seen on a loaded test machine).
-SEQUENCE_LIMIT_MS = 5.0
 # Seconds are written with 6 decimals (1 microsecond): the journal clock has sub-microsecond
 # resolution, and no recorder samples faster than 1 MHz.
 SECONDS_DECIMALS = 6
@@ -92,6 +87,7 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
         If the recording has no EEG stream with samples, or no journaled marker was found in it.
     """
     from runner.recording import check_recording, read_recording
+    from runner.recording.check import sequence_mismatch
 
     rec = read_recording(recording)
     eeg = [
@@ -124,9 +120,7 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
             "belongs to this session (run `trialdeck audit` with it)."
         )
     residual = match.residual_median_abs_ms
-    if match.matched < len(markers) * MIN_MATCHED_SHARE or (
-        residual is not None and residual > SEQUENCE_LIMIT_MS
-    ):
+    if match.matched < len(markers) * MIN_MATCHED_SHARE or sequence_mismatch(match):
         raise RecordingError(
             f"the markers of {session.folder} do not line up with {recording} as a sequence "
             f"({match.matched} of {len(markers)} found; after the clock's offset and drift their "

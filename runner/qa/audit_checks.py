@@ -34,6 +34,8 @@ from runner.qa.audit_facts import (
     stats,
 )
 from runner.recording import Recording, RecordingReport, check_recording
+from runner.recording.check import sequence_mismatch
+from runner.recording.identity import compare_identity
 
 # Responses faster than this (divided by the pilot speed) are flagged as possible anticipations
 # or a stuck key. No published floor exists for counting tasks; 200 ms is common practice for
@@ -490,19 +492,45 @@ def check_against_recording(
         out.error(str(exc), file=rec_file, code="unreadable-recording")
         facts["recording"] = {"path": str(recording.path), "error": str(exc)}
         return None
-    # A garbage sample left by a closing outlet, notes of the XDF reader and a restart that split
-    # the marker stream are reported as warnings; everything else the check finds is an error.
+    # Whose recording is it? The marker stream's own identity comes first.
+    for sid in report.choice.stream_ids:
+        identity = compare_identity(recording.stream(sid).identity, header)
+        if identity.known and not identity.matches:
+            out.error(
+                f"this is not this session's recording: {identity.describe()}; pick that "
+                "session's recording (or this session's own).",
+                file=rec_file,
+                code="recording-identity",
+            )
+            facts["recording"] = report.as_dict()
+            return report
+    if sequence_mismatch(report.match):
+        m = report.match
+        out.error(
+            f"the recorded markers do not line up with this session's as a sequence: after the "
+            f"clock's offset and drift their times still differ by "
+            f"{m.residual_median_abs_ms:.1f} ms at the median ({m.matched} payloads in common); "
+            "it is probably another session's recording of the same protocol.",
+            file=rec_file,
+            code="recording-sequence",
+        )
+        facts["recording"] = report.as_dict()
+        return report
+    # A garbage sample left by a closing outlet and notes of the XDF reader are warnings; a
+    # restart that split the marker stream (joined by source_id) is information, shown with the
+    # recording's facts; everything else the check finds is an error.
     calm = dataclasses.replace(
         report,
         reader_notes=[],
         match=dataclasses.replace(report.match, garbage=[]),
-        choice=dataclasses.replace(report.choice, combined=False),
+        choice=dataclasses.replace(report.choice, combined=False, coverage=None),
     )
     errors = calm.problems()
     for sentence in errors:
         out.error(sentence, file=rec_file, code="recording-mismatch")
+    joined_note = report.choice.note if report.choice.combined else None
     for sentence in report.problems():
-        if sentence not in errors:
+        if sentence not in errors and sentence != joined_note:
             out.warning(sentence, file=rec_file, code="recording-mismatch")
     if report.choice.note and not report.choice.combined:
         out.warning(

@@ -155,6 +155,19 @@ def _verb(n: int, singular: str, plural: str) -> str:
     return singular if n == 1 else plural
 
 
+# After the clock model (offset and drift), markers of the right session line up to well under a
+# millisecond; those of another session with the same payloads (same protocol) scatter by
+# hundreds. A median residual above this means the timing sequence is not this session's. The
+# value is ours (common practice: ten times the worst residual seen on a loaded test machine).
+SEQUENCE_LIMIT_MS = 5.0
+
+
+def sequence_mismatch(match: MarkerMatch) -> bool:
+    """True when the matched markers do not line up in time even after offset and drift."""
+    res = match.residual_median_abs_ms
+    return res is not None and res > SEQUENCE_LIMIT_MS
+
+
 @dataclass
 class RecordingReport:
     """Everything the recording check found, with plain sentences in :meth:`problems`."""

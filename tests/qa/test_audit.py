@@ -282,8 +282,20 @@ def _markers(folder: Path) -> list[tuple[str, float]]:
     return [(r["marker"], r["t"]) for r in _raw_journal(folder) if "marker" in r]
 
 
+def _identity_xml(header: dict, **changes: str) -> str:
+    """The desc/session block a trialdeck marker outlet writes, with some fields changed."""
+    fields = {k: header[k] for k in ("study", "participant", "session", "protocol_hash")}
+    body = "".join(f"<{k}>{v}</{k}>" for k, v in (fields | changes).items())
+    return f"<software>trialdeck</software><session>{body}</session>"
+
+
 def _marker_stream(
-    samples: list[tuple[str, float]], header: dict, *, stream_id: int, created_at: float
+    samples: list[tuple[str, float]],
+    header: dict,
+    *,
+    stream_id: int,
+    created_at: float,
+    desc_xml: str = "",
 ) -> FixtureStream:
     ts = [t for _, t in samples]
     return FixtureStream(
@@ -297,6 +309,7 @@ def _marker_stream(
         source_id=header["markers"]["source_id"],
         created_at=created_at,
         clock_offsets=[(t, MARKER_OFFSET) for t in np.linspace(ts[0] - 1, ts[-1] + 1, 5)],
+        desc_xml=desc_xml,
     )
 
 
@@ -339,9 +352,18 @@ def _make_xdf(
     restart: bool = False,
     gap: bool = False,
     garbage: bool = False,
+    split: bool = False,
+    identity: dict[str, str] | None = None,
+    shuffle_times: bool = False,
 ) -> Path:
     header = _raw_journal(folder)[0]
     journaled = _markers(folder)
+    if shuffle_times:
+        # Another session of the same protocol: same payloads, other timing.
+        rng = np.random.default_rng(8)
+        gaps = rng.permutation(np.diff([t for _, t in journaled]))
+        times = journaled[0][1] + np.concatenate([[0.0], np.cumsum(gaps)])
+        journaled = [(p, float(t)) for (p, _), t in zip(journaled, times, strict=True)]
     span_rec = (journaled[0][1] + MARKER_OFFSET, journaled[-1][1] + MARKER_OFFSET)
     samples = journaled[drop_first:]
     if garbage:
@@ -356,9 +378,31 @@ def _make_xdf(
             _marker_stream(early, header, stream_id=1, created_at=journaled[0][1] - 125.0)
         )
         first_id = 2
-    streams.append(
-        _marker_stream(samples, header, stream_id=first_id, created_at=journaled[0][1] - 5.0)
-    )
+    desc = _identity_xml(header, **identity) if identity is not None else ""
+    if split:
+        # The presenter's outlet restarted mid-session: two streams of one source_id.
+        half = len(samples) // 2
+        streams.append(
+            _marker_stream(
+                samples[:half], header, stream_id=first_id, created_at=samples[0][1] - 5.0
+            )
+        )
+        first_id += 10
+        streams.append(
+            _marker_stream(
+                samples[half:], header, stream_id=first_id, created_at=samples[half][1] - 1.0
+            )
+        )
+    else:
+        streams.append(
+            _marker_stream(
+                samples,
+                header,
+                stream_id=first_id,
+                created_at=journaled[0][1] - 5.0,
+                desc_xml=desc,
+            )
+        )
     mid = (span_rec[0] + span_rec[1]) / 2
     streams.append(
         _regular(
@@ -448,6 +492,46 @@ def test_duplicate_stream_after_restart_is_chosen_and_said(pilot, tmp_path):
     assert audit.recording.choice.candidates == [1, 2]
     (note,) = [p.message for p in audit.warnings if p.code == "ambiguous-marker-stream"]
     assert "chose stream 2" in note and "stream 1" in note
+
+
+@pytest.mark.slow
+def test_marker_stream_split_by_a_restart_is_information_not_an_error(pilot, tmp_path):
+    """Two marker streams of one source_id (an outlet restart) are joined; the audit passes and
+    says so in its facts, with no error or warning about coverage.
+
+    Source: pyxdf reads the fixture; the split is known by construction.
+    """
+    rec = read_recording(_make_xdf(pilot, tmp_path / "rec.xdf", split=True))
+    audit = audit_session(pilot, recording=rec)
+    assert audit.ok, [p.format() for p in audit.errors]
+    assert audit.recording.choice.combined
+    assert not [p for p in audit.warnings if p.code == "recording-mismatch"]
+    assert "a restart split the session" in "\n".join(format_audits([audit]))
+
+
+@pytest.mark.slow
+def test_another_participants_recording_is_named(pilot, tmp_path):
+    """A recording whose marker stream says it came from P07's session is refused as P07's.
+
+    Source: pyxdf reads the fixture's stream header (desc/session, as the outlet writes it).
+    """
+    path = _make_xdf(pilot, tmp_path / "rec.xdf", identity={"participant": "P07"})
+    audit = audit_session(pilot, recording=read_recording(path))
+    (err,) = [p for p in audit.errors if p.code == "recording-identity"]
+    assert "participant P07" in err.message and "'P07' instead of 'P01'" in err.message
+    assert not [p for p in audit.errors if p.code == "recording-mismatch"]
+
+
+@pytest.mark.slow
+def test_same_protocol_other_timing_is_not_this_sessions_recording(pilot, tmp_path):
+    """Same payloads with another session's timing: refused as another session's recording,
+    not explained as drift or a late recorder.
+
+    Source: pyxdf reads the fixture; the timing was permuted by construction.
+    """
+    path = _make_xdf(pilot, tmp_path / "rec.xdf", shuffle_times=True)
+    audit = audit_session(pilot, recording=read_recording(path))
+    assert [p.code for p in audit.errors] == ["recording-sequence"]
 
 
 @pytest.mark.slow
