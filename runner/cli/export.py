@@ -37,6 +37,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help=f"BIDS datatype folder of the events files (default {DEFAULT_DATATYPE})",
     )
     parser.add_argument(
+        "--copy-stimuli",
+        action="store_true",
+        help="copy the sessions' stimuli into the dataset's stimuli/ folder (checked against the "
+        "hashes journaled at each session's start)",
+    )
+    parser.add_argument(
+        "--stimuli-dir",
+        metavar="DIR",
+        type=Path,
+        help="with --copy-stimuli: where the stimuli are now, if they moved since the sessions",
+    )
+    parser.add_argument(
         "--task",
         metavar="LABEL",
         help="BIDS task label, letters and digits (default: the study id without other characters)",
@@ -53,6 +65,11 @@ def run(args: argparse.Namespace) -> int:
         recordings=args.recording,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
+    if args.copy_stimuli:
+        from runner.data.bids import copy_stimuli
+
+        copied = copy_stimuli(result.sessions, Path(args.out), stimuli_dir=args.stimuli_dir)
+        print(f"Copied {len(copied)} stimulus file(s) into {Path(args.out) / 'stimuli'}.")
     print(f"Pooled trials table: {result.pooled}")
     listed = 0
     for (tsv, _side), origin, s in zip(result.events, result.origins, result.sessions, strict=True):

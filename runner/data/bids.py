@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import math
 import re
+import shutil
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
@@ -18,16 +19,18 @@ import pandas as pd
 
 from runner.contract.columns import level_key
 from runner.contract.events import EVENT_VALUES
+from runner.contract.hashing import file_sha256
 from runner.contract.layout import (
     PARTICIPANT_PREFIX,
     SESSION_PREFIX,
     TRIALS_NAME,
+    display_path,
     is_label,
 )
-from runner.data.bids_rows import ROW_KINDS, TRIAL_COLUMNS, EventRows, event_rows
+from runner.data.bids_rows import ROW_KINDS, TRIAL_COLUMNS, EventRows, event_rows, stim_file_name
 from runner.data.origins import SECONDS_DECIMALS, Origin, session_origin
 from runner.data.sessions import ExportSession
-from runner.errors import StorageError, UsageError
+from runner.errors import InputFileError, StorageError, UsageError
 
 __all__ = [
     "DATATYPES",
@@ -362,3 +365,46 @@ def dataset_files(out: Path, sessions: Sequence[ExportSession]) -> list[Path]:
         ignore.write_text("\n".join([*lines, POOLED_NAME]) + "\n", encoding="utf-8")
         written.append(ignore)
     return written
+
+
+def copy_stimuli(
+    sessions: Sequence[ExportSession], out: Path, *, stimuli_dir: Path | None = None
+) -> list[Path]:
+    """Copy every session's stimuli into the dataset's ``stimuli/`` folder, at their stim_file
+    paths, so the events files' ``stim_file`` values name files that exist.
+
+    Each file is checked against the SHA-256 the session journaled at its start, so a stimulus
+    changed since is never passed off as the one shown. ``stimuli_dir`` replaces the trial
+    table's folder when the stimuli have moved (as for ``trialdeck replay``).
+
+    Raises
+    ------
+    InputFileError
+        A stimulus is missing, or differs from the one the session showed.
+    """
+    dest_root = Path(out) / "stimuli"
+    copied: dict[str, Path] = {}
+    for session in sessions:
+        table_dir = Path(str(session.header.get("trial_table_file", ""))).parent
+        base = stimuli_dir if stimuli_dir is not None else table_dir
+        hashes = session.header.get("stimulus_hashes") or {}
+        for stimulus, digest in hashes.items():
+            name = stim_file_name(str(stimulus))
+            if name in copied:
+                continue
+            source = base / stimulus
+            if not source.is_file():
+                raise InputFileError(
+                    f"the stimulus {stimulus!r} of {display_path(session.folder)} is not at "
+                    f"{source}; give the folder the stimuli are in now with --stimuli-dir."
+                )
+            if file_sha256(source) != digest:
+                raise InputFileError(
+                    f"the stimulus {source} differs from the one {display_path(session.folder)} "
+                    "showed (its SHA-256 changed since); find the original file before copying."
+                )
+            target = dest_root / name
+            target.parent.mkdir(parents=True, exist_ok=True)
+            shutil.copyfile(source, target)
+            copied[name] = target
+    return list(copied.values())

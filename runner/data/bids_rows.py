@@ -92,7 +92,7 @@ TRIAL_KINDS = frozenset(
 )
 
 
-def _stim_file(stimulus: str) -> str:
+def stim_file_name(stimulus: str) -> str:
     # BIDS stim_file is relative to the dataset's /stimuli folder; leading ./ and ../ of the
     # trial table's own path have no meaning there, so they are dropped.
     parts = [p for p in PurePosixPath(stimulus.replace("\\", "/")).parts if p not in (".", "..")]
@@ -254,7 +254,7 @@ def event_rows(session: ExportSession) -> EventRows:
             row.tail = tail
             if kind == "stimulus":
                 stimulus = tails[tail][2]
-                row.stim_file = _stim_file(str(stimulus)) if stimulus else None
+                row.stim_file = stim_file_name(str(stimulus)) if stimulus else None
                 if done is not None and done.get("rt_ms") is not None:
                     row.response_time = float(done["rt_ms"]) / MS_PER_S
             elif kind == "rating_prompt":

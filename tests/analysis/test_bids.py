@@ -433,3 +433,41 @@ def test_onsets_agree_with_pyxdf_under_drift_lost_markers_and_chunk_jitter(pilot
         worst = max(worst, abs(row.onset - expected))
     assert checked_lost > 5
     assert worst < 0.0005
+
+
+@pytest.mark.slow
+def test_copied_stimuli_are_where_stim_file_says_and_checked(pilots, tmp_path, capsys):
+    """`export --copy-stimuli` puts every stim_file under stimuli/, byte-identical to the shown
+    image; a stimulus changed since the session is refused instead of copied.
+
+    Source: BIDS specification, "stim_file": a path relative to the dataset's /stimuli folder;
+    the journaled SHA-256 (hashlib) identifies the image each session showed.
+    """
+    import shutil
+
+    from runner.cli import main
+
+    out = tmp_path / "bids"
+    assert main(["export", str(pilots), "--out", str(out), "--copy-stimuli"]) == 0
+    capsys.readouterr()
+    named = set()
+    for path in _events_files(out):
+        _, rows = _tsv(path)
+        named |= {r["stim_file"] for r in rows if r["stim_file"] != "n/a"}
+    assert named
+    source = Path(__file__).resolve().parent.parent / "data" / "mini"
+    for name in named:
+        assert (out / "stimuli" / name).read_bytes() == (source / name).read_bytes()
+
+    moved = tmp_path / "moved"
+    shutil.copytree(source / "img", moved / "img")
+    first = sorted(named)[0]
+    (moved / first).write_bytes((moved / first).read_bytes() + b"\0")
+    code = main(
+        [
+            "export", str(pilots), "--out", str(tmp_path / "bids2"), "--copy-stimuli",
+            "--stimuli-dir", str(moved),
+        ]
+    )  # fmt: skip
+    err = capsys.readouterr().err
+    assert code == 1 and "differs from the one" in err and "Traceback" not in err
