@@ -7,7 +7,7 @@ import json
 from pathlib import Path
 
 from runner.cli.args import positive_float
-from runner.errors import EXIT_OK, EXIT_PROBLEMS
+from runner.errors import EXIT_OK, EXIT_PROBLEMS, UsageError
 from runner.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
 
 
@@ -41,6 +41,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         f"(default {DEFAULT_RESIDUAL_LIMIT_MS:g} ms)",
     )
     p.add_argument(
+        "--photodiode",
+        metavar="STREAM[:CHANNEL]",
+        help="with --recording: measure the display latency per onset from a light sensor on "
+        "the photodiode patch, recorded in this stream (name, source_id or type; channel from 1)",
+    )
+    p.add_argument(
         "--allow-truncated",
         action="store_true",
         help="read the intact part of a truncated recording instead of refusing it",
@@ -53,6 +59,17 @@ def run(args: argparse.Namespace) -> int:
     from runner.recording import read_recording
 
     rec = None
+    if args.photodiode and not args.recording:
+        raise UsageError(
+            "--photodiode needs --recording FILE.xdf (the sensor is in the recording)."
+        )
+    if args.photodiode:
+        from runner.recording.photodiode import parse_spec
+
+        try:
+            parse_spec(args.photodiode)
+        except ValueError as exc:
+            raise UsageError(f"{exc}.") from None
     if args.recording:
         rec = read_recording(args.recording, allow_truncated=args.allow_truncated)
     audits = audit_sessions(
@@ -60,6 +77,7 @@ def run(args: argparse.Namespace) -> int:
         recording=rec,
         max_gap_s=args.max_gap,
         residual_limit_ms=args.residual_limit,
+        photodiode=args.photodiode,
     )
     if args.json:
         print(json.dumps({"sessions": [a.as_dict() for a in audits]}, indent=2))

@@ -42,6 +42,7 @@ from runner.qa.audit_checks import (
     check_against_recording,
     check_completion,
     check_files,
+    check_photodiode,
     check_responses,
     check_trials_csv,
     journaled_markers,
@@ -99,6 +100,7 @@ def audit_session(
     max_gap_s: float = DEFAULT_MAX_GAP_S,
     residual_limit_ms: float = DEFAULT_RESIDUAL_LIMIT_MS,
     hashes: HashCache | None = None,
+    photodiode: str | None = None,
 ) -> SessionAudit:
     """Audit one session folder (see the module docstring for what is checked).
 
@@ -114,6 +116,10 @@ def audit_session(
         Passed to :func:`runner.recording.check_recording`.
     hashes : HashCache, optional
         Shared between sessions so each stimulus file is hashed once.
+    photodiode : str, optional
+        ``STREAM[:CHANNEL]``: a recorded analog stream (name, source_id or type) whose channel
+        (1-based, default 1) carries a light sensor on the photodiode patch; the display latency
+        per onset is measured (:mod:`runner.recording.photodiode`).
 
     Returns
     -------
@@ -164,6 +170,8 @@ def audit_session(
         report = check_against_recording(
             header, events, recording, out, facts, max_gap_s, residual_limit_ms
         )
+        if report is not None and photodiode:
+            check_photodiode(events, recording, report, photodiode, out, facts)
     order = {"error": 0, "warning": 1}
     problems = sorted(
         out.items, key=lambda p: (order.get(p.severity, 2), p.file != out.file, p.line)
@@ -187,6 +195,7 @@ def audit_sessions(
     recording: Recording | None = None,
     max_gap_s: float = DEFAULT_MAX_GAP_S,
     residual_limit_ms: float = DEFAULT_RESIDUAL_LIMIT_MS,
+    photodiode: str | None = None,
 ) -> list[SessionAudit]:
     """Audit several session folders, hashing shared stimulus files once.
 
@@ -208,6 +217,7 @@ def audit_sessions(
         audit_session(
             f,
             recording=recording,
+            photodiode=photodiode,
             max_gap_s=max_gap_s,
             residual_limit_ms=residual_limit_ms,
             hashes=cache,

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from runner.contract.events import STATUS_ABORTED, STATUS_COMPLETED
 from runner.contract.hashing import HashCache
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, display_path
@@ -35,7 +37,9 @@ from runner.qa.audit_facts import (
 )
 from runner.recording import Recording, RecordingReport, check_recording
 from runner.recording.check import sequence_mismatch
+from runner.recording.dejitter import dejitter
 from runner.recording.identity import compare_identity
+from runner.recording.photodiode import light_onsets, measure_latency, parse_spec
 
 # Responses faster than this (divided by the pilot speed) are flagged as possible anticipations
 # or a stuck key. No published floor exists for counting tasks; 200 ms is common practice for
@@ -540,3 +544,55 @@ def check_against_recording(
         )
     facts["recording"] = report.as_dict()
     return report
+
+
+def check_photodiode(
+    events: list[tuple[int, dict[str, Any]]],
+    recording: Recording,
+    report: RecordingReport,
+    spec: str,
+    out: Findings,
+    facts: dict[str, Any],
+) -> None:
+    """Display latency from a recorded light sensor on the photodiode patch (see
+    :mod:`runner.recording.photodiode`): each flip that lit the patch, mapped onto the recorder's
+    clock (its recorded marker time where there is one), paired with the sensor's light edge."""
+    rec_file = display_path(recording.path)
+    name, channel = parse_spec(spec)
+    wanted = name.strip().lower()
+    found = [
+        s
+        for s in recording.streams
+        if wanted in (s.name.lower(), s.source_id.lower(), s.type.lower()) and not s.is_markers
+    ]
+    if not found or found[0].channel_count <= channel:
+        names = ", ".join(f"{s.name!r} ({s.type}, {s.channel_count} ch)" for s in recording.streams)
+        out.error(
+            f"no photodiode stream {spec!r} in the recording (name, source_id or type, then "
+            f":CHANNEL from 1); its streams: {names}.",
+            file=rec_file,
+            code="photodiode-missing",
+        )
+        return
+    stream = found[0]
+    clock = report.match.clock
+    if clock is None:
+        return
+    recorded = {t: r for _, t, r in report.match.pairs}
+    flips = [
+        (float(r["t"]), bool(r.get("photodiode"))) for _, r in events if r.get("event") == "flip"
+    ]
+    onsets = [recorded.get(t, clock.to_recorder(t)) for t in light_onsets(flips)]
+    times = dejitter(recording.timestamps(stream.stream_id), stream.nominal_srate)
+    values = np.asarray(recording.values(stream.stream_id), dtype=float)
+    values = values[:, channel] if values.ndim == 2 else values
+    result = measure_latency(times, values, onsets, stream=stream.name, channel=channel)
+    facts["photodiode"] = result.as_dict() | {"sentence": result.describe()}
+    lat = result.latency
+    if lat.missed or len(lat.extra_edges):
+        out.warning(
+            f"{result.describe()}: the patch did not light for every onset, or lit without one; "
+            "check the sensor's placement and the display's settings (dimming, overdrive).",
+            file=rec_file,
+            code="photodiode-edges",
+        )

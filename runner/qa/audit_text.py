@@ -98,6 +98,8 @@ def detail_lines(a: SessionAudit) -> list[str]:
         lines.append(f"  outcomes: {oc or 'none'}")
     if a.recording is not None:
         lines.extend(_recording_lines(a.recording))
+        if "photodiode" in f:
+            lines.append(f"    {f['photodiode']['sentence']}")
     elif "recording" in f:
         lines.append(f"  recording: {f['recording'].get('error')}")
     return lines

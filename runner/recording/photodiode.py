@@ -135,3 +135,63 @@ def pair_edges(onsets: Sequence[float], edges: np.ndarray) -> Latency:
             used[j] = True
             j += 1
     return Latency(on, lat, e[~used])
+
+
+def light_onsets(flips: Sequence[tuple[float, bool]]) -> list[float]:
+    """Times of the flips that turned the patch on (it was off on the frame before)."""
+    out = []
+    lit = False
+    for t, on in flips:
+        if on and not lit:
+            out.append(t)
+        lit = on
+    return out
+
+
+def parse_spec(spec: str) -> tuple[str, int]:
+    """``STREAM[:CHANNEL]`` (channel 1-based, default 1) as (stream, 0-based channel)."""
+    name, _, channel = spec.rpartition(":") if ":" in spec else (spec, "", "")
+    if not channel:
+        return spec, 0
+    if not channel.isdigit() or int(channel) < 1:
+        raise ValueError(f"the photodiode channel in {spec!r} must be a whole number from 1")
+    return name, int(channel) - 1
+
+
+@dataclass(frozen=True)
+class PhotodiodeReport:
+    """Display latency measured on a recorded photodiode channel."""
+
+    stream: str
+    channel: int  # 0-based
+    latency: Latency
+    edges: Edges
+
+    def as_dict(self) -> dict[str, object]:
+        return {"stream": self.stream, "channel": self.channel + 1, **self.latency.summary()}
+
+    def describe(self) -> str:
+        s = self.latency.summary()
+        if not s["matched"]:
+            return (
+                f"photodiode {self.stream}:{self.channel + 1}: no light edge matched an onset "
+                f"({len(self.edges.times)} edges found); check the sensor sits on the patch."
+            )
+        return (
+            f"photodiode {self.stream}:{self.channel + 1}: display latency median "
+            f"{s['median_ms']:.1f} ms (IQR {s['iqr_ms']:.1f} ms, worst {s['worst_ms']:.1f} ms) "
+            f"over {s['matched']} onsets; {s['missed']} missed, {s['extra']} extra edges"
+        )
+
+
+def measure_latency(
+    times: np.ndarray,
+    values: np.ndarray,
+    onsets_recorder: Sequence[float],
+    *,
+    stream: str,
+    channel: int,
+) -> PhotodiodeReport:
+    """Find the edges of one channel and pair them with onsets on the recorder's clock."""
+    edges = find_edges(values, times)
+    return PhotodiodeReport(stream, channel, pair_edges(onsets_recorder, edges.times), edges)
