@@ -31,6 +31,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "stream; give one per session, in session order",
     )
     parser.add_argument(
+        "--allow-truncated",
+        action="store_true",
+        help="read the intact part of a truncated recording instead of refusing it",
+    )
+    parser.add_argument(
         "--datatype",
         choices=DATATYPES,
         default=DEFAULT_DATATYPE,
@@ -63,6 +68,7 @@ def run(args: argparse.Namespace) -> int:
         task=args.task,
         datatype=args.datatype,
         recordings=args.recording,
+        allow_truncated=args.allow_truncated,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     if args.copy_stimuli:

@@ -122,6 +122,7 @@ def export_sessions(
     task: str | None = None,
     datatype: str = DEFAULT_DATATYPE,
     recordings: Sequence[str | Path] | None = None,
+    allow_truncated: bool = False,
     workers: int | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
@@ -140,6 +141,8 @@ def export_sessions(
     recordings : sequence of path, optional
         One XDF recording per session, in session order: onsets then count from the first
         sample of its EEG stream. Default: from the session start.
+    allow_truncated : bool
+        Read the intact part of a truncated recording instead of refusing it (as audit does).
     workers : int, optional
         Worker processes that read sessions and write their events files side by side. Default:
         one per processor (at most :data:`runner.data.sessions.MAX_WORKERS`) from
@@ -181,7 +184,7 @@ def export_sessions(
     events: list[tuple[Path, Path]] = []
     seen: dict[tuple[str, str, str], Path] = {}
     jobs = [
-        _Job(folder, out, task, datatype, recordings[i] if recordings else None)
+        _Job(folder, out, task, datatype, recordings[i] if recordings else None, allow_truncated)
         for i, folder in enumerate(folders)
     ]
     workers = worker_count(len(jobs), workers)
@@ -215,6 +218,7 @@ class _Job:
     task: str | None
     datatype: str
     recording: str | Path | None
+    allow_truncated: bool = False
 
 
 def _load(job: _Job) -> ExportSession:
@@ -224,7 +228,7 @@ def _load(job: _Job) -> ExportSession:
 
 def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
     if job.recording is not None:
-        origin = recording_origin(session, job.recording)
+        origin = recording_origin(session, job.recording, allow_truncated=job.allow_truncated)
     else:
         origin = session_origin(session)
     label = task_label(session.study, job.task)

@@ -73,7 +73,9 @@ def session_origin(session: ExportSession) -> Origin:
     )
 
 
-def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
+def recording_origin(
+    session: ExportSession, recording: str | Path, *, allow_truncated: bool = False
+) -> Origin:
     """Origin at the first sample of the recording's first EEG-type stream.
 
     The recording's marker stream is matched with the journal's markers
@@ -89,7 +91,7 @@ def recording_origin(session: ExportSession, recording: str | Path) -> Origin:
     from runner.recording import check_recording, read_recording
     from runner.recording.check import sequence_mismatch
 
-    rec = read_recording(recording)
+    rec = read_recording(recording, allow_truncated=allow_truncated)
     eeg = [
         s
         for s in sorted(rec.streams, key=lambda x: x.stream_id)

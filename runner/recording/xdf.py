@@ -282,7 +282,7 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
         )
         if not allow_truncated:
             raise RecordingError(
-                f"{sentence}; read it anyway with the allow-truncated option, or use a complete "
+                f"{sentence}; read it anyway with --allow-truncated (audit and export), or use a complete "
                 "copy."
             )
         notes.append(f"{sentence}; only the intact part was read.")

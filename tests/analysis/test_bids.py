@@ -471,3 +471,26 @@ def test_copied_stimuli_are_where_stim_file_says_and_checked(pilots, tmp_path, c
     )  # fmt: skip
     err = capsys.readouterr().err
     assert code == 1 and "differs from the one" in err and "Traceback" not in err
+
+
+@pytest.mark.slow
+def test_export_reads_a_truncated_recording_only_when_allowed(pilots, tmp_path, capsys):
+    """A file cut inside its last footer is refused by export with the option export itself
+    has; with --allow-truncated the intact part gives the origin.
+
+    Source: XDF specification (chunk framing) for the fixture; pyxdf reads the intact part.
+    """
+    from runner.cli import main
+
+    folder = find_session_folders([pilots])[0]
+    xdf, _ = _recording(tmp_path / "rec.xdf", folder)
+    data = xdf.read_bytes()
+    cut = tmp_path / "cut.xdf"
+    cut.write_bytes(data[:-20])
+    args = ["export", str(folder), "--out", str(tmp_path / "a"), "--recording", str(cut)]
+    assert main(args) == 1
+    err = capsys.readouterr().err
+    assert "--allow-truncated" in err and "Traceback" not in err
+    args = ["export", str(folder), "--out", str(tmp_path / "b"), "--recording", str(cut)]
+    assert main([*args, "--allow-truncated"]) == 0
+    assert "first EEG sample" in capsys.readouterr().out
