@@ -49,6 +49,17 @@ from runner.protocol.model import BlocksStep, Protocol
 from runner.protocol.report import problem_at
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial, build_schedule, derive_seed
 from runner.protocol.sizes import stimulus_box
+from runner.protocol.texts import (
+    MIN_TEXT_CONTRAST,
+    contrast_ratio,
+    font_characters,
+    font_path,
+    heading_colour,
+    hint_colour,
+    missing_characters,
+    participant_strings,
+    text_faults,
+)
 
 # The screen measures the painter draws with (pure data: no pygame, no pylsl).
 from runner.session.views import (
@@ -329,6 +340,8 @@ class _Checker:
     def run(self, participants: int | None) -> None:
         self.counts()
         self.expected()
+        self.texts()
+        self.contrast()
         if not self.stimuli():
             return
         self.length()
@@ -590,6 +603,71 @@ class _Checker:
             f"three-flash rule (WCAG 2.3.1, general flashes only; red flashes are not checked):"
             f" at most {worst} flash(es) in any second of the whole screen and stimulus area"
         )
+
+    # -- the participant's text -----------------------------------------------------------
+    def texts(self) -> None:
+        """Every participant-facing string can be shown and drawn by the chosen font."""
+        model = self.model
+        columns = [c for c in (model.answer.prompt_column, model.rating.question_column) if c]
+        values = {
+            c: list(dict.fromkeys(row.value(c) for row in self.loaded.table.rows)) for c in columns
+        }
+        strings = participant_strings(model, self.loaded.pages, values)
+        for loc, text in strings:
+            for fault in text_faults(text):
+                self.at(loc, fault, "error", code="unshowable-text")
+        font = font_path(model, self.loaded.path)
+        font_loc = ("screen", "font")
+        try:
+            available = font_characters(font)
+        except Exception as exc:  # fontTools raises many kinds for a file that is not a font
+            reason = "does not exist" if not font.exists() else f"is not a usable font ({exc})"
+            self.at(font_loc, f"the font file {font} {reason}", "error", code="unusable-font")
+            return
+        missing: dict[tuple[str | int, ...], set[str]] = {}
+        for loc, text in strings:
+            gone = missing_characters(text, available)
+            if gone:
+                missing.setdefault(loc, set()).update(gone)
+        for loc, chars in missing.items():
+            shown = " ".join(f"{ch!r} (U+{ord(ch):04X})" for ch in sorted(chars)[:MAX_LISTED])
+            more = f" and {len(chars) - MAX_LISTED} more" if len(chars) > MAX_LISTED else ""
+            self.at(
+                loc,
+                f"the font {font.name} cannot draw {shown}{more}; they would show as boxes."
+                " Set screen.font to a font file that has them",
+                "error",
+                code="missing-glyph",
+            )
+        self.fact(f"text: {len(strings)} participant-facing strings, drawn with {font.name}")
+
+    def contrast(self) -> None:
+        """WCAG 2.2 contrast of each text colour with what it is drawn on (4.5:1 for text)."""
+        sc = self.model.screen
+        bg = sc.background
+        pairs = [
+            ("text", sc.text_colour, bg, ("screen", "text_colour")),
+            ("hints", hint_colour(sc.text_colour, bg), bg, ("screen", "text_colour")),
+            (
+                "headings",
+                heading_colour(sc.text_colour, sc.accent_colour, bg),
+                bg,
+                ("screen", "accent_colour"),
+            ),
+        ]
+        measured = []
+        for what, fg, under, loc in pairs:
+            ratio = contrast_ratio(fg, under)
+            measured.append(f"{what} {ratio:.1f}:1")
+            if ratio < MIN_TEXT_CONTRAST:
+                self.at(
+                    loc,
+                    f"{what} ({fg} on {under}) have a contrast ratio of {ratio:.2f}:1, below the"
+                    f" {MIN_TEXT_CONTRAST}:1 WCAG 2.2 asks for text; choose a darker or lighter"
+                    " colour",
+                    code="low-contrast",
+                )
+        self.fact("text contrast on the background (WCAG 2.2): " + ", ".join(measured))
 
     # -- counterbalancing ------------------------------------------------------------------
     def counterbalancing(self, participants: int) -> None:
