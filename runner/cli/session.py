@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import shlex
 import sys
 from pathlib import Path
 
@@ -144,7 +145,38 @@ def run_one_session(
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")
     if result.late_flips:
-        print(f"Late flips: {result.late_flips}")
+        print(f"Late flips: {result.late_flips}" + late_flips_note())
+    if result.status in ("aborted", "interrupted", "failed"):
+        for line in resume_lines(args, mode, protocol, result.folder):
+            print(line)
     if result.error is not None and not isinstance(result.error, KeyboardInterrupt):
         raise result.error
     return EXIT_OK if result.status == "completed" else EXIT_PROBLEMS
+
+
+def late_flips_note() -> str:
+    """Why late flips of a headless run say nothing about the lab display (empty when shown)."""
+    if os.environ.get("SDL_VIDEODRIVER") in ("dummy", "offscreen"):
+        return (
+            " (a headless run has no real display, so these say nothing about the lab's screen;"
+            " `trialdeck selftest` on the lab machine measures it)"
+        )
+    return ""
+
+
+def resume_lines(
+    args: argparse.Namespace, mode: str, protocol: Path, folder: Path | None
+) -> list[str]:
+    """What to do after a session that did not complete: how to continue it, how to audit it."""
+    verb = "run" if mode == "live" else "pilot"
+    command = (
+        f"trialdeck {verb} {shlex.quote(str(protocol))} --participant {args.participant}"
+        f" --session {args.session} --out {shlex.quote(str(args.out))} --resume"
+    )
+    lines = ["To continue this session where it stopped:", f"  {command}"]
+    if folder is not None:
+        lines += [
+            "To see what was recorded so far:",
+            f"  trialdeck audit {shlex.quote(str(folder))}",
+        ]
+    return lines

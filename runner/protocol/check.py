@@ -47,6 +47,7 @@ from runner.protocol.load import LoadedProtocol, display_name, load_protocol
 from runner.protocol.luminance import LuminanceCache, mean_luminance_of_screen, relative_luminance
 from runner.protocol.model import BlocksStep, Protocol
 from runner.protocol.report import problem_at
+from runner.protocol.runsheet import RunSheetRow, run_sheet
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial, build_schedule, derive_seed
 from runner.protocol.sizes import stimulus_box
 from runner.protocol.texts import (
@@ -84,6 +85,8 @@ MAX_LISTED = 10
 #: A stimulus shown this much below the requested size (in pixels) is reported.
 SIZE_SLACK_PX = 1
 SECONDS_PER_MINUTE = 60.0
+#: Version of the ``check --json`` object (1 was a bare list of problems, now ``problems``).
+JSON_FORMAT = 2
 
 
 @dataclass
@@ -108,10 +111,38 @@ class CheckReport:
     luminance: dict[str, float] = field(default_factory=dict)
     length: LengthEstimate | None = None
     flash_reports: dict[str, FlashReport] = field(default_factory=dict)
+    counts: dict[str, object] = field(default_factory=dict)
+    contrast: dict[str, float] = field(default_factory=dict)
+    run_sheet: list[RunSheetRow] | None = None
 
     @property
     def has_errors(self) -> bool:
         return any(p.severity == "error" for p in self.problems)
+
+    def as_dict(self) -> dict[str, object]:
+        """The report as ``check --json`` prints it (shape: docs/protocol.md, "check --json")."""
+        length = self.length
+        return {
+            "format": JSON_FORMAT,
+            "ok": not self.has_errors,
+            "errors": sum(p.severity == "error" for p in self.problems),
+            "warnings": sum(p.severity == "warning" for p in self.problems),
+            "problems": [p.as_dict() for p in self.problems],
+            "facts": list(self.facts),
+            "counts": dict(self.counts),
+            "length_s": None
+            if length is None
+            else {
+                "shortest": round(length.shortest, 1),
+                "typical": round(length.typical, 1),
+                "longest": None if length.longest is None else round(length.longest, 1),
+                "longest_unbounded_by": list(length.longest_unbounded_by),
+                "max_stretch": round(length.max_stretch_s, 1),
+            },
+            "contrast": dict(self.contrast),
+            "luminance": {k: round(v, 4) for k, v in self.luminance.items()},
+            "run_sheet": None if self.run_sheet is None else [r.as_dict() for r in self.run_sheet],
+        }
 
     def summary_lines(self) -> list[str]:
         errors = sum(p.severity == "error" for p in self.problems)
@@ -342,6 +373,7 @@ class _Checker:
         self.expected()
         self.texts()
         self.contrast()
+        self.structured_counts()
         if not self.stimuli():
             return
         self.length()
@@ -349,6 +381,7 @@ class _Checker:
         self.flashes()
         if participants is not None:
             self.counterbalancing(participants)
+            self.report.run_sheet = run_sheet(self.loaded, participants)
 
     def counts(self) -> None:
         trials = self.schedule.trials
@@ -604,6 +637,27 @@ class _Checker:
             f" at most {worst} flash(es) in any second of the whole screen and stimulus area"
         )
 
+    def structured_counts(self) -> None:
+        """The counts of the facts, as data for ``check --json``."""
+        trials = self.schedule.trials
+        practice = sum(t.part == "practice" for t in trials)
+        blocks: list[dict[str, object]] = []
+        for item in self.schedule.items:
+            if item.kind == "block" and item.trials:
+                blocks.append({"block": item.trials[0].block, "trials": len(item.trials)})
+        self.report.counts = {
+            "trials": len(trials),
+            "practice": practice,
+            "main": len(trials) - practice,
+            "blocks": blocks,
+            "breaks": sum(it.kind == "break" for it in self.schedule.items),
+            "pages": sum(it.kind == "page" for it in self.schedule.items),
+            "rests": sum(it.kind == "rest" for it in self.schedule.items),
+            "stimuli": len({t.stimulus for t in trials}),
+            "table_rows": len(self.loaded.table.rows),
+            "unused_rows": len(self.loaded.table.rows) - len({t.row for t in trials}),
+        }
+
     # -- the participant's text -----------------------------------------------------------
     def texts(self) -> None:
         """Every participant-facing string can be shown and drawn by the chosen font."""
@@ -659,6 +713,7 @@ class _Checker:
         for what, fg, under, loc in pairs:
             ratio = contrast_ratio(fg, under)
             measured.append(f"{what} {ratio:.1f}:1")
+            self.report.contrast[what] = round(ratio, 2)
             if ratio < MIN_TEXT_CONTRAST:
                 self.at(
                     loc,
