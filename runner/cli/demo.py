@@ -80,11 +80,11 @@ def run(args: argparse.Namespace) -> int:
     print(
         f"Demo: a pilot of {protocol} with a simulated participant, {args.speed:g} times faster than real time."
     )
-    code = run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
-    if code == 0:
+    exit_code = run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
+    if exit_code == 0:
         for line in next_steps(session_folder(out, study, DEMO_PARTICIPANT, str(n)), out):
             print(line)
-    return code
+    return exit_code
 
 
 def next_steps(folder: Path, out: Path) -> list[str]:
