@@ -93,6 +93,7 @@ def run_one_session(
         Whatever ended the session, after its journal and trials table were written.
     """
     from runner.protocol.load import load_protocol
+    from runner.protocol.schedule import build_schedule
     from runner.session.console import SAFETY_REMINDER, Console
     from runner.session.run import RunOptions, run_session
 
@@ -130,6 +131,7 @@ def run_one_session(
         trigger_port=getattr(args, "trigger_port", None),
         pause_at=getattr(args, "sim_pause_at", None),
     )
+    console.plan(build_schedule(loaded, args.participant, args.session))
     console.start()
     try:
         result = run_session(
