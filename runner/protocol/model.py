@@ -202,7 +202,11 @@ class Timing(Strict):
 
     fixation_ms: tuple[
         Annotated[float, Field(ge=0, le=60000)], Annotated[float, Field(ge=0, le=60000)]
-    ] = Field((700, 1300), description="Fixation duration drawn uniformly from [low, high] ms.")
+    ] = Field(
+        (700, 1300),
+        description="a list [low, high] in ms, such as [700, 1300]: each fixation lasts a"
+        " duration drawn uniformly from it",
+    )
     stimulus_limit_s: float | None = Field(
         40, gt=0, le=3600, description="Longest viewing time; none for no limit."
     )

@@ -344,7 +344,7 @@ CASES = [
         "bad-choice",
     ),
     ("top-level list", "- study: x\n", TABLE, P, 1, "not-a-mapping"),
-    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 8, "yaml-syntax"),
+    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 7, "yaml-syntax"),
     ("not UTF-8", BASE.encode().replace(b"Welcome", b"Welc\xffome"), TABLE, P, 10, "not-utf8"),
     (
         "NUL character",
