@@ -115,7 +115,7 @@ def font_characters(path: Path) -> frozenset[int]:
         When the file cannot be read as a font (fontTools raises various errors; callers
         report them as an unreadable font).
     """
-    from fontTools.ttLib import TTFont
+    from fontTools.ttLib import TTFont  # type: ignore[import-untyped]
 
     with TTFont(str(path), lazy=True) as font:
         cmap = font.getBestCmap()
