@@ -108,3 +108,17 @@ def test_late_flips_are_explained_under_the_dummy_driver(monkeypatch) -> None:
     assert "headless" in late_flips_note() and "selftest" in late_flips_note()
     monkeypatch.setenv("SDL_VIDEODRIVER", "x11")
     assert late_flips_note() == ""
+
+
+@pytest.mark.slow
+def test_late_flips_printed_at_the_end_agree_with_the_audit(tmp_path: Path, capsys) -> None:
+    """The 'Late flips' count after a pilot is the count `audit --json` gives (0: no line)."""
+    args = ["pilot", str(MINI_PROTOCOL), "--participant", "P01", "--out", str(tmp_path)]
+    assert main([*args, "--speed", "20"]) == 0
+    out = capsys.readouterr().out
+    printed = [int(ln.split()[2]) for ln in out.splitlines() if ln.startswith("Late flips:")]
+    folder = tmp_path / "mini-test" / "sub-P01" / "ses-1"
+    assert main(["audit", str(folder), "--json"]) == 0
+    (audit,) = json.loads(capsys.readouterr().out)["sessions"]
+    late = audit["facts"]["timing"]["late_flips"]
+    assert printed == ([late] if late else [])

@@ -146,14 +146,29 @@ def run_one_session(
     print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")
-    if result.late_flips:
-        print(f"Late flips: {result.late_flips}" + late_flips_note())
+    late = audited_late_flips(result.folder, result.late_flips)
+    if late:
+        print(f"Late flips: {late}" + late_flips_note())
     if result.status in ("aborted", "interrupted", "failed"):
         for line in resume_lines(args, mode, protocol, result.folder):
             print(line)
     if result.error is not None and not isinstance(result.error, KeyboardInterrupt):
         raise result.error
     return EXIT_OK if result.status == "completed" else EXIT_PROBLEMS
+
+
+def audited_late_flips(folder: Path, fallback: int) -> int:
+    """Late flips as ``trialdeck audit`` counts them from the journal (so the two agree);
+    the presenter's own count when the journal cannot be audited."""
+    from runner.errors import TrialdeckError
+    from runner.qa.audit import audit_session
+
+    try:
+        timing = audit_session(folder).facts.get("timing") or {}
+    except (TrialdeckError, OSError):
+        return fallback
+    late = timing.get("late_flips")
+    return late if isinstance(late, int) else fallback
 
 
 def late_flips_note() -> str:

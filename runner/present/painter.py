@@ -147,6 +147,7 @@ class Painter:
             self.heading = pygame.font.Font(style.font, round(fp * 1.8))
             self.small = pygame.font.Font(style.font, round(fp * 0.95))
             self.big = pygame.font.Font(style.font, round(fp * 3.0))
+            self.body.render("A", True, style.text)  # pygame opens any file; drawing tells
         except (OSError, pygame.error) as exc:
             raise InputFileError(f"{style.font}: cannot be used as a font ({exc}).") from None
         self._text_cache: dict[tuple, pygame.Surface] = {}

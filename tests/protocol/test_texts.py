@@ -164,3 +164,19 @@ def test_painter_survives_zero_width_text() -> None:
         assert surf.get_at((0, 0))[:3] == (0x8C, 0x8C, 0x8C)
     finally:
         pygame.display.quit()
+
+
+def test_painter_refuses_a_file_that_is_not_a_font(tmp_path: Path) -> None:
+    """A screen.font that is not a font file is a plain InputFileError, not a pygame crash."""
+    from runner.errors import InputFileError
+    from runner.present.painter import Painter, Style
+
+    bad = tmp_path / "font.ttf"
+    bad.write_text("not a font", encoding="utf-8")
+    style = Style.from_colours("#8c8c8c", "#141414", "#1f4e79", 20, font=bad)
+    pygame.display.init()
+    try:
+        with pytest.raises(InputFileError, match="cannot be used as a font"):
+            Painter(style, (640, 480), pygame.Rect(0, 0, 10, 10), lambda p: None)
+    finally:
+        pygame.display.quit()
