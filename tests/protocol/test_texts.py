@@ -180,3 +180,32 @@ def test_painter_refuses_a_file_that_is_not_a_font(tmp_path: Path) -> None:
             Painter(style, (640, 480), pygame.Rect(0, 0, 10, 10), lambda p: None)
     finally:
         pygame.display.quit()
+
+
+def test_demo_page_draws_heading_and_hint_at_four_and_a_half() -> None:
+    """On the demo's colours the drawn heading and hint pixels keep 4.5:1 with the grey.
+
+    Source: WCAG 2.2 success criterion 1.4.3 and the contrast-ratio definition, recomputed here
+    from the painter's own pixels (the darkest pixel of each text is its full colour).
+    """
+    from runner.present.painter import HINT_MARGIN_FRACTION, Painter, Style
+    from runner.session.views import PageView
+
+    size = (960, 540)
+    pygame.display.init()
+    try:
+        surf = pygame.Surface(size)
+        style = Style.from_colours("#8c8c8c", "#141414", "#1f4e79", 34)
+        painter = Painter(style, size, pygame.Rect(0, 0, 10, 10), lambda p: None)
+        painter.draw(surf, PageView("# Thank you", hint="Press the space bar to continue."))
+        hint_y = round(size[1] * (1 - HINT_MARGIN_FRACTION))
+        bands = {"heading": range(0, size[1] // 2), "hint": range(hint_y - 12, hint_y + 12)}
+        for name, rows in bands.items():
+            colours = {
+                tuple(surf.get_at((x, y))[:3]) for y in rows for x in range(0, size[0], 2)
+            } - {(0x8C, 0x8C, 0x8C)}
+            assert colours, name
+            darkest = min(colours, key=sum)
+            assert _wcag_ratio(darkest, (0x8C, 0x8C, 0x8C)) >= 4.5, (name, darkest)
+    finally:
+        pygame.display.quit()
