@@ -78,6 +78,10 @@ PROBLEM_CODES: dict[str, str] = {
     "luminance-spread": "stimulus luminance spreads more than checks.luminance_tolerance",
     "flashing": "the screen sequence can break the WCAG 2.3.1 three-flash rule",
     "unbalanced-orders": "the participants do not use each block order equally often",
+    "unusable-font": "the font file named by screen.font is missing or is not a font",
+    "missing-glyph": "a text the participant sees has characters the font cannot draw",
+    "unshowable-text": "a text holds control characters or nothing visible, so it cannot be shown",
+    "low-contrast": "a text colour has less than 4.5:1 contrast with its background (WCAG 2.2)",
     # The stimulus kit.
     "no-target-pair": "no target pair of a stimulus meets its set's pairs rule",
     "unreadable-drawing": "no drawing of a stimulus meets the readability limits",

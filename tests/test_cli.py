@@ -56,7 +56,7 @@ def test_invalid_protocol_refuses_everywhere_and_creates_nothing(
         assert lines, text
         assert any(ln.startswith(f"{path}:{line}:") for ln in lines), lines
     assert main(["check", str(path), "--json"]) == 1
-    found = json.loads(capsys.readouterr().out)
+    found = json.loads(capsys.readouterr().out)["problems"]
     assert (line, problem_code) in [(f["line"], f["code"]) for f in found], found
     assert not out_dir.exists()
 
@@ -103,6 +103,7 @@ def test_schema_verb_prints_json(capsys):
 
 # Contract verbs (README and DEVELOPERS.md); the parser must offer exactly these.
 CONTRACT_VERBS = {
+    "new",
     "check",
     "pilot",
     "run",

@@ -22,6 +22,7 @@ __all__ = ["VERBS", "build_parser", "main"]
 
 #: **contract**: the verbs, in the order help lists them, each with its help line.
 VERBS: tuple[tuple[str, str], ...] = (
+    ("new", "write a starter study to edit: protocol, welcome page, stimuli"),
     ("check", "check a protocol before anyone arrives"),
     ("pilot", "run a protocol with a simulated participant"),
     ("run", "run a live session with a participant"),

@@ -17,7 +17,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "sessions",
         nargs="+",
         metavar="SESSION_DIR",
-        help="session folders (…/sub-<participant>/ses-<session>/)",
+        help="session folders (…/sub-<participant>/ses-<session>/), or folders above them"
+        " (a study folder: every session under it)",
     )
     p.add_argument(
         "--recording",
@@ -53,6 +54,22 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
 
 
+def session_folders(paths: list[str]) -> list[Path]:
+    """Each path as given when it holds a journal (or is not a folder: audit names what is
+    missing), else every session folder under it, as export and summary find them."""
+    from runner.contract.layout import JOURNAL_NAME
+    from runner.data.sessions import find_session_folders
+
+    out: list[Path] = []
+    for raw in paths:
+        path = Path(raw)
+        if path.is_dir() and not (path / JOURNAL_NAME).exists():
+            out.extend(find_session_folders([path]))
+        else:
+            out.append(path)
+    return out
+
+
 def run(args: argparse.Namespace) -> int:
     """Print the audit (or JSON); exit 0 when every session is sound, 1 when any has errors."""
     from runner.qa.audit import audit_sessions, format_audits
@@ -73,7 +90,7 @@ def run(args: argparse.Namespace) -> int:
     if args.recording:
         rec = read_recording(args.recording, allow_truncated=args.allow_truncated)
     audits = audit_sessions(
-        [Path(s) for s in args.sessions],
+        session_folders(args.sessions),
         recording=rec,
         max_gap_s=args.max_gap,
         residual_limit_ms=args.residual_limit,

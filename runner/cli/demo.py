@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import shlex
 from pathlib import Path
 
 from runner.cli.args import positive_float
@@ -79,4 +80,22 @@ def run(args: argparse.Namespace) -> int:
     print(
         f"Demo: a pilot of {protocol} with a simulated participant, {args.speed:g} times faster than real time."
     )
-    return run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
+    exit_code = run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
+    if exit_code == 0:
+        for line in next_steps(session_folder(out, study, DEMO_PARTICIPANT, str(n)), out):
+            print(line)
+    return exit_code
+
+
+def next_steps(folder: Path, out: Path) -> list[str]:
+    """What to try after the demo: audit, replay, summary, and a protocol of one's own."""
+    f, o = shlex.quote(str(folder)), shlex.quote(str(out))
+    return [
+        "",
+        "What next:",
+        f"  trialdeck audit {f}          is the session complete and intact?",
+        f"  trialdeck replay {f} --frames demo-frames   see every screen the participant saw",
+        f"  trialdeck summary {o} --out demo-report     tables, plots and report.html",
+        "  trialdeck new my-study                       a starter protocol of your own to edit",
+        "  (docs/protocol.md explains every setting; `trialdeck check` reviews a protocol.)",
+    ]

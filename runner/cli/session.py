@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import os
+import shlex
 import sys
 from pathlib import Path
 
@@ -92,6 +93,7 @@ def run_one_session(
         Whatever ended the session, after its journal and trials table were written.
     """
     from runner.protocol.load import load_protocol
+    from runner.protocol.schedule import build_schedule
     from runner.session.console import SAFETY_REMINDER, Console
     from runner.session.run import RunOptions, run_session
 
@@ -129,6 +131,7 @@ def run_one_session(
         trigger_port=getattr(args, "trigger_port", None),
         pause_at=getattr(args, "sim_pause_at", None),
     )
+    console.plan(build_schedule(loaded, args.participant, args.session))
     console.start()
     try:
         result = run_session(
@@ -143,8 +146,54 @@ def run_one_session(
     print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")
-    if result.late_flips:
-        print(f"Late flips: {result.late_flips}")
+    late = audited_late_flips(result.folder, result.late_flips)
+    if late:
+        print(f"Late flips: {late}" + late_flips_note())
+    if result.status in ("aborted", "interrupted", "failed"):
+        for line in resume_lines(args, mode, protocol, result.folder):
+            print(line)
     if result.error is not None and not isinstance(result.error, KeyboardInterrupt):
         raise result.error
     return EXIT_OK if result.status == "completed" else EXIT_PROBLEMS
+
+
+def audited_late_flips(folder: Path, fallback: int) -> int:
+    """Late flips as ``trialdeck audit`` counts them from the journal (so the two agree);
+    the presenter's own count when the journal cannot be audited."""
+    from runner.errors import TrialdeckError
+    from runner.qa.audit import audit_session
+
+    try:
+        timing = audit_session(folder).facts.get("timing") or {}
+    except (TrialdeckError, OSError):
+        return fallback
+    late = timing.get("late_flips")
+    return late if isinstance(late, int) else fallback
+
+
+def late_flips_note() -> str:
+    """Why late flips of a headless run say nothing about the lab display (empty when shown)."""
+    if os.environ.get("SDL_VIDEODRIVER") in ("dummy", "offscreen"):
+        return (
+            " (a headless run has no real display, so these say nothing about the lab's screen;"
+            " `trialdeck selftest` on the lab machine measures it)"
+        )
+    return ""
+
+
+def resume_lines(
+    args: argparse.Namespace, mode: str, protocol: Path, folder: Path | None
+) -> list[str]:
+    """What to do after a session that did not complete: how to continue it, how to audit it."""
+    verb = "run" if mode == "live" else "pilot"
+    command = (
+        f"trialdeck {verb} {shlex.quote(str(protocol))} --participant {args.participant}"
+        f" --session {args.session} --out {shlex.quote(str(args.out))} --resume"
+    )
+    lines = ["To continue this session where it stopped:", f"  {command}"]
+    if folder is not None:
+        lines += [
+            "To see what was recorded so far:",
+            f"  trialdeck audit {shlex.quote(str(folder))}",
+        ]
+    return lines

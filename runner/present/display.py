@@ -297,6 +297,7 @@ class Display:
 def display_for(loaded, *, fullscreen: bool, frames_dir: Path | None = None) -> Display:
     """Open the participant's display as a loaded protocol describes it."""
     from runner.protocol.sizes import stimulus_box
+    from runner.protocol.texts import font_path
 
     screen = loaded.model.screen
     pd = loaded.model.photodiode
@@ -307,6 +308,8 @@ def display_for(loaded, *, fullscreen: bool, frames_dir: Path | None = None) -> 
         screen.font_px,
         photodiode_corner=pd.corner if pd else None,
         photodiode_px=pd.size_px if pd else 48,
+        font=font_path(loaded.model, loaded.path),
+        texts=loaded.model.texts,
     )
     display = Display(
         resolution=screen.resolution,

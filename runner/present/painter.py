@@ -8,9 +8,13 @@ is acting on, and hints in a muted tone at the bottom edge.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from pathlib import Path
 
 import pygame
 
+from runner.errors import InputFileError
+from runner.protocol.model import Texts
+from runner.protocol.texts import DEFAULT_FONT, heading_colour, hex_colour, hint_colour
 from runner.session.views import (
     PATCH_OFF,
     PATCH_ON,
@@ -33,6 +37,9 @@ PAGE_WIDTH_FRACTION = 0.58
 HINT_MARGIN_FRACTION = 0.07
 BOX_RADIUS = 10
 TEXT_CACHE_ENTRIES = 512
+#: pygame sizes a font by its em; this share of ``font_px`` keeps the sizes that pygame's own
+#: default font had (it applies the same factor internally), so layouts did not move.
+FONT_SIZE_FACTOR = 0.6875
 
 
 def page_lines(text: str) -> list[str]:
@@ -78,6 +85,8 @@ class Style:
     font_px: int
     photodiode_corner: str | None = None
     photodiode_px: int = 48
+    font: Path = DEFAULT_FONT
+    texts: Texts = Texts()
 
     @classmethod
     def from_colours(
@@ -89,14 +98,33 @@ class Style:
         *,
         photodiode_corner: str | None = None,
         photodiode_px: int = 48,
+        font: Path | None = None,
+        texts: Texts | None = None,
     ) -> Style:
         return cls(
-            _rgb(background), _rgb(text), _rgb(accent), font_px, photodiode_corner, photodiode_px
+            _rgb(background),
+            _rgb(text),
+            _rgb(accent),
+            font_px,
+            photodiode_corner,
+            photodiode_px,
+            font if font is not None else DEFAULT_FONT,
+            texts if texts is not None else Texts(),
         )
 
     @property
     def muted(self) -> tuple[int, int, int]:
-        return _mix(self.text, self.background, 0.45)
+        """Hints: the text colour moved toward the background while keeping 4.5:1 contrast."""
+        return _rgb(hint_colour(hex_colour(self.text), hex_colour(self.background)))
+
+    @property
+    def emphasis(self) -> tuple[int, int, int]:
+        """Headings and good feedback: the accent colour when legible (4.5:1), else the text's."""
+        return _rgb(
+            heading_colour(
+                hex_colour(self.text), hex_colour(self.accent), hex_colour(self.background)
+            )
+        )
 
     @property
     def paper(self) -> tuple[int, int, int]:
@@ -113,11 +141,15 @@ class Painter:
         self.stimulus_rect = stimulus_rect
         self.image_for = image_for
         pygame.font.init()
-        fp = style.font_px
-        self.body = pygame.font.Font(None, round(fp * 1.25))
-        self.heading = pygame.font.Font(None, round(fp * 1.8))
-        self.small = pygame.font.Font(None, round(fp * 0.95))
-        self.big = pygame.font.Font(None, round(fp * 3.0))
+        fp = style.font_px * FONT_SIZE_FACTOR
+        try:
+            self.body = pygame.font.Font(style.font, round(fp * 1.25))
+            self.heading = pygame.font.Font(style.font, round(fp * 1.8))
+            self.small = pygame.font.Font(style.font, round(fp * 0.95))
+            self.big = pygame.font.Font(style.font, round(fp * 3.0))
+            self.body.render("A", True, style.text)  # pygame opens any file; drawing tells
+        except (OSError, pygame.error) as exc:
+            raise InputFileError(f"{style.font}: cannot be used as a font ({exc}).") from None
         self._text_cache: dict[tuple, pygame.Surface] = {}
         self._box_cache: dict[tuple, pygame.Surface] = {}
         self._last: tuple[View, bool] | None = None
@@ -138,7 +170,11 @@ class Painter:
         if img is None:
             if len(self._text_cache) >= TEXT_CACHE_ENTRIES:
                 self._text_cache.clear()
-            img = font.render(text, True, colour)
+            try:
+                img = font.render(text, True, colour)
+            except (pygame.error, ValueError):
+                # Zero-width or NUL text (which `check` refuses): draw nothing, never crash.
+                img = pygame.Surface((0, font.get_linesize()), pygame.SRCALPHA)
             self._text_cache[key] = img
         return img
 
@@ -257,7 +293,7 @@ class Painter:
         blocks: list[tuple[pygame.font.Font, str, tuple[int, int, int]]] = []
         for line in page_lines(view.text):
             if line.startswith("#"):
-                blocks.append((self.heading, line.lstrip("#").strip(), self.style.accent))
+                blocks.append((self.heading, line.lstrip("#").strip(), self.style.emphasis))
             elif line.startswith(("- ", "* ")):
                 for k, part in enumerate(self._wrap(self.body, line[2:], width - 40)):
                     blocks.append(
@@ -334,7 +370,7 @@ class Painter:
 
     def _draw_FeedbackView(self, surf: pygame.Surface, view: FeedbackView) -> None:
         w, h = self.size
-        colour = self.style.accent if view.good else self.style.text
+        colour = self.style.emphasis if view.good else self.style.text
         self._text(surf, self.heading, view.text, colour, (w // 2, h // 2))
 
     def _draw_BreakView(self, surf: pygame.Surface, view: BreakView) -> None:
@@ -345,7 +381,7 @@ class Painter:
             self._text(
                 surf,
                 self.small,
-                f"You can go on in {view.seconds_left} s.",
+                self.style.texts.break_countdown.format(seconds=view.seconds_left),
                 self.style.muted,
                 (w // 2, y),
             )

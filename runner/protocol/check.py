@@ -47,8 +47,20 @@ from runner.protocol.load import LoadedProtocol, display_name, load_protocol
 from runner.protocol.luminance import LuminanceCache, mean_luminance_of_screen, relative_luminance
 from runner.protocol.model import BlocksStep, Protocol
 from runner.protocol.report import problem_at
+from runner.protocol.runsheet import RunSheetRow, run_sheet
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial, build_schedule, derive_seed
 from runner.protocol.sizes import stimulus_box
+from runner.protocol.texts import (
+    MIN_TEXT_CONTRAST,
+    contrast_ratio,
+    font_characters,
+    font_path,
+    heading_colour,
+    hint_colour,
+    missing_characters,
+    participant_strings,
+    text_faults,
+)
 
 # The screen measures the painter draws with (pure data: no pygame, no pylsl).
 from runner.session.views import (
@@ -73,6 +85,8 @@ MAX_LISTED = 10
 #: A stimulus shown this much below the requested size (in pixels) is reported.
 SIZE_SLACK_PX = 1
 SECONDS_PER_MINUTE = 60.0
+#: Version of the ``check --json`` object (1 was a bare list of problems, now ``problems``).
+JSON_FORMAT = 2
 
 
 @dataclass
@@ -97,10 +111,38 @@ class CheckReport:
     luminance: dict[str, float] = field(default_factory=dict)
     length: LengthEstimate | None = None
     flash_reports: dict[str, FlashReport] = field(default_factory=dict)
+    counts: dict[str, object] = field(default_factory=dict)
+    contrast: dict[str, float] = field(default_factory=dict)
+    run_sheet: list[RunSheetRow] | None = None
 
     @property
     def has_errors(self) -> bool:
         return any(p.severity == "error" for p in self.problems)
+
+    def as_dict(self) -> dict[str, object]:
+        """The report as ``check --json`` prints it (shape: docs/protocol.md, "check --json")."""
+        length = self.length
+        return {
+            "format": JSON_FORMAT,
+            "ok": not self.has_errors,
+            "errors": sum(p.severity == "error" for p in self.problems),
+            "warnings": sum(p.severity == "warning" for p in self.problems),
+            "problems": [p.as_dict() for p in self.problems],
+            "facts": list(self.facts),
+            "counts": dict(self.counts),
+            "length_s": None
+            if length is None
+            else {
+                "shortest": round(length.shortest, 1),
+                "typical": round(length.typical, 1),
+                "longest": None if length.longest is None else round(length.longest, 1),
+                "longest_unbounded_by": list(length.longest_unbounded_by),
+                "max_stretch": round(length.max_stretch_s, 1),
+            },
+            "contrast": dict(self.contrast),
+            "luminance": {k: round(v, 4) for k, v in self.luminance.items()},
+            "run_sheet": None if self.run_sheet is None else [r.as_dict() for r in self.run_sheet],
+        }
 
     def summary_lines(self) -> list[str]:
         errors = sum(p.severity == "error" for p in self.problems)
@@ -329,6 +371,9 @@ class _Checker:
     def run(self, participants: int | None) -> None:
         self.counts()
         self.expected()
+        self.texts()
+        self.contrast()
+        self.structured_counts()
         if not self.stimuli():
             return
         self.length()
@@ -336,6 +381,7 @@ class _Checker:
         self.flashes()
         if participants is not None:
             self.counterbalancing(participants)
+            self.report.run_sheet = run_sheet(self.loaded, participants)
 
     def counts(self) -> None:
         trials = self.schedule.trials
@@ -590,6 +636,93 @@ class _Checker:
             f"three-flash rule (WCAG 2.3.1, general flashes only; red flashes are not checked):"
             f" at most {worst} flash(es) in any second of the whole screen and stimulus area"
         )
+
+    def structured_counts(self) -> None:
+        """The counts of the facts, as data for ``check --json``."""
+        trials = self.schedule.trials
+        practice = sum(t.part == "practice" for t in trials)
+        blocks: list[dict[str, object]] = []
+        for item in self.schedule.items:
+            if item.kind == "block" and item.trials:
+                blocks.append({"block": item.trials[0].block, "trials": len(item.trials)})
+        self.report.counts = {
+            "trials": len(trials),
+            "practice": practice,
+            "main": len(trials) - practice,
+            "blocks": blocks,
+            "breaks": sum(it.kind == "break" for it in self.schedule.items),
+            "pages": sum(it.kind == "page" for it in self.schedule.items),
+            "rests": sum(it.kind == "rest" for it in self.schedule.items),
+            "stimuli": len({t.stimulus for t in trials}),
+            "table_rows": len(self.loaded.table.rows),
+            "unused_rows": len(self.loaded.table.rows) - len({t.row for t in trials}),
+        }
+
+    # -- the participant's text -----------------------------------------------------------
+    def texts(self) -> None:
+        """Every participant-facing string can be shown and drawn by the chosen font."""
+        model = self.model
+        columns = [c for c in (model.answer.prompt_column, model.rating.question_column) if c]
+        values = {
+            c: list(dict.fromkeys(row.value(c) for row in self.loaded.table.rows)) for c in columns
+        }
+        strings = participant_strings(model, self.loaded.pages, values)
+        for loc, text in strings:
+            for fault in text_faults(text):
+                self.at(loc, fault, "error", code="unshowable-text")
+        font = font_path(model, self.loaded.path)
+        font_loc = ("screen", "font")
+        try:
+            available = font_characters(font)
+        except Exception as exc:  # fontTools raises many kinds for a file that is not a font
+            reason = "does not exist" if not font.exists() else f"is not a usable font ({exc})"
+            self.at(font_loc, f"the font file {font} {reason}", "error", code="unusable-font")
+            return
+        missing: dict[tuple[str | int, ...], set[str]] = {}
+        for loc, text in strings:
+            gone = missing_characters(text, available)
+            if gone:
+                missing.setdefault(loc, set()).update(gone)
+        for loc, chars in missing.items():
+            shown = " ".join(f"{ch!r} (U+{ord(ch):04X})" for ch in sorted(chars)[:MAX_LISTED])
+            more = f" and {len(chars) - MAX_LISTED} more" if len(chars) > MAX_LISTED else ""
+            self.at(
+                loc,
+                f"the font {font.name} cannot draw {shown}{more}; they would show as boxes."
+                " Set screen.font to a font file that has them",
+                "error",
+                code="missing-glyph",
+            )
+        self.fact(f"text: {len(strings)} participant-facing strings, drawn with {font.name}")
+
+    def contrast(self) -> None:
+        """WCAG 2.2 contrast of each text colour with what it is drawn on (4.5:1 for text)."""
+        sc = self.model.screen
+        bg = sc.background
+        pairs = [
+            ("text", sc.text_colour, bg, ("screen", "text_colour")),
+            ("hints", hint_colour(sc.text_colour, bg), bg, ("screen", "text_colour")),
+            (
+                "headings",
+                heading_colour(sc.text_colour, sc.accent_colour, bg),
+                bg,
+                ("screen", "accent_colour"),
+            ),
+        ]
+        measured = []
+        for what, fg, under, loc in pairs:
+            ratio = contrast_ratio(fg, under)
+            measured.append(f"{what} {ratio:.1f}:1")
+            self.report.contrast[what] = round(ratio, 2)
+            if ratio < MIN_TEXT_CONTRAST:
+                self.at(
+                    loc,
+                    f"{what} ({fg} on {under}) have a contrast ratio of {ratio:.2f}:1, below the"
+                    f" {MIN_TEXT_CONTRAST}:1 WCAG 2.2 asks for text; choose a darker or lighter"
+                    " colour",
+                    code="low-contrast",
+                )
+        self.fact("text contrast on the background (WCAG 2.2): " + ", ".join(measured))
 
     # -- counterbalancing ------------------------------------------------------------------
     def counterbalancing(self, participants: int) -> None:

@@ -22,7 +22,7 @@ from runner.protocol.model import (
     TrialsStep,
     Where,
 )
-from runner.protocol.report import problem_at, problems_from_validation
+from runner.protocol.report import problem_at, problems_from_validation, where_miss_message
 from runner.protocol.table import TrialRow, TrialTable, read_trial_table
 from runner.protocol.yamlsafe import YamlDoc, read_yaml
 
@@ -190,7 +190,9 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
             if all(col in columns for col in spec.where) and not select_rows(table, spec.where):
                 at(
                     ("sequence", i, kind, "where"),
-                    f"no row of the trial table matches {dict(spec.where)!r}",
+                    where_miss_message(
+                        spec.where, {c: [r.value(c) for r in table.rows] for c in spec.where}, _same
+                    ),
                     code="no-matching-rows",
                 )
             for col in getattr(spec, "max_run", {}):

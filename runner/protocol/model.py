@@ -7,7 +7,9 @@ Field names are the protocol's own vocabulary; docs/protocol.md documents each o
 from __future__ import annotations
 
 import re
-from typing import Annotated, Literal
+import string
+from collections.abc import Callable
+from typing import Annotated, Any, Literal
 
 from pydantic import (
     AfterValidator,
@@ -74,6 +76,12 @@ class Screen(Strict):
     )
     distance_cm: float | None = Field(None, gt=0, le=1000, description="Viewing distance in cm.")
     font_px: int = Field(34, ge=10, le=200, description="Height of body text in pixels.")
+    font: str | None = Field(
+        None,
+        min_length=1,
+        description="A TrueType or OpenType font file for every text the participant sees,"
+        " relative to the protocol; none for the bundled DejaVu Sans.",
+    )
 
 
 class StimulusSize(Strict):
@@ -194,7 +202,11 @@ class Timing(Strict):
 
     fixation_ms: tuple[
         Annotated[float, Field(ge=0, le=60000)], Annotated[float, Field(ge=0, le=60000)]
-    ] = Field((700, 1300), description="Fixation duration drawn uniformly from [low, high] ms.")
+    ] = Field(
+        (700, 1300),
+        description="a list [low, high] in ms, such as [700, 1300]: each fixation lasts a"
+        " duration drawn uniformly from it",
+    )
     stimulus_limit_s: float | None = Field(
         40, gt=0, le=3600, description="Longest viewing time; none for no limit."
     )
@@ -402,6 +414,111 @@ class Triggers(Strict):
     )
 
 
+#: Every participant-facing built-in text: key -> (English default, placeholders it may use).
+#: The one place that defines the keys; docs/protocol.md lists them.
+TEXT_DEFAULTS: dict[str, tuple[str, tuple[str, ...]]] = {
+    "key_space": ("the space bar", ()),
+    "key_other": ("the {key} key", ("key",)),
+    "page_hint": ("Press {key} to continue.", ("key",)),
+    "last_page_hint": ("Press {key} to finish.", ("key",)),
+    "resume": ("The session continues where it stopped.", ()),
+    "answer_hint": ("Type the number, then press Enter.", ()),
+    "unsure_hint": ("{key} = unsure", ("key",)),
+    "rating_hint_keys": (
+        "Press a number key from 1 to {points}, or choose with the arrow keys and press Enter.",
+        ("points",),
+    ),
+    "rating_hint_keys_ten": (
+        "Press 1 to 9 (0 for 10), or choose with the arrow keys and press Enter.",
+        (),
+    ),
+    "rating_hint_mouse": ("Click a box.", ()),
+    "rating_hint_mouse_keys": (
+        "Click a box, press a number key from 1 to {points}, or choose with the arrow keys and"
+        " press Enter.",
+        ("points",),
+    ),
+    "rating_hint_mouse_keys_ten": (
+        "Click a box, press 1 to 9 (0 for 10), or choose with the arrow keys and press Enter.",
+        (),
+    ),
+    "feedback_correct": ("Correct.", ()),
+    "feedback_answer": ("The answer was {expected}.", ("expected",)),
+    "feedback_thanks": ("Thank you.", ()),
+    "break_countdown": ("You can go on in {seconds} s.", ("seconds",)),
+    "break_ready": ("Press {key} when you are ready to go on.", ("key",)),
+    "pause": ("The session is paused. Please wait for the experimenter.", ()),
+    "confirm": ("Experimenter: end this session now?", ()),
+    "confirm_hint": ("Press Y to end the session, or any other key to go on.", ()),
+}
+
+
+def _check_text(key: str) -> Callable[[str], str]:
+    placeholders = TEXT_DEFAULTS[key][1]
+
+    def check(v: str) -> str:
+        try:
+            names = [f for _, f, _, _ in string.Formatter().parse(v) if f is not None]
+        except ValueError as exc:
+            raise PydanticCustomError(
+                "text_placeholder",
+                "a brace that does not close: write {{ and }} for literal braces ({error})",
+                {"error": str(exc)},
+            ) from None
+        wrong = [n for n in names if n not in placeholders]
+        if wrong:
+            allowed = ", ".join("{" + p + "}" for p in placeholders) or "no placeholders"
+            raise PydanticCustomError(
+                "text_placeholder",
+                "unknown placeholder {wrong}; this text may use {allowed}",
+                {"wrong": ", ".join("{" + n + "}" for n in wrong), "allowed": allowed},
+            )
+        return v
+
+    return check
+
+
+def _text_field(key: str) -> Any:
+    default, placeholders = TEXT_DEFAULTS[key]
+    names = ", ".join("{" + p + "}" for p in placeholders)
+    return Field(
+        default,
+        min_length=1,
+        max_length=300,
+        description=f"Placeholders: {names}." if names else "No placeholders.",
+    )
+
+
+class Texts(Strict):
+    """Every built-in text the participant sees, for translation (English defaults in TEXT_DEFAULTS)."""
+
+    key_space: str = _text_field("key_space")
+    key_other: str = _text_field("key_other")
+    page_hint: str = _text_field("page_hint")
+    last_page_hint: str = _text_field("last_page_hint")
+    resume: str = _text_field("resume")
+    answer_hint: str = _text_field("answer_hint")
+    unsure_hint: str = _text_field("unsure_hint")
+    rating_hint_keys: str = _text_field("rating_hint_keys")
+    rating_hint_keys_ten: str = _text_field("rating_hint_keys_ten")
+    rating_hint_mouse: str = _text_field("rating_hint_mouse")
+    rating_hint_mouse_keys: str = _text_field("rating_hint_mouse_keys")
+    rating_hint_mouse_keys_ten: str = _text_field("rating_hint_mouse_keys_ten")
+    feedback_correct: str = _text_field("feedback_correct")
+    feedback_answer: str = _text_field("feedback_answer")
+    feedback_thanks: str = _text_field("feedback_thanks")
+    break_countdown: str = _text_field("break_countdown")
+    break_ready: str = _text_field("break_ready")
+    pause: str = _text_field("pause")
+    confirm: str = _text_field("confirm")
+    confirm_hint: str = _text_field("confirm_hint")
+
+    @field_validator("*")
+    @classmethod
+    def _placeholders(cls, v: str, info: ValidationInfo) -> str:
+        return _check_text(str(info.field_name))(v)
+
+
 class Protocol(Strict):
     """A whole study protocol."""
 
@@ -418,6 +535,7 @@ class Protocol(Strict):
     breaks: Breaks | None = None
     checks: Checks = Field(default_factory=Checks)
     triggers: Triggers | None = None
+    texts: Texts = Field(default_factory=Texts)
 
     @field_validator("study")
     @classmethod

@@ -679,3 +679,43 @@ __all__ = [
     "problem_at",
     "problems_from_validation",
 ]
+
+
+# --------------------------------------------------------------------------------------------
+# A 'where' selection that matches nothing.
+
+#: At most this many of a column's values are listed in a message.
+MAX_VALUES_LISTED = 12
+
+
+def where_miss_message(
+    where: Mapping[str, object],
+    column_values: Mapping[str, Sequence[str]],
+    matches: Callable[[str, object], bool],
+) -> str:
+    """Why a ``where`` selection matches no row, naming the values each column does have.
+
+    ``column_values`` are the values found in each column of the trial table (in table order);
+    ``matches(have, want)`` is the comparison the selection uses.
+    """
+    parts: list[str] = []
+    for col, want in where.items():
+        wanted = want if isinstance(want, list) else [want]
+        have = list(dict.fromkeys(column_values.get(col, [])))
+        missing = [w for w in wanted if not any(matches(h, w) for h in have)]
+        if not missing:
+            continue
+        shown = ", ".join(repr(h) for h in have[:MAX_VALUES_LISTED])
+        more = f" and {len(have) - MAX_VALUES_LISTED} more" if len(have) > MAX_VALUES_LISTED else ""
+        near = _suggest(str(missing[0]), [str(h) for h in have])
+        hint = f" ({near[2:]})" if near else ""
+        parts.append(
+            f"column {col!r} has no value {', '.join(repr(m) for m in missing)}{hint}; its values"
+            f" are {shown}{more}"
+        )
+    if not parts:
+        return (
+            f"no row of the trial table has all of {dict(where)!r} at once; each value exists,"
+            " but not together in one row"
+        )
+    return "no row of the trial table matches: " + "; ".join(parts)

@@ -185,7 +185,14 @@ def read_yaml(path: Path, *, max_bytes: int = MAX_YAML_BYTES) -> YamlDoc:
     path = Path(path)
     name = str(path)
     try:
-        size = path.stat().st_size
+        info = path.stat()
+        kind = _special_kind(info.st_mode)
+        if kind:
+            inside = " inside it" if kind == "a folder" else ""
+            raise InputFileError(
+                f"{name!r} is {kind}, not a protocol file; name the .yaml file{inside}."
+            )
+        size = info.st_size
         if size > max_bytes:
             raise ProtocolError([_too_big(name, size, max_bytes)])
         with path.open("rb") as handle:
@@ -205,6 +212,23 @@ def read_yaml(path: Path, *, max_bytes: int = MAX_YAML_BYTES) -> YamlDoc:
     if len(raw) > max_bytes:
         raise ProtocolError([_too_big(name, len(raw), max_bytes)])
     return read_yaml_text(_decode(raw, name), filename=name, max_bytes=max_bytes)
+
+
+def _special_kind(mode: int) -> str:
+    """What a path that is not a regular file is ('a folder', 'a named pipe (FIFO)', ...)."""
+    import stat
+
+    if stat.S_ISREG(mode):
+        return ""
+    if stat.S_ISDIR(mode):
+        return "a folder"
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a regular file"
 
 
 def read_yaml_text(
@@ -623,6 +647,19 @@ def _syntax_problem(exc: yaml.MarkedYAMLError, text: str, filename: str) -> Prob
         )
     problem = exc.problem or "the text cannot be read"
     ctx = exc.context_mark
+    opened = _OPENERS.get(exc.context or "")
+    if ctx is not None and mark is not None and opened is not None:
+        # An unclosed bracket or quote: the parser gives up where it first notices (often lines
+        # later); the mistake is where the bracket or quote opened, so point there.
+        what, closer = opened
+        return _problem_at_mark(
+            filename,
+            ctx,
+            f"YAML syntax error: the {what} opened here is not closed (at line {mark.line + 1},"
+            f" column {mark.column + 1} the parser found: {problem}); close it with {closer}"
+            " before that point.",
+            code="yaml-syntax",
+        )
     where = ""
     if ctx is not None and ctx is not mark:
         where = f" (which starts at line {ctx.line + 1}, column {ctx.column + 1})"
@@ -636,6 +673,13 @@ def _syntax_problem(exc: yaml.MarkedYAMLError, text: str, filename: str) -> Prob
     message += f"; {hint}" if hint else "; check the quotes, brackets and indentation here."
     return _problem_at_mark(filename, mark, message, code="yaml-syntax")
 
+
+# PyYAML's context for a bracket or quote that is not closed: what was opened, what closes it.
+_OPENERS = {
+    "while parsing a flow sequence": ("list bracket '['", "']'"),
+    "while parsing a flow mapping": ("brace '{'", "'}'"),
+    "while scanning a quoted scalar": ("quote", "the same quote character"),
+}
 
 # Plainer advice for the errors people make most; the keys are PyYAML's own problem texts.
 _SYNTAX_HINTS = {

@@ -101,14 +101,17 @@ class ReplayPlan:
 
     @property
     def model_holder(self) -> _ModelOnly:
-        return _ModelOnly(self.model)
+        # A font named by the protocol is found next to the protocol the session ran.
+        where = self.header.get("protocol_file")
+        return _ModelOnly(self.model, Path(where) if where else self.folder / "protocol.yaml")
 
 
 @dataclass(frozen=True)
 class _ModelOnly:
-    """What :func:`runner.present.display.display_for` reads from a loaded protocol: its model."""
+    """What :func:`runner.present.display.display_for` reads from a loaded protocol."""
 
     model: Protocol
+    path: Path
 
 
 @dataclass

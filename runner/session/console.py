@@ -7,6 +7,10 @@ Two forms share one interface (``info``, ``warn`` and the engine's observer hook
   block, trial n of N, elapsed and estimated remaining time, running accuracy and unsure rate,
   the last response time, whether a recorder is connected to the marker stream, late flips, and
   whether the session is paused. Warnings are printed above the panel as they happen.
+
+Given the participant's schedule (:meth:`Console.plan`), both forms also show what the
+participant is doing as a state (a trial, an instruction page, a rest, a break, the experimenter's
+pause), the block order with the current block, and when the next break comes.
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ from rich.live import Live
 from rich.table import Table
 
 if TYPE_CHECKING:
-    from runner.protocol.schedule import ScheduledTrial
+    from runner.protocol.schedule import Schedule, ScheduledTrial
     from runner.session.engine import Engine
     from runner.session.views import View
 
@@ -32,6 +36,36 @@ SAFETY_REMINDER = (
     "pause it."
 )
 REFRESH_PER_S = 4
+#: What the participant's screen kind (as the engine journals it) means for the experimenter.
+SCREEN_STATES = {
+    "page": "instruction page (waiting for the participant's key)",
+    "rest": "REST: the participant looks at the screen",
+    "rest-end": "rest over",
+    "break": "BREAK: the participant rests",
+    "break-tick": "BREAK: the participant rests",
+    "break-ready": "BREAK: may end now (waiting for the participant's key)",
+    "pause": "PAUSED by the experimenter",
+    "confirm": "ASKING: end the session? (Y ends it)",
+    "end": "session over",
+}
+
+
+def break_points(schedule: Schedule) -> list[int]:
+    """Trial numbers after which a planned break comes (from the schedule's break items)."""
+    points: list[int] = []
+    last = 0
+    for item in schedule.items:
+        if item.kind == "block" and item.trials:
+            last = item.trials[-1].trial
+        elif item.kind == "break":
+            points.append(last)
+    return points
+
+
+def block_order_text(schedule: Schedule, current: str = "") -> str:
+    """The blocks in the participant's order, the current one in brackets."""
+    names = [it.trials[0].block for it in schedule.items if it.kind == "block" and it.trials]
+    return " → ".join(f"[{n}]" if n == current and current else n for n in names) or "-"
 
 
 def format_duration(seconds: float | None) -> str:
@@ -71,6 +105,9 @@ class Console:
         self._last_rt: float | None = None
         self._t0 = time.monotonic()
         self._note = ""
+        self._schedule: Schedule | None = None
+        self._screen = ""
+        self._block = ""
 
     # -- plain output ----------------------------------------------------------------------------
     def info(self, text: str) -> None:
@@ -80,6 +117,27 @@ class Console:
     def warn(self, text: str) -> None:
         self.out.print("[bold yellow]warning:[/] ", end="")
         self.out.print(text, markup=False, soft_wrap=True)
+
+    def plan(self, schedule: Schedule) -> None:
+        """The participant's schedule: block order and break points for the panel and lines."""
+        self._schedule = schedule
+        if not self.quiet and not self.live:
+            self.info(f"Block order: {block_order_text(schedule)}")
+            points = break_points(schedule)
+            if points:
+                self.info("Breaks after trials " + ", ".join(str(p) for p in points) + ".")
+
+    def plan_rows(self, done: int) -> dict[str, str]:
+        """The block order (current block marked) and the next break, after ``done`` trials."""
+        if self._schedule is None:
+            return {}
+        upcoming = [p for p in break_points(self._schedule) if p >= max(done, 1)]
+        if upcoming:
+            n = upcoming[0] - done
+            after = f"after trial {upcoming[0]}" + (f" (in {n} trials)" if n > 0 else " (now)")
+        else:
+            after = "none planned"
+        return {"block order": block_order_text(self._schedule, self._block), "next break": after}
 
     # -- the live panel ----------------------------------------------------------------------------
     def start(self) -> None:
@@ -105,7 +163,7 @@ class Console:
         """The panel's rows as plain text (also used by tests)."""
         engine = engine or self._engine
         if engine is None:
-            return {"state": "starting"}
+            return {"state": SCREEN_STATES.get(self._screen, "starting"), **self.plan_rows(0)}
         st = engine.state
         done = len(st.done_trials) + len(engine.skip)
         total = engine.total_trials
@@ -113,7 +171,7 @@ class Console:
         elapsed = time.monotonic() - self._t0
         left = remaining_estimate(st.trial_seconds, total - done)
         recorder = {True: "connected", False: "NOT CONNECTED", None: "not checked yet"}
-        state = "running"
+        state = SCREEN_STATES.get(self._screen, "trial running")
         if st.storage_problem:
             state = "PAUSED: cannot save data - " + st.storage_problem
         elif st.paused:
@@ -132,6 +190,7 @@ class Console:
             "last response": "-" if self._last_rt is None else f"{self._last_rt / 1000:.2f} s",
             "recorder": recorder[st.recorder_connected],
             "late flips": str(engine.presenter.late_flips),
+            **self.plan_rows(done),
             "note": self._note or "-",
         }
 
@@ -146,8 +205,13 @@ class Console:
 
     # -- engine observer hooks ---------------------------------------------------------------------
     def on_view(self, kind: str, t: float, trial: ScheduledTrial | None, view: View) -> None:
+        before, self._screen = self._screen, kind
+        if trial is not None:
+            self._block = trial.block
         if self._live is not None:
             self._refresh()
+        elif not self.quiet and kind in ("rest", "break", "break-ready") and before != kind:
+            self.info(SCREEN_STATES[kind])
 
     def on_pause(self, paused: bool, engine: Engine) -> None:
         self._engine = engine

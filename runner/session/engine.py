@@ -19,6 +19,7 @@ from typing import Any
 
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Item, Schedule, ScheduledTrial
+from runner.protocol.texts import break_ready_hint, page_hint
 from runner.session.events import MARKED_EVENTS, encode_marker
 from runner.session.interrupts import (
     QUIT_KEY,
@@ -54,7 +55,6 @@ PAYLOAD_FIELDS = (
 )
 PREFETCH_AHEAD = 2  # stimuli decoded ahead, so a slow decode never reaches an onset
 DEFAULT_PAUSE_KEY = "p"
-RESUME_TEXT = "The session continues where it stopped."
 
 
 @dataclass
@@ -364,7 +364,10 @@ class Engine:
 
     def _resume_page(self) -> None:
         """After a crash the participant is told the session goes on, and starts it with a key."""
-        t = self.show(PageView(RESUME_TEXT), "page", mark="page_onset")
+        texts = self.model.texts
+        t = self.show(
+            PageView(texts.resume, hint=page_hint(texts, "space")), "page", mark="page_onset"
+        )
         self.emit("page_onset", t, item=None, step=None, resume=True)
         hit = self.wait(frozenset({"space"}))
         self.emit("page_end", hit.t, item=None, key=hit.key)
@@ -383,9 +386,10 @@ class Engine:
         return bool(later) and later[0] in self.skip
 
     def _page(self, item: Item) -> None:
-        key_label = "the space bar" if item.key == "space" else f"the {item.key.upper()} key"
+        last = item is self.schedule.items[-1]
+        hint = page_hint(self.model.texts, item.key, last=last)
         t = self.show(
-            PageView(item.text, hint=f"Press {key_label} to continue.", key=item.key),
+            PageView(item.text, hint=hint, key=item.key),
             "page",
             at=self.next_at,
             mark="page_onset",
@@ -417,11 +421,7 @@ class Engine:
 
     def _break(self, item: Item) -> None:
         min_s = item.seconds / self.speed
-        hint_ready = (
-            "Press the space bar when you are ready to go on."
-            if item.key == "space"
-            else f"Press {item.key.upper()} when you are ready to go on."
-        )
+        hint_ready = break_ready_hint(self.model.texts, item.key)
         t0 = self.show(
             BreakView(item.text, math.ceil(min_s)), "break", at=self.next_at, mark="break_start"
         )

@@ -20,7 +20,6 @@ CONFIRM_KEY = "y"
 QUIT_KEY = "quit"  # what the presenter reports for a window close or a stop signal
 WATCH_S = 0.5  # untimed waits (pages, breaks, pauses) look at the recorder this often
 STORAGE_RETRY_S = 1.0  # while the journal cannot be written, try again this often
-STORAGE_PAUSE_TEXT = "The session is paused. Please wait for the experimenter."
 
 
 class AbortRequested(Exception):
@@ -42,7 +41,13 @@ class Interruptions:
         assert e.pause_key is not None
         previous, photodiode = e.current_view, e.current_photodiode
         number = trial.trial if trial is not None else None
-        t0 = e.show(PauseView(), "pause", trial, mark="pause_start", reason="experimenter")
+        t0 = e.show(
+            PauseView(e.model.texts.pause),
+            "pause",
+            trial,
+            mark="pause_start",
+            reason="experimenter",
+        )
         e.emit("pause_start", t0, trial=number, reason="experimenter")
         e.journal.sync()
         e.state.paused = True
@@ -99,7 +104,7 @@ class Interruptions:
         """
         e = self.engine
         if self._storage_pause is None:
-            t = e.presenter.show(PauseView(STORAGE_PAUSE_TEXT))
+            t = e.presenter.show(PauseView(e.model.texts.pause))
             payload = e.marker_payload("pause_start", None, {"reason": "storage"})
             delay, code = e.push_marker("pause_start", payload, t)
             self._storage_pause = (t, payload, delay, code)
@@ -110,14 +115,14 @@ class Interruptions:
                 obs.on_storage(str(err), e)
         hit = e.presenter.wait_key(frozenset(), e.clock() + STORAGE_RETRY_S)
         if hit is not None and hit.key == "escape":
-            e.presenter.show(ConfirmView())
+            e.presenter.show(ConfirmView(e.model.texts.confirm, e.model.texts.confirm_hint))
             answer = e.presenter.wait_key(None, None)
             if answer is not None and answer.key == CONFIRM_KEY:
                 # Give up: from here a failed write raises, so the session ends with what is
                 # on disk.
                 e.journal.on_error = None
                 raise AbortRequested()
-            e.presenter.show(PauseView(STORAGE_PAUSE_TEXT))
+            e.presenter.show(PauseView(e.model.texts.pause))
 
     def storage_recovered(self) -> None:
         """The journal takes writes again: journal the storage pause and bring the screen back."""
@@ -152,7 +157,7 @@ class Interruptions:
         """Escape was pressed: ask the experimenter; raise AbortRequested on Y, else go back."""
         e = self.engine
         previous, photodiode = e.current_view, e.current_photodiode
-        t = e.show(ConfirmView(), "confirm", trial)
+        t = e.show(ConfirmView(e.model.texts.confirm, e.model.texts.confirm_hint), "confirm", trial)
         e.journal.append("abort_requested", t=t, trial=trial.trial if trial else None)
         e.journal.sync()
         hit = e.presenter.wait_key(None, None)

@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING, Any
 
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import ScheduledTrial
+from runner.protocol.texts import answer_hint, rating_hint
 from runner.session.views import (
     RATING_SHOW_CHOICE_S,
     AnswerView,
@@ -107,7 +108,7 @@ class TrialScreens:
         # count as a response to this stimulus.
         e.presenter.drain()
 
-        unsure_hint = f"{ans.unsure_key.upper()} = unsure"
+        typing_hint = answer_hint(model.texts, ans.unsure_key)
         if ans.mode == "after":
             stim_view = StimulusView(path)
         else:
@@ -115,7 +116,7 @@ class TrialScreens:
                 path,
                 typed="",
                 prompt=self._prompt(trial),
-                hint=f"Type the number, then press Enter.   {unsure_hint}",
+                hint=typing_hint,
             )
         t_on = e.show(
             stim_view,
@@ -167,7 +168,7 @@ class TrialScreens:
                 view = AnswerView(
                     self._prompt(trial),
                     "",
-                    hint=f"Type the number, then press Enter.   {unsure_hint}",
+                    hint=typing_hint,
                 )
                 t_off = e.show(view, "answer", trial, mark="stimulus_offset")
                 e.emit(
@@ -283,13 +284,7 @@ class TrialScreens:
         r = e.model.rating
         keys = r.input != "mouse"
         mouse = r.input != "keys"
-        hint = (
-            f"Press a number key from 1 to {r.points}."
-            if r.points <= 9
-            else "Use the arrow keys and press Enter, or press 1 to 9 (0 for 10)."
-        )
-        if mouse:
-            hint = "Click a box." if not keys else "Click a box, or p" + hint[1:]
+        hint = rating_hint(e.model.texts, r.points, r.input)
         base = RatingView(self._question(trial), r.points, r.low, r.high, r.mid, None, hint)
         t_r = e.show(base, "rating", trial, mark="rating_onset")
         out.rating_onset_t = t_r
@@ -360,11 +355,11 @@ class TrialScreens:
         outcome = outcome_of(trial.expected, out.answer, out.unsure)
         if trial.feedback:
             if outcome == "correct":
-                text, good = "Correct.", True
+                text, good = e.model.texts.feedback_correct, True
             elif outcome in ("wrong", "unanswered", "unsure") and trial.expected is not None:
-                text, good = f"The answer was {trial.expected}.", False
+                text, good = e.model.texts.feedback_answer.format(expected=trial.expected), False
             else:
-                text, good = "Thank you.", True
+                text, good = e.model.texts.feedback_thanks, True
             fb_frames = e.frames(timing.feedback_ms)
             t_fb = e.show(
                 FeedbackView(text, good),

@@ -313,7 +313,7 @@ def test_json_output_lists_warnings_with_positions(tmp_path: Path, capsys) -> No
     """`check --json` prints warnings as objects and exits 0 when there is no error."""
     path = write_protocol(tmp_path, image_size=(100, 50))
     code = main(["check", str(path), "--json"])
-    found = json.loads(capsys.readouterr().out)
+    found = json.loads(capsys.readouterr().out)["problems"]
     assert code == 0
     assert {f["severity"] for f in found} == {"warning"}
     keys = {"severity", "file", "line", "column", "path", "message", "code"}

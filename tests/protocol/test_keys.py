@@ -45,7 +45,7 @@ def test_unusable_or_clashing_keys_are_refused_and_nothing_is_created(
     assert main(["check", str(file), "--json"]) == 1
     import json
 
-    found = json.loads(capsys.readouterr().out)
+    found = json.loads(capsys.readouterr().out)["problems"]
     assert any(p["path"] == path and p["code"] == code for p in found), found
     out = tmp_path / "sessions"
     status = main(["pilot", str(file), "--participant", "P01", "--out", str(out), "--speed", "50"])

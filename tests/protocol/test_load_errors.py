@@ -344,7 +344,7 @@ CASES = [
         "bad-choice",
     ),
     ("top-level list", "- study: x\n", TABLE, P, 1, "not-a-mapping"),
-    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 8, "yaml-syntax"),
+    ("yaml syntax", edit({7: "rating: {points: 9"}), TABLE, P, 7, "yaml-syntax"),
     ("not UTF-8", BASE.encode().replace(b"Welcome", b"Welc\xffome"), TABLE, P, 10, "not-utf8"),
     (
         "NUL character",
@@ -515,7 +515,7 @@ def test_malformed_input_is_one_coded_error_at_its_line(
     out, err = capsys.readouterr()
     assert code == 1, out + err
     assert "Traceback" not in err and "internal error" not in err
-    found = json.loads(out)
+    found = json.loads(out)["problems"]
     hits = [
         f
         for f in found
@@ -559,7 +559,7 @@ def test_json_findings_carry_position_and_path(
 
     path = _setup(tmp_path, edit({8: "timing: {gap_ms: -5}"}), TABLE)
     code = main(["check", str(path), "--json"])
-    found = json.loads(capsys.readouterr().out)
+    found = json.loads(capsys.readouterr().out)["problems"]
     assert code == 1
     assert found == [
         {

@@ -35,8 +35,11 @@ MALFORMED = [
     ("base: &b {gap_ms: 1}\n", 1, 7, "yaml-anchor"),
     ("timing:\n  <<: {gap_ms: 1}\n", 2, 3, "yaml-merge-key"),
     ("study: depot: north\n", 1, 13, "yaml-syntax"),
-    ("study: a\nprompt: 'How many stops?\n", 3, 1, "yaml-syntax"),
-    ("screen: [1920, 1080\n", 2, 1, "yaml-syntax"),
+    # An unclosed quote or bracket is placed where it opened, not where the parser gave up.
+    ("study: a\nprompt: 'How many stops?\n", 2, 9, "yaml-syntax"),
+    ("screen: [1920, 1080\n", 1, 9, "yaml-syntax"),
+    ("screen:\n  resolution: [800, 600\n  refresh_hz: 60\n", 2, 15, "yaml-syntax"),
+    ("screen: {resolution: [800, 600],\n  refresh_hz: 60\nmarkers: 1\n", 1, 9, "yaml-syntax"),
     ("study: a\n---\nstudy: b\n", 2, 1, "yaml-syntax"),
     ('prompt: "stops \\q"\n', 1, 17, "yaml-syntax"),
     ("? [a, b]\n: 1\n", 1, 3, "bad-key"),
