@@ -127,6 +127,11 @@ class Presenter(Protocol):
         """Drop pending input (keys in ``hold`` go to ``held``; Escape is kept)."""
         ...
 
+    def early_keys(self, onset: float) -> list[KeyHit]:
+        """Take the presses read before ``onset``, or whose blind window reaches back to it,
+        out of the input queue (Escape and quit stay queued; keys in ``hold`` go to ``held``)."""
+        ...
+
     def close(self) -> None: ...
 
 

@@ -103,9 +103,6 @@ class TrialScreens:
             requested_ms=trial.fixation_ms,
             frames=fix_frames,
         )
-        # Keys pressed before the fixation (e.g. late presses from the previous trial) must not
-        # count as a response to this stimulus.
-        e.presenter.drain()
 
         unsure_hint = f"{ans.unsure_key.upper()} = unsure"
         if ans.mode == "after":
@@ -134,6 +131,9 @@ class TrialScreens:
             fixation_actual_ms=round((t_on - t_fix) * 1000, 3),
             load_wait_ms=round(e.presenter.last_load_wait_ms, 3),
         )
+        # Keys pressed before the onset (during the fixation or earlier), or that may have been
+        # (they came in while the onset's flip ran), are never the response: journal them.
+        e.anticipations(trial, t_on)
 
         limit = e.limit(model.timing.stimulus_limit_s)
         deadline = None if limit is None else t_on + limit
