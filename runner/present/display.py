@@ -100,24 +100,27 @@ def desktop_size() -> tuple[int, int] | None:
 # -- losing the X server ----------------------------------------------------------------------
 _X_HOOK: Any = None  # the ctypes callback must stay alive as long as Xlib may call it
 _LOST_ACTIONS: list[Callable[[], None]] = []
-LOST_MESSAGE = b"trialdeck: the connection to the display was lost; the session was closed.\n"
+_AFTER_LOST: list[Callable[[], None]] = []  # what ends the process (set by the command line)
+
+
+def after_display_lost(end: Callable[[], None] | None) -> None:
+    """Set what runs after the session was closed on a lost display: the CLI's message and
+    exit. Without it, Xlib ends the process itself when the hook returns."""
+    _AFTER_LOST.clear()
+    if end is not None:
+        _AFTER_LOST.append(end)
 
 
 def _display_lost(_xdisplay: object) -> int:
-    """Xlib's fatal IO error hook: close the session, then end the process (never returns)."""
-    try:
-        for action in list(_LOST_ACTIONS):
-            try:
-                action()
-            except BaseException:  # noqa: BLE001 - the process ends either way
-                pass
+    """Xlib's fatal IO error hook: close the open sessions, then hand over to ``after``."""
+    for action in list(_LOST_ACTIONS):
         try:
-            os.write(2, LOST_MESSAGE)
-        except OSError:
+            action()
+        except Exception:  # noqa: BLE001 - the process ends either way; close what can be
             pass
-    finally:
-        os._exit(1)
-    return 0  # pragma: no cover - os._exit does not return
+    for end in list(_AFTER_LOST):
+        end()
+    return 0
 
 
 def install_display_lost_hook() -> bool:

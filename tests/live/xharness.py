@@ -33,9 +33,17 @@ def xvfb_missing() -> str | None:
     return None
 
 
+@dataclass
+class XServer:
+    """A running private Xvfb: its DISPLAY string and its process (to kill it mid-test)."""
+
+    display: str
+    proc: subprocess.Popen
+
+
 @contextmanager
-def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
-    """Start a private Xvfb and yield its DISPLAY string (``:N``)."""
+def xserver(width: int = 1920, height: int = 1080) -> Iterator[XServer]:
+    """Start a private Xvfb with one screen of ``width`` x ``height`` pixels."""
     read, write = os.pipe()
     proc = subprocess.Popen(
         [
@@ -61,7 +69,7 @@ def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
                 if not chunk:
                     raise RuntimeError("Xvfb did not start")
                 number += chunk
-        yield f":{int(number)}"
+        yield XServer(f":{int(number)}", proc)
     finally:
         proc.terminate()
         try:
@@ -69,6 +77,13 @@ def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait()
+
+
+@contextmanager
+def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
+    """Start a private Xvfb and yield its DISPLAY string (``:N``)."""
+    with xserver(width, height) as server:
+        yield server.display
 
 
 class Injector:

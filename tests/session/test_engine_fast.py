@@ -67,6 +67,9 @@ class FakePresenter:
     ready: list[str] = field(default_factory=list)
     _keys: list[tuple[float, int, str]] = field(default_factory=list)
     _n: int = 0
+    on_lost: Callable[[], None] | None = None
+    screen_size: tuple[int, int] = (800, 600)
+    desktop_size: tuple[int, int] | None = None
 
     @property
     def paced(self) -> bool:
