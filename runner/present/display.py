@@ -235,8 +235,15 @@ class Display:
             verdict = self.refresh
             self._open(vsync=False)
             self.vsync_requested = False
-            again = self.measure(measure_flips, vsync_check=False)
-            self.refresh = again.with_vsync(verdict.vsync, verdict.phase_spread)
+            # Flips are paced from here on. The measurement of the imitated vsync is kept: it
+            # is what the journal and the refusal report.
+            self.surface.fill(style.background)
+            self.painter.forget()
+            pygame.display.flip()
+            self.blocking = False
+            self.interval = self.nominal_interval
+            self._pacer = FramePacer(self.interval)
+            self.refresh = dataclasses.replace(verdict, blocking=False)
 
     def _open(self, *, vsync: bool) -> None:
         """Create the window at ``screen_size`` (never scaled), with or without vsync."""

@@ -151,6 +151,7 @@ class TrialScreens:
                     trial=trial.trial,
                     key=hit.key,
                     rt_ms=round((hit.t - t_on) * 1000, 3),
+                    blind_ms=round(hit.blind_ms, 3),
                 )
                 t_dec = hit.t
             if out.unsure:
@@ -254,17 +255,32 @@ class TrialScreens:
                     trial=trial.trial,
                     key=hit.key,
                     rt_ms=round((hit.t - t0) * 1000, 3),
+                    blind_ms=round(hit.blind_ms, 3),
                 )
             if hit.key == ans.unsure_key:
                 out.unsure, out.confirm_t = True, hit.t
-                e.emit("answer", hit.t, trial=trial.trial, answer=None, unsure=True)
+                e.emit(
+                    "answer",
+                    hit.t,
+                    trial=trial.trial,
+                    answer=None,
+                    unsure=True,
+                    blind_ms=round(hit.blind_ms, 3),
+                )
                 return
             if hit.key == "return":
                 if typed:
                     value = int(typed)
                     if value <= ans.max:
                         out.answer, out.confirm_t = value, hit.t
-                        e.emit("answer", hit.t, trial=trial.trial, answer=value, unsure=False)
+                        e.emit(
+                            "answer",
+                            hit.t,
+                            trial=trial.trial,
+                            answer=value,
+                            unsure=False,
+                            blind_ms=round(hit.blind_ms, 3),
+                        )
                         return
                 continue
             if hit.key == "backspace":
@@ -275,7 +291,13 @@ class TrialScreens:
                 continue
             t = e.show(make_view(typed), kind + "-typing", trial, photodiode=photodiode)
             e.journal.append(
-                "typing", t=t, trial=trial.trial, typed=typed, key=hit.key, key_t=hit.t
+                "typing",
+                t=t,
+                trial=trial.trial,
+                typed=typed,
+                key=hit.key,
+                key_t=hit.t,
+                key_blind_ms=round(hit.blind_ms, 3),
             )
 
     def _rate(self, trial: ScheduledTrial, out: TrialOutcome) -> None:
@@ -343,6 +365,7 @@ class TrialScreens:
                 rating=choice,
                 rt_ms=round((hit.t - t_r) * 1000, 3),
                 via="mouse" if hit.key == "click" else "keys",
+                blind_ms=round(hit.blind_ms, 3),
             )
             frames = max(1, round(RATING_SHOW_CHOICE_S / e.speed / e.presenter.interval))
             t = e.show(

@@ -31,6 +31,9 @@ pytestmark = [
 
 STATION = "livetest"
 KEY_TOLERANCE_S = 0.002  # every key's journaled time within 2 ms of its injection
+# A press goes from the injector through the X server to the program: it can reach the program
+# up to this long after the injector read its clock (0.2 ms typical; more on a busy machine).
+TRANSIT_S = 0.0015
 # What the participant types in each trial; trial 4's count is one key held down for 600 ms.
 TYPED = {1: "12", 2: "9", 3: "15", 4: "7", 5: "20"}
 HELD_TRIAL = 4
@@ -95,15 +98,21 @@ def _drive(mode: str, inj: Injector, lst: MarkerListener) -> dict[str, object]:
     time.sleep(0.3)
     press("space", why="page")
     early_key = "4" if mode == "over" else "space"
+    seen = 0
     for trial in range(1, 6):
-        lst.wait_for("fixation_onset", trial=trial)
+        seen, m = lst.wait_any({"fixation_onset", "break_start"}, after=seen)
+        if m.payload["event"] == "break_start":
+            time.sleep(1.3)  # the break's minimum (1 s) must pass before its key counts
+            press("space", why="break")
+            seen, m = lst.wait_any({"fixation_onset"}, after=seen)
+        assert m.payload["trial"] == trial
         time.sleep(0.05)
         press(early_key, why=f"fixation:{trial}")
-        lst.wait_for("stimulus_onset", trial=trial)
+        seen, _ = lst.wait_any({"stimulus_onset"}, after=seen)
         time.sleep(0.3)
         if mode == "after":
             press("space", why=f"decision:{trial}")
-            lst.wait_for("answer_onset", trial=trial)
+            seen, _ = lst.wait_any({"answer_onset"}, after=seen)
             time.sleep(0.1)
         if trial == HELD_TRIAL:
             t = inj.hold(TYPED[trial], HOLD_MS)
@@ -112,18 +121,11 @@ def _drive(mode: str, inj: Injector, lst: MarkerListener) -> dict[str, object]:
         else:
             # A burst: the digits and Return 3 ms apart, while the typed digit is redrawn.
             press(*TYPED[trial], "return", gap_ms=3, why=f"typed:{trial}")
-        lst.wait_for("rating_onset", trial=trial)
+        seen, _ = lst.wait_any({"rating_onset"}, after=seen)
         time.sleep(0.1)
         press(RATING[trial], why=f"rating:{trial}")
-        n = len(lst.markers)
-        lst.wait_for("gap_onset", trial=trial, after=max(0, n - 4))
-        try:
-            lst.wait_for("break_start", timeout=1.0, after=n)
-        except TimeoutError:
-            continue
-        time.sleep(1.3)  # the break's minimum (1 s) must pass before its key counts
-        press("space", why="break")
-    lst.wait_for("page_onset", after=len(lst.markers) - 2)
+        seen, _ = lst.wait_any({"rating"}, after=seen)
+    lst.wait_any({"page_onset"}, after=seen)
     time.sleep(0.3)
     press("space", why="page")
     return {"pressed": pressed}
@@ -170,7 +172,7 @@ def test_live_run_takes_every_key_at_its_true_time(tmp_path, mode):
     pressed: list[tuple[str, float, str]] = driven["pressed"]  # type: ignore[assignment]
     antic = {r["trial"]: r for r in by("anticipation")}
     assert sorted(antic) == [1, 2, 3, 4, 5]
-    for trial, r in antic.items():
+    for r in antic.values():
         assert r["key"] == early_key and r["screen"] == "fixation"
     onsets = {r["trial"]: r["t"] for r in by("stimulus_onset")}
     for r in by("decision"):
@@ -185,30 +187,39 @@ def test_live_run_takes_every_key_at_its_true_time(tmp_path, mode):
     assert [r["key"] for r in held_typing] == [TYPED[HELD_TRIAL]]
     assert not [r for r in by("anticipation") if r["key"] == TYPED[HELD_TRIAL]]
 
-    # Every key's journaled time within 2 ms of its injection.
-    journaled: dict[str, list[float]] = {}
+    # Every key's journaled time within 2 ms of its injection, or, for a key that came in while
+    # the program could not read input (a flip or a drawing took longer), the injection inside
+    # the blind window journaled with it: the journal never claims more precision than it has.
+    journaled: dict[str, list[tuple[float, float]]] = {}
     for r in by("anticipation"):
-        journaled[f"fixation:{r['trial']}"] = [r["t"]]
+        journaled[f"fixation:{r['trial']}"] = [(r["t"], r["blind_ms"])]
     for r in by("decision"):
         if mode == "after":
-            journaled[f"decision:{r['trial']}"] = [r["t"]]
+            journaled[f"decision:{r['trial']}"] = [(r["t"], r["blind_ms"])]
     for r in by("typing"):
-        journaled.setdefault(f"typed:{r['trial']}", []).append(r["key_t"])
+        journaled.setdefault(f"typed:{r['trial']}", []).append((r["key_t"], r["key_blind_ms"]))
     for r in by("answer"):
         key = f"confirm:{r['trial']}" if r["trial"] == HELD_TRIAL else f"typed:{r['trial']}"
-        journaled.setdefault(key, []).append(r["t"])
+        journaled.setdefault(key, []).append((r["t"], r["blind_ms"]))
     for r in by("rating"):
-        journaled[f"rating:{r['trial']}"] = [r["t"]]
+        journaled[f"rating:{r['trial']}"] = [(r["t"], r["blind_ms"])]
     injected: dict[str, list[float]] = {}
     for _key, t, why in pressed:
         if why not in ("page", "break"):
             injected.setdefault(why, []).append(t)
     assert sorted(journaled) == sorted(injected)
-    late = {
-        why: [round((j - i) * 1000, 3) for j, i in zip(journaled[why], ts, strict=True)]
+    keys = [
+        (why, inj, t, blind / 1000.0)
         for why, ts in injected.items()
-    }
-    assert all(-0.5 <= d <= KEY_TOLERANCE_S * 1000 for ds in late.values() for d in ds), late
+        for inj, (t, blind) in zip(ts, journaled[why], strict=True)
+    ]
+    report = [(why, round((t - inj) * 1000, 3), round(b * 1000, 3)) for why, inj, t, b in keys]
+    for why, inj, t, blind in keys:
+        assert inj <= t, (why, report)
+        assert t - inj <= max(KEY_TOLERANCE_S, blind + TRANSIT_S), (why, report)
+    within = sum(t - inj <= KEY_TOLERANCE_S for _, inj, t, _ in keys)
+    print(f"{within} of {len(keys)} keys within 2 ms of their injection; (late ms, blind ms):")  # noqa: T201
+    print(report)
 
     # Some keys came in while the screen was being redrawn for the digit before them.
     typing_flips = [r["t"] for r in by("typing")]

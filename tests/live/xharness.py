@@ -114,11 +114,16 @@ class Injector:
         return self._ask({"hold": name, "hold_ms": hold_ms})[0]
 
     def close(self) -> None:
-        if self.proc.poll() is None:
-            try:
-                self._ask_quit()
-            finally:
-                self.proc.wait(timeout=10)
+        try:
+            if self.proc.poll() is None:
+                try:
+                    self._ask_quit()
+                finally:
+                    self.proc.wait(timeout=10)
+        finally:
+            for pipe in (self.proc.stdin, self.proc.stdout):
+                if pipe is not None:
+                    pipe.close()
 
     def _ask_quit(self) -> None:
         assert self.proc.stdin is not None
@@ -176,6 +181,22 @@ class MarkerListener:
                 if left <= 0:
                     seen = [m.payload.get("event") for m in self.markers[-8:]]
                     raise TimeoutError(f"no {event!r} marker; last seen {seen}")
+                self._cond.wait(left)
+
+    def wait_any(
+        self, events: set[str], *, after: int = 0, timeout: float = 30.0
+    ) -> tuple[int, Marker]:
+        """The first marker at index >= ``after`` whose event is one of ``events``, and its index."""
+        deadline = time.monotonic() + timeout
+        with self._cond:
+            while True:
+                for i in range(after, len(self.markers)):
+                    if self.markers[i].payload.get("event") in events:
+                        return i, self.markers[i]
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    seen = [m.payload.get("event") for m in self.markers[-8:]]
+                    raise TimeoutError(f"none of {sorted(events)}; last seen {seen}")
                 self._cond.wait(left)
 
     def stop(self) -> None:
