@@ -31,9 +31,9 @@ pytestmark = [
 
 STATION = "livetest"
 KEY_TOLERANCE_S = 0.002  # every key's journaled time within 2 ms of its injection
-# A press goes from the injector through the X server to the program: it can reach the program
-# up to this long after the injector read its clock (0.2 ms typical; more on a busy machine).
-TRANSIT_S = 0.0015
+# The program's clock reading for a press comes after the poll that found it; the poll before
+# began a little before its own reading, and the witness stamps arrival after parsing the event.
+READ_SLACK_S = 0.00025
 # What the participant types in each trial; trial 4's count is one key held down for 600 ms.
 TYPED = {1: "12", 2: "9", 3: "15", 4: "7", 5: "20"}
 HELD_TRIAL = 4
@@ -152,6 +152,7 @@ def test_live_run_takes_every_key_at_its_true_time(tmp_path, mode):
         try:
             lst.start(timeout=60)
             driven = _drive(mode, inj, lst)
+            inj_delivered = dict(inj.delivered)
             output, _ = proc.communicate(timeout=90)
         finally:
             if proc.poll() is None:
@@ -208,18 +209,27 @@ def test_live_run_takes_every_key_at_its_true_time(tmp_path, mode):
         if why not in ("page", "break"):
             injected.setdefault(why, []).append(t)
     assert sorted(journaled) == sorted(injected)
-    keys = [
-        (why, inj, t, blind / 1000.0)
-        for why, ts in injected.items()
-        for inj, (t, blind) in zip(ts, journaled[why], strict=True)
+    # A press reaches the program when the X server delivers it, which on a busy machine can be
+    # milliseconds after the injector sent it; a second X client in the injector process stamps
+    # that delivery. Each key is measured from its delivery (from its injection if unseen).
+    keys = []
+    for why, ts in injected.items():
+        for inj, (t, blind) in zip(ts, journaled[why], strict=True):
+            seen = inj_delivered.get(inj)
+            keys.append((why, inj, max(inj, seen) if seen is not None else inj, t, blind / 1000.0))
+    report = [
+        (why, round((t - inj) * 1000, 3), round((t - dlv) * 1000, 3), round(b * 1000, 3))
+        for why, inj, dlv, t, b in keys
     ]
-    report = [(why, round((t - inj) * 1000, 3), round(b * 1000, 3)) for why, inj, t, b in keys]
-    for why, inj, t, blind in keys:
+    for why, inj, delivered, t, blind in keys:
         assert inj <= t, (why, report)
-        assert t - inj <= max(KEY_TOLERANCE_S, blind + TRANSIT_S), (why, report)
-    within = sum(t - inj <= KEY_TOLERANCE_S for _, inj, t, _ in keys)
-    print(f"{within} of {len(keys)} keys within 2 ms of their injection; (late ms, blind ms):")  # noqa: T201
-    print(report)
+        assert t - delivered <= max(KEY_TOLERANCE_S, blind + READ_SLACK_S), (why, report)
+    within = sum(t - dlv <= KEY_TOLERANCE_S for _, _, dlv, t, _ in keys)
+    print(  # noqa: T201
+        f"{within} of {len(keys)} keys within 2 ms of their delivery;"
+        " (ms after injection, ms after delivery, blind ms):"
+    )
+    print(report)  # noqa: T201
 
     # Some keys came in while the screen was being redrawn for the digit before them.
     typing_flips = [r["t"] for r in by("typing")]

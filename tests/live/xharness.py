@@ -96,6 +96,8 @@ class Injector:
             stdout=subprocess.PIPE,
             text=True,
         )
+        # Injection time -> when a second X client saw the press arrive (None: it did not).
+        self.delivered: dict[float, float | None] = {}
 
     def _ask(self, command: dict) -> list[float]:
         assert self.proc.stdin is not None and self.proc.stdout is not None
@@ -104,7 +106,10 @@ class Injector:
         line = self.proc.stdout.readline()
         if not line:
             raise RuntimeError("the key injector stopped")
-        return json.loads(line)["t"]
+        answer = json.loads(line)
+        for t, seen in zip(answer["t"], answer.get("seen", []), strict=False):
+            self.delivered[t] = seen
+        return answer["t"]
 
     def keys(self, *names: str, gap_ms: float = 0.0) -> list[float]:
         """Press and release each key; the local_clock time of each press."""
