@@ -59,16 +59,6 @@ EARLY_ISSUE = 0.6  # with blocking flips, issue the flip this many intervals bef
 KEYPAD = {f"[{d}]": d for d in "0123456789"} | {"enter": "return", "[enter]": "return"}
 
 
-def sleep_until(t: float, clock=local_clock) -> None:
-    """Sleep, then spin, until ``clock() >= t``."""
-    while True:
-        remaining = t - clock()
-        if remaining <= 0:
-            return
-        if remaining > SPIN_S:
-            time.sleep(remaining - SPIN_S)
-
-
 def spin(seconds: float, clock=local_clock) -> None:
     """Busy-wait ``seconds`` (the vsync check's random waits must not be rounded by sleep)."""
     end = clock() + seconds
