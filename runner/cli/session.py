@@ -9,7 +9,7 @@ import sys
 from pathlib import Path
 
 from runner.cli.args import no_display, positive_float, want_headless
-from runner.errors import EXIT_OK, EXIT_PROBLEMS, UsageError
+from runner.errors import EXIT_OK, EXIT_PROBLEMS, DisplayError, UsageError
 
 
 def add_session_arguments(p: argparse.ArgumentParser, *, pilot: bool) -> None:
@@ -59,8 +59,16 @@ def add_session_arguments(p: argparse.ArgumentParser, *, pilot: bool) -> None:
         p.add_argument(
             "--allow-timing-mismatch",
             action="store_true",
-            help="start even when the measured refresh is off by more than 2%% or flips do not"
-            " block (the mismatch is journaled)",
+            help="start even when the measured refresh is off by more than 2%% or vsync is"
+            " missing (flips do not wait for the refresh, or the driver only imitates it; flips"
+            " are then paced by trialdeck's frame clock); the mismatch is journaled",
+        )
+        p.add_argument(
+            "--allow-display-mismatch",
+            action="store_true",
+            help="start even when the desktop size differs from the protocol's"
+            " screen.resolution: the protocol's screen is drawn pixel for pixel, centred (both"
+            " sizes are journaled)",
         )
     if pilot:
         p.add_argument(
@@ -78,6 +86,45 @@ def add_session_arguments(p: argparse.ArgumentParser, *, pilot: bool) -> None:
         )
         p.add_argument("--sim-abort-at", type=int, metavar="TRIAL", help=argparse.SUPPRESS)
         p.add_argument("--sim-pause-at", type=int, metavar="TRIAL", help=argparse.SUPPRESS)
+
+
+def _exit_display_lost() -> None:
+    """After the session was closed on a lost display: say so and end at once.
+
+    Called from Xlib's fatal IO error hook, which would otherwise end the process itself
+    without a word; Python's own shutdown cannot run there.
+    """
+    sys.stderr.write(
+        "error: the connection to the display was lost; the session was closed"
+        " (session_end with reason display_lost; trials.csv written).\n"
+    )
+    sys.stderr.flush()
+    os._exit(EXIT_PROBLEMS)
+
+
+def check_desktop(loaded, *, allow: bool) -> tuple[int, int] | None:
+    """Refuse a live run whose desktop size differs from the protocol's screen.resolution.
+
+    Nothing is created before this check. With ``allow`` the run goes on: the protocol's
+    screen is drawn pixel for pixel, centred on the desktop (the display refuses one too small).
+
+    Raises
+    ------
+    DisplayError
+        The sizes differ and the mismatch was not allowed.
+    """
+    from runner.present.display import desktop_size
+
+    desktop = desktop_size()
+    want = (int(loaded.model.screen.resolution[0]), int(loaded.model.screen.resolution[1]))
+    if desktop is not None and desktop != want and not allow:
+        raise DisplayError(
+            f"the display's desktop is {desktop[0]}x{desktop[1]} pixels but the protocol's"
+            f" screen.resolution is {want[0]}x{want[1]}; nothing was created. Set the display to"
+            " that resolution (see docs/lab-setup.md), or run with --allow-display-mismatch to"
+            " draw the protocol's screen pixel for pixel, centred on this desktop."
+        )
+    return desktop
 
 
 def run_one_session(
@@ -101,13 +148,17 @@ def run_one_session(
         want_headless(args.show)
     else:
         os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
-        if no_display() and os.environ.get("SDL_VIDEODRIVER") not in ("dummy", "offscreen"):
+        if no_display():
             raise UsageError(
                 "there is no display here, so a live session cannot be shown; use `trialdeck pilot` for a headless pilot."
             )
-    from runner.present.display import display_for
+    from runner.present.display import after_display_lost, display_for
+
+    after_display_lost(_exit_display_lost)
 
     loaded = load_protocol(protocol)
+    if mode == "live":
+        check_desktop(loaded, allow=getattr(args, "allow_display_mismatch", False))
     pause_key = getattr(args, "pause_key", "p")
     console = Console(
         quiet=console_quiet, live=mode == "live" and sys.stdout.isatty(), pause_key=pause_key

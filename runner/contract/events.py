@@ -48,6 +48,7 @@ JOURNAL_ONLY_EVENTS = frozenset(
         "trial_start",
         "trial_end",
         "typing",
+        "anticipation",
         "rating_select",
         "abort_requested",
         "abort_cancelled",

@@ -399,6 +399,15 @@ def check_responses(
             first_line[fast[0]],
             code="fast-response",
         )
+    early = [(n, as_int(rec.get("trial"))) for n, rec in ix.of("anticipation")]
+    early_trials = sorted({tr for _, tr in early if tr is not None})
+    if early:
+        out.warning(
+            f"{plural(len(early), 'key press', 'key presses')} came before stimulus onset (trials "
+            f"{ranges(early_trials)}) and {'was' if len(early) == 1 else 'were'} journaled as "
+            "anticipations, not responses.",
+            early[0][0],
+        )
     outcomes = Counter(str(done.record.get("outcome")) for done in completed.values())
     facts["responses"] = {
         "rt_ms": stats(rts),
@@ -408,6 +417,8 @@ def check_responses(
         "no_rating": no_rating,
         "fast": fast,
         "anticipation_floor_ms": floor,
+        "anticipations": len(early),
+        "anticipation_trials": early_trials,
     }
 
 

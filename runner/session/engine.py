@@ -13,6 +13,7 @@ pauses, aborts and storage pauses in :mod:`runner.session.interrupts`.
 from __future__ import annotations
 
 import math
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
@@ -54,6 +55,7 @@ PAYLOAD_FIELDS = (
     "status",
 )
 PREFETCH_AHEAD = 2  # stimuli decoded ahead, so a slow decode never reaches an onset
+RECENT_SCREENS = 32
 DEFAULT_PAUSE_KEY = "p"
 
 
@@ -153,6 +155,8 @@ class Engine:
         self.triggers = triggers
         self.resume_attempt = resume_attempt
         self._screen_t: float | None = None
+        # The last screens shown (flip time, kind), to name the screen an early key was pressed on.
+        self._recent_screens: deque[tuple[float, str]] = deque(maxlen=RECENT_SCREENS)
         self._screen_frames: int | None = None
         self.interrupted = False  # the current trial was interrupted by a storage pause
         self.trial_t0 = 0.0
@@ -262,10 +266,38 @@ class Engine:
         if wait_ms:
             flip["load_wait_ms"] = round(wait_ms, 3)
         self._screen_t, self._screen_frames = t, frames
+        self._recent_screens.append((t, kind))
         self.journal.append("flip", **flip)
         for obs in self.observers:
             obs.on_view(kind, t, trial, view)
         return t
+
+    def screen_at(self, t: float) -> str:
+        """The kind of screen that was showing at ``t`` ('before' when older than those kept)."""
+        for flip_t, kind in reversed(self._recent_screens):
+            if flip_t <= t:
+                return kind
+        return "before"
+
+    def anticipations(self, trial: ScheduledTrial, onset: float) -> list[KeyHit]:
+        """Journal the presses that came before the stimulus ``onset`` as ``anticipation``s.
+
+        They are taken out of the input queue, so none of them can become the response. A press
+        whose blind window reaches back to the onset (it came in during the onset's flip) counts
+        as early too: it may have been pressed before the stimulus was on the screen.
+        """
+        early = self.presenter.early_keys(onset)
+        for hit in early:
+            self.journal.append(
+                "anticipation",
+                t=hit.t,
+                trial=trial.trial,
+                key=hit.key,
+                screen=self.screen_at(hit.earliest),
+                blind_ms=round(hit.blind_ms, 3),
+                before_onset_ms=round((onset - hit.t) * 1000, 3),
+            )
+        return early
 
     def limit(self, seconds: float | None) -> float | None:
         """A protocol time limit in seconds at this run's speed (None: no limit)."""

@@ -10,6 +10,7 @@ imports pygame or pylsl.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any, Protocol, runtime_checkable
 
 from runner.session.views import KeyHit, RatingView, View
@@ -78,9 +79,17 @@ class Presenter(Protocol):
         Where stimuli are drawn; its size is journaled in the header.
     refresh
         The refresh measurement made on opening (None: not measured).
+    screen_size
+        The window's real size in pixels (the protocol's screen is drawn 1:1, centred on it).
+    desktop_size
+        The desktop's own size (None when unknown, e.g. headless).
+    on_lost
+        Called when the display connection is lost, before the process ends (the session's
+        emergency close); None: nothing to close.
     """
 
     interval: float
+    on_lost: Callable[[], None] | None
     hold: frozenset[str]
     held: list[KeyHit]
     blocking: bool
@@ -98,6 +107,12 @@ class Presenter(Protocol):
 
     @property
     def refresh(self) -> RefreshReport | None: ...
+
+    @property
+    def screen_size(self) -> tuple[int, int]: ...
+
+    @property
+    def desktop_size(self) -> tuple[int, int] | None: ...
 
     def show(self, view: View, *, at: float | None = None, photodiode: bool = False) -> float:
         """Draw ``view`` and flip at (or just after) ``at``; return the time right after the flip."""
@@ -125,6 +140,11 @@ class Presenter(Protocol):
 
     def drain(self) -> None:
         """Drop pending input (keys in ``hold`` go to ``held``; Escape is kept)."""
+        ...
+
+    def early_keys(self, onset: float) -> list[KeyHit]:
+        """Take the presses read before ``onset``, or whose blind window reaches back to it,
+        out of the input queue (Escape and quit stay queued; keys in ``hold`` go to ``held``)."""
         ...
 
     def close(self) -> None: ...

@@ -134,6 +134,11 @@ def _header(
             "frame_clock": "paced" if presenter.paced else "vsync",
             "stimulus_box": [presenter.stimulus_rect.width, presenter.stimulus_rect.height],
             "video_driver": _video_driver(),
+            # The real screen: the desktop's own size (None when the driver cannot tell), the
+            # window's size, and the measured refresh (the protocol's screen is drawn 1:1 on it).
+            "desktop_size": list(presenter.desktop_size) if presenter.desktop_size else None,
+            "window_size": list(presenter.screen_size),
+            "measured_hz": round(presenter.refresh.measured_hz, 4) if presenter.refresh else None,
         },
         "markers": outlet.details.as_dict(),
         "station": station_name(opts.station or model.markers.station),
@@ -220,6 +225,21 @@ def _check_display(presenter: Presenter, opts: RunOptions, console: ConsoleLike)
         info["problems"] = problems
         console.warn(f"display timing does not match the protocol: {'; '.join(problems)}.")
     return info
+
+
+def _display_lost_close(engine: Engine, journal: Journal, folder: Path) -> Callable[[], None]:
+    """The emergency close run when the display connection is lost (the process ends after)."""
+
+    def close() -> None:
+        t = local_clock()
+        try:
+            engine.emit("session_end", t, status="failed", reason="display_lost")
+        finally:
+            journal.on_error = None
+            journal.close()  # fsyncs
+            write_trials_csv(read_journal(folder / JOURNAL_NAME), folder)
+
+    return close
 
 
 def _open_journal(
@@ -416,6 +436,8 @@ def run_session(
             triggers=triggers,
             resume_attempt=plan.attempt if plan is not None and plan.attempt > 1 else None,
         )
+        # Losing the display (the X server) ends the process from C: close the session first.
+        presenter.on_lost = _display_lost_close(engine, journal, folder)
         status = "completed"
         error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter

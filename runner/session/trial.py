@@ -104,9 +104,6 @@ class TrialScreens:
             requested_ms=trial.fixation_ms,
             frames=fix_frames,
         )
-        # Keys pressed before the fixation (e.g. late presses from the previous trial) must not
-        # count as a response to this stimulus.
-        e.presenter.drain()
 
         typing_hint = answer_hint(model.texts, ans.unsure_key)
         if ans.mode == "after":
@@ -135,6 +132,9 @@ class TrialScreens:
             fixation_actual_ms=round((t_on - t_fix) * 1000, 3),
             load_wait_ms=round(e.presenter.last_load_wait_ms, 3),
         )
+        # Keys pressed before the onset (during the fixation or earlier), or that may have been
+        # (they came in while the onset's flip ran), are never the response: journal them.
+        e.anticipations(trial, t_on)
 
         limit = e.limit(model.timing.stimulus_limit_s)
         deadline = None if limit is None else t_on + limit
@@ -152,6 +152,7 @@ class TrialScreens:
                     trial=trial.trial,
                     key=hit.key,
                     rt_ms=round((hit.t - t_on) * 1000, 3),
+                    blind_ms=round(hit.blind_ms, 3),
                 )
                 t_dec = hit.t
             if out.unsure:
@@ -255,17 +256,32 @@ class TrialScreens:
                     trial=trial.trial,
                     key=hit.key,
                     rt_ms=round((hit.t - t0) * 1000, 3),
+                    blind_ms=round(hit.blind_ms, 3),
                 )
             if hit.key == ans.unsure_key:
                 out.unsure, out.confirm_t = True, hit.t
-                e.emit("answer", hit.t, trial=trial.trial, answer=None, unsure=True)
+                e.emit(
+                    "answer",
+                    hit.t,
+                    trial=trial.trial,
+                    answer=None,
+                    unsure=True,
+                    blind_ms=round(hit.blind_ms, 3),
+                )
                 return
             if hit.key == "return":
                 if typed:
                     value = int(typed)
                     if value <= ans.max:
                         out.answer, out.confirm_t = value, hit.t
-                        e.emit("answer", hit.t, trial=trial.trial, answer=value, unsure=False)
+                        e.emit(
+                            "answer",
+                            hit.t,
+                            trial=trial.trial,
+                            answer=value,
+                            unsure=False,
+                            blind_ms=round(hit.blind_ms, 3),
+                        )
                         return
                 continue
             if hit.key == "backspace":
@@ -276,7 +292,13 @@ class TrialScreens:
                 continue
             t = e.show(make_view(typed), kind + "-typing", trial, photodiode=photodiode)
             e.journal.append(
-                "typing", t=t, trial=trial.trial, typed=typed, key=hit.key, key_t=hit.t
+                "typing",
+                t=t,
+                trial=trial.trial,
+                typed=typed,
+                key=hit.key,
+                key_t=hit.t,
+                key_blind_ms=round(hit.blind_ms, 3),
             )
 
     def _rate(self, trial: ScheduledTrial, out: TrialOutcome) -> None:
@@ -338,6 +360,7 @@ class TrialScreens:
                 rating=choice,
                 rt_ms=round((hit.t - t_r) * 1000, 3),
                 via="mouse" if hit.key == "click" else "keys",
+                blind_ms=round(hit.blind_ms, 3),
             )
             frames = max(1, round(RATING_SHOW_CHOICE_S / e.speed / e.presenter.interval))
             t = e.show(

@@ -164,8 +164,21 @@ def view_from_dict(data: dict[str, object]) -> View:
 
 @dataclass(frozen=True)
 class KeyHit:
-    """A key press: its name ('space', 'u', '7', 'return', 'backspace', 'escape'), and when it was seen."""
+    """A key press: its name ('space', 'u', '7', 'return', 'backspace', 'escape'), and when it was read.
+
+    ``t`` is the time of the input poll that read it; the press happened within ``blind_ms``
+    before that.
+    """
 
     key: str
     t: float
     pos: tuple[int, int] | None = None  # for 'click': where the mouse button went down
+    # How long before ``t`` the press may have happened, in ms: the time since the input poll
+    # before the one that read it (a fraction of a ms while waiting; a whole flip when the key
+    # came in while the screen was flipping).
+    blind_ms: float = 0.0
+
+    @property
+    def earliest(self) -> float:
+        """The earliest time the press may have happened (``t`` less the blind window)."""
+        return self.t - self.blind_ms / 1000.0

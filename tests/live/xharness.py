@@ -33,9 +33,17 @@ def xvfb_missing() -> str | None:
     return None
 
 
+@dataclass
+class XServer:
+    """A running private Xvfb: its DISPLAY string and its process (to kill it mid-test)."""
+
+    display: str
+    proc: subprocess.Popen
+
+
 @contextmanager
-def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
-    """Start a private Xvfb and yield its DISPLAY string (``:N``)."""
+def xserver(width: int = 1920, height: int = 1080) -> Iterator[XServer]:
+    """Start a private Xvfb with one screen of ``width`` x ``height`` pixels."""
     read, write = os.pipe()
     proc = subprocess.Popen(
         [
@@ -61,7 +69,7 @@ def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
                 if not chunk:
                     raise RuntimeError("Xvfb did not start")
                 number += chunk
-        yield f":{int(number)}"
+        yield XServer(f":{int(number)}", proc)
     finally:
         proc.terminate()
         try:
@@ -69,6 +77,13 @@ def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
         except subprocess.TimeoutExpired:
             proc.kill()
             proc.wait()
+
+
+@contextmanager
+def xvfb(width: int = 1920, height: int = 1080) -> Iterator[str]:
+    """Start a private Xvfb and yield its DISPLAY string (``:N``)."""
+    with xserver(width, height) as server:
+        yield server.display
 
 
 class Injector:
@@ -81,6 +96,8 @@ class Injector:
             stdout=subprocess.PIPE,
             text=True,
         )
+        # Injection time -> when a second X client saw the press arrive (None: it did not).
+        self.delivered: dict[float, float | None] = {}
 
     def _ask(self, command: dict) -> list[float]:
         assert self.proc.stdin is not None and self.proc.stdout is not None
@@ -89,7 +106,10 @@ class Injector:
         line = self.proc.stdout.readline()
         if not line:
             raise RuntimeError("the key injector stopped")
-        return json.loads(line)["t"]
+        answer = json.loads(line)
+        for t, seen in zip(answer["t"], answer.get("seen", []), strict=False):
+            self.delivered[t] = seen
+        return answer["t"]
 
     def keys(self, *names: str, gap_ms: float = 0.0) -> list[float]:
         """Press and release each key; the local_clock time of each press."""
@@ -99,11 +119,16 @@ class Injector:
         return self._ask({"hold": name, "hold_ms": hold_ms})[0]
 
     def close(self) -> None:
-        if self.proc.poll() is None:
-            try:
-                self._ask_quit()
-            finally:
-                self.proc.wait(timeout=10)
+        try:
+            if self.proc.poll() is None:
+                try:
+                    self._ask_quit()
+                finally:
+                    self.proc.wait(timeout=10)
+        finally:
+            for pipe in (self.proc.stdin, self.proc.stdout):
+                if pipe is not None:
+                    pipe.close()
 
     def _ask_quit(self) -> None:
         assert self.proc.stdin is not None
@@ -161,6 +186,22 @@ class MarkerListener:
                 if left <= 0:
                     seen = [m.payload.get("event") for m in self.markers[-8:]]
                     raise TimeoutError(f"no {event!r} marker; last seen {seen}")
+                self._cond.wait(left)
+
+    def wait_any(
+        self, events: set[str], *, after: int = 0, timeout: float = 30.0
+    ) -> tuple[int, Marker]:
+        """The first marker at index >= ``after`` whose event is one of ``events``, and its index."""
+        deadline = time.monotonic() + timeout
+        with self._cond:
+            while True:
+                for i in range(after, len(self.markers)):
+                    if self.markers[i].payload.get("event") in events:
+                        return i, self.markers[i]
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    seen = [m.payload.get("event") for m in self.markers[-8:]]
+                    raise TimeoutError(f"none of {sorted(events)}; last seen {seen}")
                 self._cond.wait(left)
 
     def stop(self) -> None:

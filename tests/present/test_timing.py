@@ -10,8 +10,10 @@ from runner.present.timing import (
     LATE_INTERVALS,
     MIN_MEASURE_FLIPS,
     FramePacer,
+    check_vsync,
     is_late,
     measure_refresh,
+    phase_spread,
     summarise_flips,
 )
 from runner.session.engine import frames_for
@@ -185,3 +187,85 @@ def test_late_flip_rule(offset_frames, late):
     interval = 1 / 60
     target = 50.0
     assert is_late(target + offset_frames * interval, target, interval) is late
+
+
+class EmulatedVsyncDisplay:
+    """A driver that imitates vsync by sleeping: a flip returns one period after the last one.
+
+    This is how SDL's renderer behaves without a real vsync (measured under Xvfb: flips block
+    about one whole-millisecond interval after the previous flip, whenever they are issued).
+    """
+
+    def __init__(self, period, *, work=0.0003):
+        self.period = period
+        self.work = work
+        self.now = 40.0
+        self.last = self.now
+
+    def clock(self):
+        return self.now
+
+    def flip(self):
+        self.now = max(self.now + self.work, self.last + self.period)
+        self.last = self.now
+
+    def wait(self, seconds):
+        self.now += seconds
+
+
+@pytest.mark.parametrize("hz", [60.0, 120.0, 144.0])
+def test_vsync_check_finds_flips_locked_to_the_refresh(hz):
+    """Flips that land on a vertical blank grid (0.1 ms jitter) keep one phase: real vsync.
+
+    Source: circular standard deviation sqrt(-2 ln R) (Mardia & Jupp, Directional Statistics,
+    2000, sec. 2.3.4); locked flips return at the same phase of each refresh by construction.
+    """
+    sim = SimulatedDisplay(1 / hz, jitter=0.0001, seed=3)
+
+    def wait(seconds):
+        sim.now += seconds
+
+    verdict, spread = check_vsync(sim.flip, sim.clock, 1 / hz, wait=wait)
+    assert verdict == "real"
+    assert spread < 0.05
+
+
+@pytest.mark.parametrize("period", [0.016, 0.0159, 1 / 60])
+def test_vsync_check_finds_a_driver_that_only_sleeps(period):
+    """Flips that sleep one period after the previous flip return at any phase: emulated vsync.
+
+    Source: circular standard deviation (Mardia & Jupp 2000, sec. 2.3.4); a uniform phase has
+    R near 0 and a spread near or above 0.3 cycles (lead's measurement under Xvfb: 0.27-0.31).
+    """
+    sim = EmulatedVsyncDisplay(period)
+    check = measure_refresh(sim.flip, sim.clock, 1 / 60)
+    assert check.blocking  # the old guard was fooled: these flips do block
+    verdict, spread = check_vsync(sim.flip, sim.clock, check.interval_s, wait=sim.wait)
+    assert verdict == "emulated"
+    assert spread > 0.2
+    problems = check.with_vsync(verdict, spread).problems()
+    assert problems and problems[0].startswith("vsync missing")
+    assert "Hz" not in problems[0]  # not reported as a refresh rate that differs
+
+
+def test_phase_spread_matches_scipy_circular_std():
+    """The phase spread equals scipy's circular standard deviation over one cycle.
+
+    Source: scipy.stats.circstd (an independent implementation of sqrt(-2 ln R)).
+    """
+    from scipy.stats import circstd
+
+    rng = random.Random(7)
+    period = 0.0125
+    stamps = [3.0 + k * period + rng.gauss(0.0, 0.002) for k in range(50)]
+    ours = phase_spread(stamps, period)
+    ref = circstd([(t - stamps[0]) % period for t in stamps], high=period, low=0.0) / period
+    assert ours == pytest.approx(ref, rel=1e-9)
+
+
+def test_non_blocking_flips_are_reported_as_vsync_missing():
+    """Flips that return at once are reported as 'vsync missing', with the 'off' verdict."""
+    sim = SimulatedDisplay(1 / 60, blocking=False)
+    check = measure_refresh(sim.flip, sim.clock, 1 / 60)
+    assert check.vsync == "off" and check.vsync_missing
+    assert check.problems()[0].startswith("vsync missing")

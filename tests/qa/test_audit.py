@@ -267,6 +267,22 @@ def test_unknown_events_are_listed_not_failed(pilot, tmp_path):
     assert audit.facts["journal"]["unknown_events"] == {"calibration_check": 1}
 
 
+def test_anticipations_are_counted_with_their_trials(pilot, tmp_path):
+    """Key presses journaled as anticipations give one warning with their count and trials."""
+    folder = _copy(pilot, tmp_path)
+    journal = Journal.reopen(folder / JOURNAL_NAME)
+    for trial in (2, 3, 3):
+        journal.append("anticipation", t=1.0, trial=trial, key="4", screen="fixation")
+    journal.close()
+    audit = audit_session(folder)
+    assert audit.ok
+    assert audit.facts["responses"]["anticipations"] == 3
+    assert audit.facts["responses"]["anticipation_trials"] == [2, 3]
+    (warning,) = [m for m in _messages(audit, "warning") if "anticipations" in m]
+    assert "3 key presses" in warning and "trials 2-3" in warning
+    assert "anticipation" not in audit.facts["journal"].get("unknown_events", {})
+
+
 def test_not_a_session_folder(tmp_path):
     """A folder without journal.jsonl is refused with a sentence saying what to give."""
     with pytest.raises(InputFileError, match="holds no journal.jsonl"):

@@ -67,6 +67,9 @@ class FakePresenter:
     ready: list[str] = field(default_factory=list)
     _keys: list[tuple[float, int, str]] = field(default_factory=list)
     _n: int = 0
+    on_lost: Callable[[], None] | None = None
+    screen_size: tuple[int, int] = (800, 600)
+    desktop_size: tuple[int, int] | None = None
 
     @property
     def paced(self) -> bool:
@@ -133,6 +136,18 @@ class FakePresenter:
                 self.held.append(KeyHit(key, t))
         self._keys = keep
 
+    def early_keys(self, onset: float) -> list[KeyHit]:
+        early, keep = [], []
+        for t, n, key in self._keys:
+            if t > onset or key == "escape":
+                keep.append((t, n, key))
+            elif key in self.hold:
+                self.held.append(KeyHit(key, t))
+            else:
+                early.append(KeyHit(key, t))
+        self._keys = keep
+        return early
+
     def close(self) -> None:
         return None
 
@@ -158,6 +173,7 @@ class Plan:
     action: str = "correct"  # correct, wrong, unsure, silent, abort, cancel-abort
     rt_s: float = 1.25
     pause_during: bool = False
+    fixation_key: str | None = None  # pressed 50 ms into the fixation (an anticipation)
 
 
 @dataclass
@@ -179,6 +195,8 @@ class ScriptedParticipant:
         plan = self.plans.get(trial.trial, Plan()) if trial is not None else Plan()
         if kind == "page" and isinstance(view, PageView):
             press(t + 0.5, view.key)
+        elif kind == "fixation" and trial is not None and plan.fixation_key is not None:
+            press(t + 0.05, plan.fixation_key)
         elif kind == "break-ready":
             press(t + 0.2, SPACE)
         elif kind == "pause":
@@ -323,6 +341,19 @@ def test_markers_carry_the_journaled_flip_times(tmp_path):
     kinds = [r["event"] for r in marked]
     assert kinds[0] == "session_start" and kinds[-1] == "session_end"
     assert kinds.count("stimulus_onset") == 5
+
+
+def test_keys_during_fixation_are_anticipations_not_responses(tmp_path):
+    """A decision key pressed during the fixation is journaled as an anticipation, not taken."""
+    s = run_session(tmp_path, {2: Plan(fixation_key=SPACE), 3: Plan(fixation_key="4")})
+    rows = s.rows()
+    assert rows[2]["rt_ms"] == pytest.approx(1250.0, abs=1e-6)  # the planned press, not 0 ms
+    assert rows[2]["answer"] == s.engine.schedule.trials[1].expected
+    found = [(r["trial"], r["key"], r["screen"]) for r in s.events("anticipation")]
+    assert found == [(2, SPACE, "fixation"), (3, "4", "fixation")]
+    fixations = {r["trial"]: r["t"] for r in s.events("fixation_onset")}
+    for r in s.events("anticipation"):
+        assert r["t"] == pytest.approx(fixations[r["trial"]] + 0.05, abs=1e-9)
 
 
 def test_screen_durations_are_whole_frames(tmp_path):
