@@ -160,6 +160,7 @@ PROBLEM_CODES: dict[str, str] = {
         "the recorded markers do not line up with the journal's in time, even after offset and drift"
     ),
     "ambiguous-marker-stream": "several marker streams in the recording could be this session's",
+    "anticipations": "key presses came before stimulus onset and were journaled as anticipations",
     "photodiode-missing": "the photodiode stream or channel named with --photodiode is not in the recording",
     "photodiode-edges": "the photodiode patch did not light for every onset, or lit without one",
 }

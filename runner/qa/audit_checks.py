@@ -407,6 +407,7 @@ def check_responses(
             f"{ranges(early_trials)}) and {'was' if len(early) == 1 else 'were'} journaled as "
             "anticipations, not responses.",
             early[0][0],
+            code="anticipations",
         )
     outcomes = Counter(str(done.record.get("outcome")) for done in completed.values())
     facts["responses"] = {

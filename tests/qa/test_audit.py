@@ -278,7 +278,7 @@ def test_anticipations_are_counted_with_their_trials(pilot, tmp_path):
     assert audit.ok
     assert audit.facts["responses"]["anticipations"] == 3
     assert audit.facts["responses"]["anticipation_trials"] == [2, 3]
-    (warning,) = [m for m in _messages(audit, "warning") if "anticipations" in m]
+    (warning,) = [p.message for p in audit.warnings if p.code == "anticipations"]
     assert "3 key presses" in warning and "trials 2-3" in warning
     assert "anticipation" not in audit.facts["journal"].get("unknown_events", {})
 
