@@ -178,7 +178,8 @@ def samples_content(s: FixtureStream, start: int, stop: int) -> bytes:
                 row += varlen(len(raw)) + raw
             rows.append(bytes(row))
     else:
-        arr = np.asarray(s.values).astype(NUMERIC_FORMATS[s.channel_format])
+        # asarray (not astype) so a stream already in its format is not copied for every chunk.
+        arr = np.asarray(s.values, dtype=NUMERIC_FORMATS[s.channel_format])
         arr = arr.reshape(len(ts), nch)
         rows = [arr[k].tobytes() for k in range(start, stop)]
     for i, k in enumerate(range(start, stop)):
