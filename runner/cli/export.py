@@ -37,6 +37,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help=f"BIDS datatype folder of the events files (default {DEFAULT_DATATYPE})",
     )
     parser.add_argument(
+        "--force",
+        action="store_true",
+        help="write into an existing folder that is not empty and not an earlier export's "
+        "(never into or above a session folder)",
+    )
+    parser.add_argument(
         "--task",
         metavar="LABEL",
         help="BIDS task label, letters and digits (default: the study id without other characters)",
@@ -51,6 +57,7 @@ def run(args: argparse.Namespace) -> int:
         task=args.task,
         datatype=args.datatype,
         recordings=args.recording,
+        force=args.force,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     print(f"Pooled trials table: {result.pooled}")

@@ -103,7 +103,7 @@ def run_one_session(
             raise UsageError(
                 "there is no display here, so a live session cannot be shown; use `trialdeck pilot` for a headless pilot."
             )
-    from runner.present.display import display_for
+    from runner.present.display import Display, display_for
 
     loaded = load_protocol(protocol)
     pause_key = getattr(args, "pause_key", "p")
@@ -113,6 +113,17 @@ def run_one_session(
     if mode == "live":
         console.warn(SAFETY_REMINDER.format(pause=(pause_key or "p").upper()))
     frames = Path(args.frames) if getattr(args, "frames", None) else None
+    frames_out = None
+    if frames is not None:
+        from runner.contract.outputs import prepare_output_folder
+
+        frames_out = prepare_output_folder(frames, "trialdeck pilot --frames", what="frames")
+    opened: list[Display] = []
+
+    def open_presenter() -> Display:
+        opened.append(display_for(loaded, fullscreen=fullscreen, frames_dir=frames))
+        return opened[-1]
+
     fullscreen = not args.windowed and (mode == "live" or args.show)
     opts = RunOptions(
         participant=args.participant,
@@ -134,12 +145,14 @@ def run_one_session(
         result = run_session(
             loaded,
             opts,
-            open_presenter=lambda: display_for(loaded, fullscreen=fullscreen, frames_dir=frames),
+            open_presenter=open_presenter,
             console=console,
             observers=[console],
         )
     finally:
         console.stop()
+        if frames_out is not None:
+            frames_out.finish(p for d in opened for p in d.frames_written)
     print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")

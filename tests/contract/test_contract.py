@@ -19,7 +19,7 @@ from runner.contract.line import (
 )
 
 REPO = Path(__file__).resolve().parents[2]
-CONTRACT_MODULES = ("columns", "events", "hashing", "layout", "line")
+CONTRACT_MODULES = ("columns", "events", "hashing", "layout", "line", "outputs")
 THIRD_PARTY = ("numpy", "pandas", "pygame", "pylsl", "pydantic", "yaml", "scipy", "matplotlib")
 
 
