@@ -13,7 +13,14 @@ from pathlib import Path
 from pydantic import ValidationError
 
 from runner.contract.layout import display_path
-from runner.errors import Problem, ProtocolError
+from runner.errors import InputFileError, Problem, ProtocolError
+from runner.protocol.files import (
+    FileProblem,
+    check_image,
+    read_regular,
+    real_path,
+    regular_file,
+)
 from runner.protocol.model import (
     BlocksStep,
     PageStep,
@@ -24,7 +31,7 @@ from runner.protocol.model import (
 )
 from runner.protocol.report import problem_at, problems_from_validation
 from runner.protocol.table import TrialRow, TrialTable, read_trial_table
-from runner.protocol.yamlsafe import YamlDoc, read_yaml
+from runner.protocol.yamlsafe import MAX_YAML_BYTES, YamlDoc, read_yaml
 
 MAX_PAGE_BYTES = 256 * 1024
 CONTROL_LIMIT = 0x20  # characters below this (NUL, tab, newline ...) never belong in a path
@@ -96,8 +103,20 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     """
     path = Path(path)
     name = display_name(path)
+    try:
+        # Before opening: a FIFO would block, /dev/zero would read without end.
+        regular_file(path, "protocol file")
+    except FileProblem as exc:
+        if exc.code == "missing-file":
+            raise InputFileError(
+                f"The protocol file {name!r} does not exist; check the path and the spelling."
+            ) from None
+        raise InputFileError(f"{name}: {exc.message}; name the protocol's .yaml file.") from None
     doc = read_yaml(path)
-    raw = path.read_bytes()
+    try:
+        raw = read_regular(path, "protocol file", MAX_YAML_BYTES)
+    except FileProblem as exc:
+        raise InputFileError(f"{name}: {exc.message}.") from None
     try:
         model = Protocol.model_validate(doc.data)
     except ValidationError as exc:
@@ -110,7 +129,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     def at(loc: tuple[str | int, ...], message: str, *, code: str) -> None:
         problems.append(problem_at(doc, name, loc, message, code=code))
 
-    table_path = (path.parent / model.trials.table).resolve()
+    table_path = real_path(path.parent / model.trials.table)
     table, table_problems = read_trial_table(table_path, display_name=display_name(table_path))
     if table is None:
         if table_problems and table_problems[0].line == 0 and not table_path.exists():
@@ -145,9 +164,9 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     for i, step in enumerate(model.sequence):
         if isinstance(step, PageStep):
             if step.page.file is not None:
-                page_path = (path.parent / step.page.file).resolve()
+                page_path = real_path(path.parent / step.page.file)
                 if not model.trials.allow_outside and not page_path.is_relative_to(
-                    path.parent.resolve()
+                    real_path(path.parent)
                 ):
                     at(
                         ("sequence", i, "page", "file"),
@@ -157,21 +176,18 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                     )
                     continue
                 try:
-                    data = page_path.read_bytes()
-                    if len(data) > MAX_PAGE_BYTES:
-                        raise ValueError
-                    pages[i] = data.decode("utf-8")
-                except FileNotFoundError:
+                    pages[i] = read_regular(page_path, "page file", MAX_PAGE_BYTES).decode("utf-8")
+                except FileProblem as exc:
                     at(
                         ("sequence", i, "page", "file"),
-                        f"the page file {step.page.file!r} does not exist",
-                        code="missing-file",
+                        f"{exc.message} ({step.page.file!r})",
+                        code=exc.code,
                     )
-                except (OSError, ValueError):
+                except UnicodeDecodeError:
                     at(
                         ("sequence", i, "page", "file"),
-                        f"the page file {step.page.file!r} is not readable UTF-8 text under 256 kB",
-                        code="unreadable-file",
+                        f"the page file {step.page.file!r} is not UTF-8 text",
+                        code="not-utf8",
                     )
             else:
                 pages[i] = step.page.text or ""
@@ -197,6 +213,21 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 need_column(("sequence", i, kind, "max_run", col), col, "column")
             if isinstance(step, BlocksStep):
                 need_column(("sequence", i, "blocks", "by"), step.blocks.by, "block factor")
+                if step.blocks.by in columns and all(col in columns for col in spec.where):
+                    for row in select_rows(table, spec.where):
+                        if not row.value(step.blocks.by).strip():
+                            problems.append(
+                                Problem(
+                                    "error",
+                                    display_name(table_path),
+                                    row.line,
+                                    1,
+                                    f"row {row.row} has no value in the block factor "
+                                    f"{step.blocks.by!r}, so it would make a block of its own; "
+                                    "fill it in or leave the row out with 'where'",
+                                    code="empty-factor-cell",
+                                )
+                            )
                 if step.blocks.order == "fixed" and not step.blocks.levels:
                     at(
                         ("sequence", i, "blocks", "levels"),
@@ -241,7 +272,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 )
                 continue
             stim = table.stimulus_path(row)
-            if not model.trials.allow_outside and not stim.is_relative_to(path.parent.resolve()):
+            if not model.trials.allow_outside and not stim.is_relative_to(real_path(path.parent)):
                 problems.append(
                     Problem(
                         "error",
@@ -253,17 +284,20 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         code="outside-folder",
                     )
                 )
-            elif not stim.is_file():
-                problems.append(
-                    Problem(
-                        "error",
-                        display_name(table_path),
-                        row.line,
-                        1,
-                        f"stimulus file {row.stimulus!r} does not exist (looked for {stim})",
-                        code="missing-file",
+            else:
+                try:
+                    check_image(stim)
+                except FileProblem as exc:
+                    problems.append(
+                        Problem(
+                            "error",
+                            display_name(table_path),
+                            row.line,
+                            1,
+                            f"stimulus {row.stimulus!r}: {exc.message} (looked for {stim})",
+                            code=exc.code,
+                        )
                     )
-                )
     if problems:
         raise ProtocolError(problems)
 
@@ -274,7 +308,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     for i in sorted(pages):
         digest.update(pages[i].encode("utf-8"))
     return LoadedProtocol(
-        path=path.resolve(),
+        path=real_path(path),
         model=model,
         table=table,
         raw=raw,

@@ -105,6 +105,7 @@ class BreakView:
     text: str
     seconds_left: int
     hint: str = ""
+    key: str = "space"  # the key that ends the break once its minimum is over
 
 
 @dataclass(frozen=True)
