@@ -61,6 +61,7 @@ PROBLEM_CODES: dict[str, str] = {
     "unsupported-image": "a stimulus is not a PNG, JPEG, BMP or GIF image (SVG, text, ...)",
     "image-too-large": "a stimulus has more pixels than trialdeck shows (50 megapixels)",
     "empty-factor-cell": "a row used by blocks has no value in the blocking factor (blocks.by)",
+    "answer-covers-stimulus": "the answer box shown over the stimulus has no room beside it",
     # The trial table.
     "bad-csv": "the trial table is not valid CSV",
     "stray-quote": "a quoted field runs over several lines (a stray quote swallows rows)",

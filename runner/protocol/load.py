@@ -30,8 +30,10 @@ from runner.protocol.model import (
     Where,
 )
 from runner.protocol.report import problem_at, problems_from_validation
+from runner.protocol.sizes import stimulus_box
 from runner.protocol.table import TrialRow, TrialTable, read_trial_table
 from runner.protocol.yamlsafe import MAX_YAML_BYTES, YamlDoc, read_yaml
+from runner.session.views import answer_box_rect, answer_box_size, answer_fit_limits, hint_top
 
 MAX_PAGE_BYTES = 256 * 1024
 CONTROL_LIMIT = 0x20  # characters below this (NUL, tab, newline ...) never belong in a path
@@ -84,6 +86,44 @@ def _same(have: str, want: object) -> bool:
         except ValueError:
             return False
     return have == str(want)
+
+
+def answer_covers(model: Protocol, images: list[tuple[TrialRow, int, int]]) -> str:
+    """Why the answer box of 'over' mode would cover a stimulus, or "" when it never does.
+
+    ``images`` are the stimuli as ``(row, width, height)`` in pixels; each is scaled into the
+    stimulus box and centred as the presenter shows it, and the box must fit below or beside it
+    (:func:`runner.session.views.answer_box_rect`).
+    """
+    size = model.screen.resolution
+    box = answer_box_size(model.screen.font_px)
+    top = hint_top(size, model.screen.font_px)
+    area = stimulus_box(model)
+    bad: list[tuple[TrialRow, int, int]] = []
+    for row, w, h in images:
+        iw, ih = fit_within(w, h, *area)
+        rect = (size[0] // 2 - iw // 2, size[1] // 2 - ih // 2, iw, ih)
+        if answer_box_rect(size, rect, box, top) is None:
+            bad.append((row, iw, ih))
+    if not bad:
+        return ""
+    row, iw, ih = bad[0]
+    max_h, max_w = answer_fit_limits(size, box, top)
+    others = f" (and {len(bad) - 1} more stimuli)" if len(bad) > 1 else ""
+    return (
+        f"'over' needs room below or beside each stimulus for the answer box ({box[0]}x{box[1]} "
+        f"px), but {row.stimulus!r}{others}, shown {iw}x{ih} px on the {size[0]}x{size[1]} "
+        f"screen, leaves none, so the box would cover it. The box fits below a stimulus at most "
+        f"{max_h} px high or beside one at most {max_w} px wide; make "
+        "stimulus_size smaller (or screen.font_px), or use answer.mode: after"
+    )
+
+
+def fit_within(w: int, h: int, box_w: int, box_h: int) -> tuple[int, int]:
+    """Largest size with the aspect ratio of (w, h) that fits in (box_w, box_h), as the
+    presenter scales stimuli (runner.present.images.fit_within)."""
+    scale = min(box_w / w, box_h / h)
+    return max(1, round(w * scale)), max(1, round(h * scale))
 
 
 def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProtocol:
@@ -245,6 +285,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                             code="bad-levels",
                         )
 
+    shown: dict[Path, tuple[TrialRow, int, int]] = {}
     for row in table.rows:
         if row.expected is not None and row.expected > model.answer.max:
             problems.append(
@@ -286,7 +327,8 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 )
             else:
                 try:
-                    check_image(stim)
+                    info = check_image(stim)
+                    shown.setdefault(stim, (row, info.width, info.height))
                 except FileProblem as exc:
                     problems.append(
                         Problem(
@@ -298,6 +340,10 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                             code=exc.code,
                         )
                     )
+    if model.answer.mode == "over" and shown:
+        covered = answer_covers(model, [(r, w, h) for r, w, h in shown.values()])
+        if covered:
+            at(("answer", "mode"), covered, code="answer-covers-stimulus")
     if problems:
         raise ProtocolError(problems)
 
