@@ -248,6 +248,10 @@ def ensure_folder(root: Path, parts: Iterable[str]) -> Path:
         A folder cannot be created.
     """
     path = Path(root)
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StorageError(f"cannot create the folder {path}: {exc.strerror}.") from None
     for part in parts:
         path = path / part
         try:

@@ -224,7 +224,8 @@ class Painter:
         # it fits nowhere (a protocol `check` refuses) does it sit over the stimulus's lower edge.
         bw, bh = answer_box_size(self.style.font_px)
         top = hint_top(self.size, self.style.font_px, self.small.get_linesize())
-        placed = answer_box_rect(self.size, tuple(image_rect), (bw, bh), top)
+        image = (image_rect.x, image_rect.y, image_rect.width, image_rect.height)
+        placed = answer_box_rect(self.size, image, (bw, bh), top)
         if placed is not None:
             return pygame.Rect(placed)
         box = pygame.Rect(0, 0, bw, bh)
