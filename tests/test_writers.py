@@ -221,6 +221,33 @@ def test_session_end_refuses_a_linked_trials_tmp(sessions: Path, tmp_path: Path)
     assert (folder / JOURNAL_NAME).is_file() and not (folder / TRIALS_NAME).exists()
 
 
+def test_session_start_refuses_a_linked_frozen_copy_tmp(tmp_path: Path) -> None:
+    """A protocol.yaml.tmp link in the session folder is refused (exit 1, one line) and the
+    file it points at is untouched."""
+    work = tmp_path / "work"
+    work.mkdir()
+    folder = work / "sessions" / "mini-test" / "sub-P08" / "ses-1"
+    folder.mkdir(parents=True)
+    (work / "outside.yaml").write_text("precious\n", encoding="utf-8")
+    (folder / "protocol.yaml.tmp").symlink_to(work / "outside.yaml")
+    proc = _cli(
+        work,
+        "pilot",
+        str(TEST_DATA / "mini" / "mini.yaml"),
+        "--participant",
+        "P08",
+        "--out",
+        "sessions",
+        "--speed",
+        "50",
+    )
+    assert proc.returncode == 1, proc.stdout + proc.stderr
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error: "), proc.stderr
+    assert (work / "outside.yaml").read_text(encoding="utf-8") == "precious\n"
+    assert (folder / "protocol.yaml.tmp").is_symlink()
+
+
 def test_re_export_of_a_subset_leaves_no_stale_files(sessions: Path, tmp_path: Path) -> None:
     """Exporting two sessions, then one, into the same folder leaves only the one's files
     (and a file the user added)."""
@@ -246,6 +273,10 @@ def test_pilot_frames_rewrite_their_own_folder(tmp_path: Path) -> None:
     base = ["pilot", str(TEST_DATA / "mini" / "mini.yaml"), "--out", "sessions", "--speed", "50"]
     assert _cli(work, *base, "--participant", "P01", "--frames", "frames").returncode == 0
     (work / "frames" / "99999-StimulusView.png").write_bytes(b"x")
+    first_frame = sorted((work / "frames").glob("00001-*.png"))[0]
+    (work / "outside.png").write_bytes(b"precious")
+    first_frame.unlink()
+    first_frame.symlink_to(work / "outside.png")  # a frame of its own replaced by a link
     marker = json.loads((work / "frames" / MARKER_NAME).read_text(encoding="utf-8"))
     marker["files"].append("99999-StimulusView.png")  # as if the first had drawn one more
     (work / "frames" / MARKER_NAME).write_text(json.dumps(marker), encoding="utf-8")
@@ -254,3 +285,5 @@ def test_pilot_frames_rewrite_their_own_folder(tmp_path: Path) -> None:
     on_disk = sorted(p.name for p in (work / "frames").iterdir() if p.name != MARKER_NAME)
     assert on_disk == sorted(marker["files"]) and "99999-StimulusView.png" not in on_disk
     assert on_disk[0].startswith("00001-")
+    assert (work / "outside.png").read_bytes() == b"precious"
+    assert not any(p.is_symlink() for p in (work / "frames").iterdir())
