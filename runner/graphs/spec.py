@@ -182,7 +182,7 @@ class _Reader:
 
     def colour(self, node: yaml.Node, path: str) -> str | None:
         v = self.value(node)
-        if not isinstance(v, str) or not COLOUR_RE.match(v):
+        if not isinstance(v, str) or not COLOUR_RE.fullmatch(v):
             self.error(
                 node,
                 path,
@@ -194,7 +194,7 @@ class _Reader:
 
     def name(self, node: yaml.Node, path: str) -> str | None:
         v = self.value(node)
-        if not isinstance(v, str) or not NAME_RE.match(v):
+        if not isinstance(v, str) or not NAME_RE.fullmatch(v):
             self.error(
                 node,
                 path,

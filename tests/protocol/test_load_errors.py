@@ -464,6 +464,14 @@ CASES = [
         "undecodable-stimulus",
     ),
     (
+        "colour ending in a newline",
+        edit({2: 'screen: {resolution: [640, 480], refresh_hz: 60, background: "#808080\\n"}'}),
+        TABLE,
+        P,
+        2,
+        "bad-value",
+    ),
+    (
         "table: stray quote swallows rows",
         BASE,
         TABLE.replace("img/b.png,4,main", 'img/b.png,4,"main'),
