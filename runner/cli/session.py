@@ -91,6 +91,7 @@ def run_one_session(
     TrialdeckError
         Whatever ended the session, after its journal and trials table were written.
     """
+    from runner.protocol.check import refuse_check_errors
     from runner.protocol.load import load_protocol
     from runner.session.console import SAFETY_REMINDER, Console
     from runner.session.run import RunOptions, run_session
@@ -106,6 +107,8 @@ def run_one_session(
     from runner.present.display import Display, display_for
 
     loaded = load_protocol(protocol)
+    # What `check` refuses is not started (nothing is created for it): one rule for both.
+    refuse_check_errors(protocol, loaded)
     pause_key = getattr(args, "pause_key", "p")
     console = Console(
         quiet=console_quiet, live=mode == "live" and sys.stdout.isatty(), pause_key=pause_key

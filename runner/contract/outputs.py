@@ -342,12 +342,20 @@ def prepare_output_folder(
         _write_marker(out, command, [])
         return OutputFolder(out, command, owned=True, created=True)
     kept = {os.path.realpath(k) for k in keep}
-    marker = _read_marker(out)
-    others = [
-        e.name
-        for e in os.scandir(out)
-        if e.name != MARKER_NAME and os.path.realpath(e.path) not in kept
-    ]
+    try:
+        marker = _read_marker(out)
+    except OutputRefused:
+        if not force:
+            raise
+        marker = None  # with --force an unreadable marker is written over, never followed
+    try:
+        others = [
+            e.name
+            for e in os.scandir(out)
+            if e.name != MARKER_NAME and os.path.realpath(e.path) not in kept
+        ]
+    except OSError as exc:
+        raise StorageError(f"cannot list the {what} folder {out}: {exc.strerror}.") from None
     ours = marker is not None and marker.get("command") == command
     if others and not ours and not force:
         made = f" (it was made by `{marker['command']}`)" if marker is not None else ""

@@ -181,3 +181,19 @@ def test_a_file_in_place_of_the_folder_is_refused(tmp_path):
     with pytest.raises(OutputRefused) as info:
         prepare_output_folder(path, CMD, force=True)
     assert info.value.reason == "not-a-folder"
+
+
+def test_a_marker_that_is_a_link_is_refused_and_never_followed(tmp_path):
+    """A marker that is a link is refused (bad-marker); with force it is replaced, its target kept."""
+    outside = tmp_path / "outside.json"
+    outside.write_text(json.dumps({"command": CMD, "files": []}), encoding="utf-8")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / MARKER_NAME).symlink_to(outside)
+    with pytest.raises(OutputRefused) as info:
+        prepare_output_folder(out, CMD)
+    assert info.value.reason == "bad-marker"
+    before = outside.read_bytes()
+    target = prepare_output_folder(out, CMD, force=True)
+    target.finish([])
+    assert outside.read_bytes() == before and not (out / MARKER_NAME).is_symlink()

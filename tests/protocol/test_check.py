@@ -162,6 +162,24 @@ def test_fast_full_screen_flashing_breaks_the_three_flash_rule(tmp_path: Path, c
     capsys.readouterr()
 
 
+def test_pilot_refuses_what_check_refuses_and_creates_nothing(tmp_path: Path, capsys) -> None:
+    """A protocol `check` refuses for flashing is refused by `pilot` too, before any folder or
+    frame is made (issue 13, item 17: one rule for check and pilot)."""
+    path = write_protocol(
+        tmp_path / "study",
+        FLASHY,
+        rows=_flashy_rows(),
+        image_size=FLASHY_IMAGE,
+        colour=(255, 255, 255),
+    )
+    out, frames = tmp_path / "sessions", tmp_path / "frames"
+    argv = ["pilot", str(path), "--participant", "P01", "--out", str(out), "--frames", str(frames)]
+    assert main(argv) == 1
+    err = capsys.readouterr().err
+    assert ": error: " in err and "Traceback" not in err
+    assert not out.exists() and not frames.exists()
+
+
 def test_acknowledged_flashing_is_a_warning(tmp_path: Path) -> None:
     """With checks.acknowledge_flashes the same flashing is a warning and the check passes."""
     protocol = merged(**{k: v for k, v in FLASHY.items() if k != "checks"})

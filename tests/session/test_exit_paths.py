@@ -50,20 +50,20 @@ def test_confirmed_abort_keeps_completed_trials(tmp_path, capsys):
 def test_exception_mid_trial_is_journaled(tmp_path, capsys, monkeypatch):
     """A stimulus that cannot be decoded at trial time fails the session cleanly: the error is
     journaled, earlier trials are in trials.csv, and the user sees one plain line, no traceback."""
-    import runner.protocol.load as load_module
+    import runner.session.run as run_module
 
     folder = tmp_path / "proto"
     shutil.copytree(MINI_PROTOCOL.parent, folder)
-    real_load = load_module.load_protocol
+    real_run = run_module.run_session
 
-    def load_then_damage(path, **kwargs):
-        # Loading decodes every stimulus, so the damage must come after it, as when a file is
-        # replaced while the session runs. Trial order for P01 puts route1 (practice) first.
-        loaded = real_load(path, **kwargs)
+    def damage_then_run(*args, **kwargs):
+        # Loading and checking decode every stimulus, so the damage must come after them, as
+        # when a file is replaced while the session runs. Trial order for P01 puts route1
+        # (practice) first.
         (folder / "img" / "route3.png").write_bytes(b"not a png")
-        return loaded
+        return real_run(*args, **kwargs)
 
-    monkeypatch.setattr(load_module, "load_protocol", load_then_damage)
+    monkeypatch.setattr(run_module, "run_session", damage_then_run)
     code = main(
         [
             "pilot",
