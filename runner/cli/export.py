@@ -54,6 +54,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="with --copy-stimuli: where the stimuli are now, if they moved since the sessions",
     )
     parser.add_argument(
+        "--force",
+        action="store_true",
+        help="write into an existing folder that is not empty and not an earlier export's "
+        "(never into or above a session folder)",
+    )
+    parser.add_argument(
         "--task",
         metavar="LABEL",
         help="BIDS task label, letters and digits (default: the study id without other characters)",
@@ -69,6 +75,7 @@ def run(args: argparse.Namespace) -> int:
         datatype=args.datatype,
         recordings=args.recording,
         allow_truncated=args.allow_truncated,
+        force=args.force,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     if args.copy_stimuli:

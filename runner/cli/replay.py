@@ -9,6 +9,9 @@ from pathlib import Path
 from runner.cli.args import has_display, positive_float
 from runner.errors import EXIT_OK, EXIT_PROBLEMS, InputFileError, UsageError
 
+#: The command a frames folder of replay's marker names.
+REPLAY_COMMAND = "trialdeck replay --frames"
+
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     """Options of ``trialdeck replay``."""
@@ -29,6 +32,12 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="write a PNG of every distinct screen and a contact sheet into DIR (works headless)",
     )
     p.add_argument(
+        "--force",
+        action="store_true",
+        help="write frames into DIR although it is not empty and was not made by replay "
+        "(never into or above a session folder)",
+    )
+    p.add_argument(
         "--stimuli",
         metavar="DIR",
         help="folder the trial table's stimulus paths are relative to, when the session was "
@@ -44,7 +53,10 @@ def run(args: argparse.Namespace) -> int:
     InputFileError
         The folder holds no journal, or the stimuli folder does not exist.
     UsageError
-        No display and no ``--frames``, or a frames folder that is not empty.
+        No display and no ``--frames``.
+    OutputRefused
+        A frames folder that is not empty and not an earlier replay's (without ``--force``), or
+        is or holds a session folder.
     """
     session = Path(args.session)
     if not (session / "journal.jsonl").is_file():
@@ -61,11 +73,11 @@ def run(args: argparse.Namespace) -> int:
             "there is no display here to replay on; add --frames DIR to write the screens as "
             "PNG files instead."
         )
-    if frames is not None and frames.exists() and any(frames.iterdir()):
-        raise UsageError(
-            f"the frames folder {frames} is not empty; give a new folder so frames of two "
-            "replays are not mixed."
-        )
+    frames_out = None
+    if frames is not None:
+        from runner.contract.outputs import prepare_output_folder
+
+        frames_out = prepare_output_folder(frames, REPLAY_COMMAND, force=args.force, what="frames")
     if not show:
         os.environ["SDL_VIDEODRIVER"] = "dummy"
     os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
@@ -84,6 +96,9 @@ def run(args: argparse.Namespace) -> int:
         fullscreen=show and not args.windowed,
         frames_dir=frames,
     )
+    if frames_out is not None:
+        sheet = [result.contact_sheet] if result.contact_sheet is not None else []
+        frames_out.finish([*result.frames, *sheet])
     for note in result.notes:
         print(f"note: {note}")
     if result.timed and result.lateness_ms:

@@ -139,6 +139,7 @@ def run_one_session(
     TrialdeckError
         Whatever ended the session, after its journal and trials table were written.
     """
+    from runner.protocol.check import refuse_check_errors
     from runner.protocol.load import load_protocol
     from runner.protocol.schedule import build_schedule
     from runner.session.console import SAFETY_REMINDER, Console
@@ -152,11 +153,13 @@ def run_one_session(
             raise UsageError(
                 "there is no display here, so a live session cannot be shown; use `trialdeck pilot` for a headless pilot."
             )
-    from runner.present.display import after_display_lost, display_for
+    from runner.present.display import Display, after_display_lost, display_for
 
     after_display_lost(_exit_display_lost)
 
     loaded = load_protocol(protocol)
+    # What `check` refuses is not started (nothing is created for it): one rule for both.
+    refuse_check_errors(protocol, loaded)
     if mode == "live":
         check_desktop(loaded, allow=getattr(args, "allow_display_mismatch", False))
     pause_key = getattr(args, "pause_key", "p")
@@ -166,6 +169,17 @@ def run_one_session(
     if mode == "live":
         console.warn(SAFETY_REMINDER.format(pause=(pause_key or "p").upper()))
     frames = Path(args.frames) if getattr(args, "frames", None) else None
+    frames_out = None
+    if frames is not None:
+        from runner.contract.outputs import prepare_output_folder
+
+        frames_out = prepare_output_folder(frames, "trialdeck pilot --frames", what="frames")
+    opened: list[Display] = []
+
+    def open_presenter() -> Display:
+        opened.append(display_for(loaded, fullscreen=fullscreen, frames_dir=frames))
+        return opened[-1]
+
     fullscreen = not args.windowed and (mode == "live" or args.show)
     opts = RunOptions(
         participant=args.participant,
@@ -188,12 +202,14 @@ def run_one_session(
         result = run_session(
             loaded,
             opts,
-            open_presenter=lambda: display_for(loaded, fullscreen=fullscreen, frames_dir=frames),
+            open_presenter=open_presenter,
             console=console,
             observers=[console],
         )
     finally:
         console.stop()
+        if frames_out is not None:
+            frames_out.finish(p for d in opened for p in d.frames_written)
     print(f"Session {result.status}: {result.trials_done} of {result.trials_total} trials.")
     print(f"Session folder: {result.folder}")
     print(f"Trials table:   {result.trials_csv}")

@@ -22,7 +22,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--force",
         action="store_true",
-        help="replace the images, GraphML files and manifest a previous run left in DIR",
+        help="write into DIR although it is not empty and was not made by `trialdeck stimuli` "
+        "(its images, GraphML files and manifest are replaced; never through a link)",
     )
     parser.add_argument(
         "--quiet", action="store_true", help="print only the summary line, not each stimulus"
@@ -39,19 +40,21 @@ def run(args: argparse.Namespace) -> int:
     ProtocolError
         The spec has mistakes, or a set cannot be drawn readably.
     StorageError
-        The output folder is not empty (without ``--force``) or cannot be written.
+        The output folder is not empty and not the kit's own (without ``--force``), is or holds
+        a session folder, has a link where the kit writes, or cannot be written.
     """
-    from runner.graphs.build import MANIFEST, build, prepare_output
+    from runner.graphs.build import MANIFEST, build, output_files, prepare_output
     from runner.graphs.spec import load_spec
 
     spec = load_spec(args.spec)
     out = Path(args.out)
-    prepare_output(out, Path(args.spec), force=bool(getattr(args, "force", False)))
+    target = prepare_output(out, Path(args.spec), force=bool(getattr(args, "force", False)))
 
     def show(done: int, total: int, name: str) -> None:
         print(f"[{done}/{total}] {name}", file=sys.stdout, flush=True)
 
     rows = build(spec, out, progress=None if getattr(args, "quiet", False) else show)
+    target.finish(output_files(out, rows))
     sets = sorted({str(r["set"]) for r in rows})
     print(f"Wrote {len(rows)} stimuli ({', '.join(sets)}) and {MANIFEST} to {out}.")
     return EXIT_OK

@@ -26,6 +26,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="also summarise practice trials (default: main part only)",
     )
+    parser.add_argument(
+        "--force",
+        action="store_true",
+        help="write into an existing folder that is not empty and not an earlier summary's "
+        "(never into or above a session folder)",
+    )
     parser.add_argument("--title", default=SUMMARY_TITLE, help="heading of the report")
 
 
@@ -34,7 +40,11 @@ def run(args: argparse.Namespace) -> int:
     from runner.data.summarize import summarize_sessions
 
     done = summarize_sessions(
-        args.sessions, args.out, include_practice=args.include_practice, title=args.title
+        args.sessions,
+        args.out,
+        include_practice=args.include_practice,
+        title=args.title,
+        force=args.force,
     )
     print(
         f"Summarised {done.n_sessions} session(s), {done.n_trials} trial(s), by "

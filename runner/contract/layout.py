@@ -30,7 +30,7 @@ def session_folder(out: Path, study: str, participant: str, session: str) -> Pat
 
 def is_label(text: str) -> bool:
     """Whether ``text`` is a BIDS label: letters and digits only, at least one."""
-    return bool(LABEL_RE.match(text))
+    return bool(LABEL_RE.fullmatch(text))
 
 
 def display_path(path: Path) -> str:

@@ -10,7 +10,6 @@ from __future__ import annotations
 import json
 import math
 import re
-import shutil
 from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
@@ -27,6 +26,7 @@ from runner.contract.layout import (
     display_path,
     is_label,
 )
+from runner.contract.outputs import ensure_folder, replace_file
 from runner.data.bids_rows import ROW_KINDS, TRIAL_COLUMNS, EventRows, event_rows, stim_file_name
 from runner.data.origins import SECONDS_DECIMALS, Origin, session_origin
 from runner.data.sessions import ExportSession
@@ -328,9 +328,11 @@ def write_bids_events(
     text = events_tsv(ev, origin)
     sidecar = events_sidecar(session, origin, ev)
     try:
-        tsv.parent.mkdir(parents=True, exist_ok=True)
-        tsv.write_text(text, encoding="utf-8")
-        side.write_text(json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
+        ensure_folder(Path(out), tsv.parent.relative_to(Path(out)).parts)
+        with replace_file(tsv) as fh:
+            fh.write(text)
+        with replace_file(side) as fh:
+            fh.write(json.dumps(sidecar, indent=2, ensure_ascii=False) + "\n")
     except OSError as exc:
         raise StorageError(
             f"cannot write the events files in {tsv.parent}: {exc.strerror}."
@@ -345,7 +347,8 @@ def dataset_files(out: Path, sessions: Sequence[ExportSession]) -> list[Path]:
     if not desc.exists():
         studies = sorted({s.study for s in sessions})
         version = str(sessions[0].header.get("version", "")) if sessions else ""
-        desc.write_text(
+        _write_text(
+            desc,
             json.dumps(
                 {
                     "Name": ", ".join(studies) or "trialdeck export",
@@ -356,13 +359,12 @@ def dataset_files(out: Path, sessions: Sequence[ExportSession]) -> list[Path]:
                 indent=2,
             )
             + "\n",
-            encoding="utf-8",
         )
         written.append(desc)
     ignore = out / BIDS_IGNORE
-    lines = ignore.read_text(encoding="utf-8").splitlines() if ignore.exists() else []
+    lines = ignore.read_text(encoding="utf-8").splitlines() if ignore.is_file() else []
     if POOLED_NAME not in lines:
-        ignore.write_text("\n".join([*lines, POOLED_NAME]) + "\n", encoding="utf-8")
+        _write_text(ignore, "\n".join([*lines, POOLED_NAME]) + "\n")
         written.append(ignore)
     return written
 
@@ -405,6 +407,12 @@ def copy_stimuli(
                 )
             target = dest_root / name
             target.parent.mkdir(parents=True, exist_ok=True)
-            shutil.copyfile(source, target)
+            with replace_file(target, binary=True) as fh:
+                fh.write(source.read_bytes())
             copied[name] = target
     return list(copied.values())
+
+
+def _write_text(path: Path, text: str) -> None:
+    with replace_file(path) as fh:
+        fh.write(text)

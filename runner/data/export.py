@@ -18,6 +18,7 @@ from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from runner.contract.outputs import prepare_output_folder
 from runner.data.bids import (
     DATATYPES,
     DEFAULT_DATATYPE,
@@ -64,11 +65,15 @@ from runner.data.sessions import (
 )
 from runner.errors import StorageError, UsageError
 
+#: The command an export folder's marker names.
+EXPORT_COMMAND = "trialdeck export"
+
 __all__ = [
     "BIDS_COLUMNS",
     "DATATYPES",
     "DEFAULT_DATATYPE",
     "EVENT_COLUMNS",
+    "EXPORT_COMMAND",
     "EXPORT_EVENTS",
     "ROW_COLUMNS",
     "ROW_KINDS",
@@ -124,6 +129,7 @@ def export_sessions(
     recordings: Sequence[str | Path] | None = None,
     allow_truncated: bool = False,
     workers: int | None = None,
+    force: bool = False,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -150,6 +156,10 @@ def export_sessions(
         sessions on, else none (everything in this process). Workers are forked, so only where
         the platform forks and this process runs no other thread; otherwise everything runs
         here. The files are the same either way.
+    force : bool
+        Write into an existing folder that is neither empty nor an earlier export's (see
+        :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
+        holding sessions, is refused even so).
 
     Returns
     -------
@@ -159,6 +169,9 @@ def export_sessions(
     ------
     UsageError
         Bad labels or datatype, or a recording count that differs from the session count.
+    OutputRefused
+        The folder is not empty and not an earlier export's (without ``force``), is or holds a
+        session folder, or has a link where a file goes.
     InputFileError, JournalError, RecordingError, StorageError
         See :func:`load_sessions`, :func:`recording_origin` and the writers.
     """
@@ -173,12 +186,7 @@ def export_sessions(
             f"{len(recordings)} recording(s) were given for {len(folders)} session(s); give "
             "one --recording per session, in the same order as the session folders."
         )
-    if out.exists() and not out.is_dir():
-        raise StorageError(f"{out} is a file; give a folder for the export.")
-    try:
-        out.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise StorageError(f"cannot create the export folder {out}: {exc.strerror}.") from None
+    target = prepare_output_folder(out, EXPORT_COMMAND, force=force, what="export")
     sessions: list[ExportSession] = []
     origins: list[Origin] = []
     events: list[tuple[Path, Path]] = []
@@ -199,6 +207,7 @@ def export_sessions(
         others = dataset_files(out, sessions)
     except OSError as exc:
         raise StorageError(f"cannot write the dataset files in {out}: {exc.strerror}.") from None
+    target.finish([pooled, *others, *(p for pair in events for p in pair)])
     return ExportResult(
         pooled=pooled,
         events=events,

@@ -24,6 +24,8 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import LinearSegmentedColormap, to_rgb
 from matplotlib.figure import Figure
 
+from runner.contract.outputs import replace_file
+
 # Outcome colours: deep blue, burnt orange, light grey, pale sand (see the module docstring).
 OUTCOME_COLOURS = {
     "correct": "#2E6B9E",
@@ -363,6 +365,8 @@ def save_png(fig: Figure, path: Path) -> Path:
         ``path``.
     """
     path = Path(path)
-    fig.savefig(path, format="png", dpi=DPI, metadata={"Software": None})
+    # Written beside the target and renamed over it: a link at ``path`` is never written through.
+    with replace_file(path, binary=True) as fh:
+        fig.savefig(fh, format="png", dpi=DPI, metadata={"Software": None})
     fig.clear()
     return path

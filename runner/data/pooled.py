@@ -9,7 +9,6 @@ completion counts, as in the per-session table.
 from __future__ import annotations
 
 import csv
-import os
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -26,7 +25,7 @@ from runner.contract.columns import (
     TIME_SUFFIX,
 )
 from runner.contract.events import VALUES_FIELD
-from runner.contract.layout import TMP_SUFFIX
+from runner.contract.outputs import replace_file
 from runner.data.sessions import ExportSession
 from runner.errors import InputFileError, StorageError
 from runner.protocol.model import BlocksStep
@@ -92,10 +91,9 @@ def write_pooled_trials(sessions: Sequence[ExportSession], path: str | Path) -> 
     """
     path = Path(path)
     cols, rows = pooled_rows(sessions)
-    tmp = path.with_name(path.name + TMP_SUFFIX)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        with open(tmp, "w", encoding="utf-8", newline="") as fh:
+        with replace_file(path) as fh:
             writer = csv.writer(fh, lineterminator="\n")
             writer.writerow(cols)
             # Text is most cells and stays as it is; csv_cell formats the rest.
@@ -106,7 +104,6 @@ def write_pooled_trials(sessions: Sequence[ExportSession], path: str | Path) -> 
                 ]
                 for row in rows
             )
-        os.replace(tmp, path)
     except OSError as exc:
         raise StorageError(f"cannot write {path}: {exc.strerror or exc}.") from None
     return path

@@ -38,6 +38,7 @@ def summarize_sessions(
     sessions: Sequence[ExportSession] | None = None,
     include_practice: bool = False,
     title: str = "Pilot summary",
+    force: bool = False,
 ) -> SummaryResult:
     """Summarise sessions: read them from ``paths``, or take ``sessions`` already read.
 
@@ -52,7 +53,7 @@ def summarize_sessions(
     sessions : sequence of ExportSession, optional
         Sessions an export read in the same run (:attr:`runner.data.export.ExportResult.sessions`):
         their journals are not read again.
-    include_practice, title
+    include_practice, title, force
         See :func:`write_summary`.
 
     Raises
@@ -82,5 +83,6 @@ def summarize_sessions(
         include_practice=include_practice,
         level_order=level_orders(sessions),
         title=title,
+        force=force,
     )
     return SummaryResult(len(sessions), len(trials), factors, written)

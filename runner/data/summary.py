@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from runner.contract.columns import CONTRACT_COLUMNS, PILOT_COLUMNS
+from runner.contract.outputs import prepare_output_folder, replace_file
 from runner.data import plots
 from runner.data.stats import difficulty_scores, mean_ci
 from runner.data.summary_report import CEILING_SHARE, FLOOR_SHARE, OUTCOMES, build_report
@@ -37,6 +38,8 @@ DEFAULT_RATING_POINTS = 9
 MAIN_PART = "main"
 
 # The trials.csv columns the summary reads (see runner.session.records).
+#: The command a summary folder's marker names.
+SUMMARY_COMMAND = "trialdeck summary"
 TRIAL_COLUMNS = (*CONTRACT_COLUMNS, "part", "outcome", "rating_rt_ms", "timed_out")
 REQUIRED_FOR_SUMMARY = ("participant", "session", "stimulus", "outcome", "rt_ms", "rating", "part")
 SESSION_COLUMNS = ("participant", "session", "started_wall", "duration_s", "n_trials", "aborted")
@@ -368,7 +371,14 @@ def _file_stem(factor: str) -> str:
 
 
 def _write_csv(table: pd.DataFrame, path: Path, written: list[Path], **kwargs: Any) -> None:
-    table.to_csv(path, na_rep="n/a", lineterminator="\n", **kwargs)
+    with replace_file(path) as fh:
+        table.to_csv(fh, na_rep="n/a", lineterminator="\n", **kwargs)
+    written.append(path)
+
+
+def _write_text(path: Path, text: str, written: list[Path]) -> None:
+    with replace_file(path) as fh:
+        fh.write(text)
     written.append(path)
 
 
@@ -382,6 +392,7 @@ def write_summary(
     include_practice: bool = False,
     level_order: Mapping[str, Sequence[Any]] | None = None,
     title: str = "Pilot summary",
+    force: bool = False,
 ) -> list[Path]:
     """Write summary CSV tables, PNG plots and one self-contained ``report.html``.
 
@@ -410,6 +421,10 @@ def write_summary(
         Level order per factor, for example ``{"density": ["sparse", "medium", "dense"]}``.
     title : str, optional
         Heading of the report.
+    force : bool, optional
+        Write into an existing folder that is neither empty nor an earlier summary's (see
+        :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
+        holding sessions, is refused even so). An earlier summary's files are removed first.
 
     Returns
     -------
@@ -420,6 +435,9 @@ def write_summary(
     ------
     InputFileError
         If a column is missing, no trials are left to summarise, or a value is out of range.
+    OutputRefused
+        The folder is not empty and not an earlier summary's (without ``force``), or is or holds
+        a session folder.
     StorageError
         If ``out_dir`` cannot be written.
     """
@@ -438,17 +456,11 @@ def write_summary(
     _ratings(data, rating_points)
 
     out_dir = Path(out_dir)
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise StorageError(
-            f"Cannot create the summary folder {str(out_dir)!r} ({exc.strerror}); choose a folder "
-            "you can write to."
-        ) from exc
+    target = prepare_output_folder(out_dir, SUMMARY_COMMAND, force=force, what="summary")
 
     written: list[Path] = []
     try:
-        return _write_all(
+        _write_all(
             data,
             sessions,
             out_dir,
@@ -465,6 +477,9 @@ def write_summary(
             f"Cannot write the summary into {str(out_dir)!r} ({exc.strerror}); check the disk "
             "space and permissions of that folder."
         ) from exc
+    finally:
+        target.finish(written)
+    return written
 
 
 def _write_all(
@@ -503,12 +518,11 @@ def _write_all(
 
     facts = pilot_facts(data, sessions, factors=factors, rating_points=rating_points)
     facts["n_practice_excluded"] = 0 if include_practice else n_practice
-    facts_path = out_dir / "facts.json"
-    facts_path.write_text(
+    _write_text(
+        out_dir / "facts.json",
         json.dumps(facts, indent=2, sort_keys=True, default=_plain, allow_nan=False) + "\n",
-        encoding="utf-8",
+        written,
     )
-    written.append(facts_path)
 
     figures: dict[str, list[Path]] = {}
     for factor in factors:
@@ -552,7 +566,5 @@ def _write_all(
         n_practice=n_practice,
         rating_points=rating_points,
     )
-    report_path = out_dir / "report.html"
-    report_path.write_text(html, encoding="utf-8")
-    written.append(report_path)
+    _write_text(out_dir / "report.html", html, written)
     return written

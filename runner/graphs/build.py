@@ -11,6 +11,8 @@ from __future__ import annotations
 import csv
 import hashlib
 import math
+import os
+import stat
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
@@ -18,6 +20,14 @@ from pathlib import Path
 import networkx as nx
 import numpy as np
 
+from runner.contract.outputs import (
+    OutputFolder,
+    OutputRefused,
+    ensure_folder,
+    prepare_output_folder,
+    remove_file,
+    replace_file,
+)
 from runner.errors import Problem, ProtocolError, StorageError
 from runner.graphs.families import make_graph
 from runner.graphs.geometry import (
@@ -455,7 +465,8 @@ def write_graphml(stim: Stimulus, spec: StimulusSpec, path: Path) -> None:
         )
     g.add_edges_from(links_array(stim.graph).tolist())
     try:
-        nx.write_graphml(g, path)
+        with replace_file(path, binary=True) as fh:
+            nx.write_graphml(g, fh)
     except OSError as exc:
         raise StorageError(f"Cannot write {path}: {exc.strerror or exc}.") from exc
 
@@ -471,7 +482,7 @@ def write_manifest(rows: list[dict[str, object]], path: Path) -> None:
         Destination file.
     """
     try:
-        with open(path, "w", newline="", encoding="utf-8") as fh:
+        with replace_file(path) as fh:
             writer = csv.DictWriter(fh, fieldnames=MANIFEST_COLUMNS, lineterminator="\n")
             writer.writeheader()
             writer.writerows(rows)
@@ -507,12 +518,13 @@ def build(
     """
     out = Path(out)
     try:
-        (out / IMAGES_DIR).mkdir(parents=True, exist_ok=True)
-        (out / GRAPHML_DIR).mkdir(parents=True, exist_ok=True)
+        out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StorageError(
             f"Cannot create the output folder {out}: {exc.strerror or exc}."
         ) from exc
+    ensure_folder(out, (IMAGES_DIR,))  # a link there is refused: nothing is written through it
+    ensure_folder(out, (GRAPHML_DIR,))
     cells = plan(spec)
     rows = []
     for i, cell in enumerate(cells, start=1):
@@ -523,22 +535,41 @@ def build(
     return rows
 
 
-# Files the kit writes; --force removes only these, so a spec kept in the folder survives.
-OWN_PATTERNS = ((IMAGES_DIR, "*.png"), (IMAGES_DIR, "*.svg"), (GRAPHML_DIR, "*.graphml"))
+#: The command a stimuli folder's marker names.
+STIMULI_COMMAND = "trialdeck stimuli"
+# Files the kit writes; in a folder without the kit's marker (made before markers existed),
+# --force removes only these, so a spec kept in the folder survives.
+OWN_PATTERNS = ((IMAGES_DIR, ".png"), (IMAGES_DIR, ".svg"), (GRAPHML_DIR, ".graphml"))
 
 
-def _own_files(out: Path) -> list[Path]:
-    found = [out / MANIFEST] if (out / MANIFEST).exists() else []
-    for folder, pattern in OWN_PATTERNS:
-        found += sorted((out / folder).glob(pattern))
-    return found
+def _remove_kit_files(out: Path) -> None:
+    """Remove the kit's files from ``out`` without following a link (a linked folder is refused)."""
+    remove_file(out, (MANIFEST,))
+    for folder, suffix in OWN_PATTERNS:
+        path = out / folder
+        try:
+            st = os.lstat(path)
+        except FileNotFoundError:
+            continue
+        if stat.S_ISLNK(st.st_mode) or not stat.S_ISDIR(st.st_mode):
+            raise OutputRefused(
+                "link",
+                f"{path} is a symbolic link or a file, not a folder; trialdeck neither deletes "
+                "nor writes through links. Remove it, or choose a new output folder.",
+            )
+        for entry in os.scandir(path):
+            if entry.name.endswith(suffix) and not entry.is_dir(follow_symlinks=False):
+                os.unlink(entry.path)  # a link is removed itself, never its target
 
 
-def prepare_output(out: Path, spec_path: Path, *, force: bool) -> None:
-    """Refuse a non-empty output folder unless ``force``; with it, remove earlier kit output.
+def prepare_output(out: Path, spec_path: Path, *, force: bool) -> OutputFolder:
+    """Check that stimuli may be written into ``out`` and clear the kit's earlier output there.
 
-    The spec file itself may live in the output folder (as the demo's does); it is never
-    counted as existing output and never removed.
+    The rules are those of every writer (:func:`runner.contract.outputs.prepare_output_folder`):
+    a folder the kit made (its marker) is re-written after removing the files it listed; another
+    non-empty folder is refused unless ``force``, and then only the kit's own kinds of file
+    (manifest, images, GraphML) are removed. The spec file itself may live in the output folder
+    (as the demo's does); it is never counted as existing output and never removed.
 
     Parameters
     ----------
@@ -547,23 +578,43 @@ def prepare_output(out: Path, spec_path: Path, *, force: bool) -> None:
     spec_path : pathlib.Path
         The spec being built.
     force : bool
-        Whether earlier output may be replaced.
+        Whether a folder the kit did not mark may be written.
+
+    Returns
+    -------
+    OutputFolder
+        Call its ``finish`` with the files written.
+
+    Raises
+    ------
+    OutputRefused
+        Not empty (without ``force``), a session folder, or a link where the kit writes.
+    StorageError
+        The earlier output cannot be removed.
     """
-    if not out.exists():
-        return
-    if not out.is_dir():
-        raise StorageError(f"The output path {out} is a file, not a folder; choose a folder.")
-    spec_resolved = spec_path.resolve()
-    others = [p for p in out.iterdir() if p.resolve() != spec_resolved]
-    if not others:
-        return
-    if not force:
-        raise StorageError(
-            f"The output folder {out} is not empty; choose a new folder, or add --force to "
-            "replace the images, GraphML files and manifest made there before."
-        )
-    try:
-        for p in _own_files(out):
-            p.unlink()
-    except OSError as exc:
-        raise StorageError(f"Cannot remove the earlier output in {out}: {exc}.") from exc
+    target = prepare_output_folder(
+        out, STIMULI_COMMAND, force=force, keep=[spec_path], what="stimuli"
+    )
+    if not target.owned:
+        try:
+            _remove_kit_files(out)
+        except OSError as exc:
+            raise StorageError(f"Cannot remove the earlier output in {out}: {exc}.") from exc
+    for folder in (IMAGES_DIR, GRAPHML_DIR):
+        if os.path.islink(out / folder):
+            raise OutputRefused(
+                "link",
+                f"{out / folder} is a symbolic link; trialdeck neither deletes nor writes through "
+                "links. Remove it, or choose a new output folder.",
+            )
+    return target
+
+
+def output_files(out: Path, rows: list[dict[str, object]]) -> list[Path]:
+    """Every file :func:`build` wrote for ``rows`` (images, GraphML, manifest)."""
+    files = [out / MANIFEST]
+    for row in rows:
+        for key in ("stimulus", "svg", "graphml"):
+            if row.get(key):
+                files.append(out / str(row[key]))
+    return files

@@ -18,6 +18,7 @@ from matplotlib.collections import LineCollection
 from matplotlib.figure import Figure
 from PIL import Image
 
+from runner.contract.outputs import replace_file
 from runner.errors import StorageError
 
 # Drawing is done at 100 dots per inch so one point is 100/72 pixels.
@@ -222,7 +223,8 @@ def write_png(image: Image.Image, path: Path) -> None:
         Destination file.
     """
     try:
-        image.save(path, format="PNG", optimize=True)
+        with replace_file(path, binary=True) as fh:  # never written through a link
+            image.save(fh, format="PNG", optimize=True)
     except OSError as exc:
         raise StorageError(f"Cannot write the image {path}: {exc.strerror or exc}.") from exc
 
@@ -238,9 +240,12 @@ def write_svg(fig: Figure, path: Path) -> None:
         Destination file.
     """
     try:
-        with matplotlib.rc_context({"svg.hashsalt": SVG_HASH_SALT}):
+        with (
+            matplotlib.rc_context({"svg.hashsalt": SVG_HASH_SALT}),
+            replace_file(path, binary=True) as fh,
+        ):
             fig.savefig(
-                path, format="svg", dpi=DPI, facecolor=fig.get_facecolor(), metadata={"Date": None}
+                fh, format="svg", dpi=DPI, facecolor=fig.get_facecolor(), metadata={"Date": None}
             )
     except OSError as exc:
         raise StorageError(f"Cannot write the image {path}: {exc.strerror or exc}.") from exc

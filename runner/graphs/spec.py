@@ -185,7 +185,7 @@ class _Reader:
 
     def colour(self, node: yaml.Node, path: str) -> str | None:
         v = self.value(node)
-        if not isinstance(v, str) or not COLOUR_RE.match(v):
+        if not isinstance(v, str) or not COLOUR_RE.fullmatch(v):
             self.error(
                 node,
                 path,
@@ -197,7 +197,7 @@ class _Reader:
 
     def name(self, node: yaml.Node, path: str) -> str | None:
         v = self.value(node)
-        if not isinstance(v, str) or not NAME_RE.match(v):
+        if not isinstance(v, str) or not NAME_RE.fullmatch(v):
             self.error(
                 node,
                 path,

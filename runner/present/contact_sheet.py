@@ -11,6 +11,7 @@ from pathlib import Path
 
 import pygame
 
+from runner.contract.outputs import replace_file
 from runner.errors import InputFileError
 
 SHEET_COLUMNS = 10
@@ -62,7 +63,8 @@ class ContactSheet:
             sheet.blit(thumb, (x, y))
             sheet.blit(text, (x, y + self.th + 2))
         out.parent.mkdir(parents=True, exist_ok=True)
-        pygame.image.save(sheet, str(out))
+        with replace_file(out, binary=True) as fh:  # never written through a link
+            pygame.image.save(sheet, fh, out.name)
         return out
 
 

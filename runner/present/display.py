@@ -37,6 +37,7 @@ from typing import Any
 
 import pygame
 
+from runner.contract.outputs import replace_file
 from runner.errors import DisplayError
 from runner.present.images import ImageCache
 from runner.present.painter import Painter, Style
@@ -389,7 +390,8 @@ class Display:
         assert self.frames_dir is not None
         self.frames_dir.mkdir(parents=True, exist_ok=True)
         path = self.frames_dir / f"{len(self.frames_written) + 1:05d}-{type(view).__name__}.png"
-        pygame.image.save(self.canvas, str(path))
+        with replace_file(path, binary=True) as fh:  # never written through a link
+            pygame.image.save(self.canvas, fh, path.name)
         self.frames_written.append(path)
         self._last_saved = view
         return path

@@ -29,7 +29,10 @@ from runner.session.views import (
     RatingView,
     StimulusView,
     View,
+    answer_box_rect,
+    answer_box_size,
     fixation_rects,
+    hint_top,
     photodiode_rect,
 )
 
@@ -252,14 +255,17 @@ class Painter:
         self._last = None
 
     def _answer_box(self, image_rect: pygame.Rect) -> pygame.Rect:
-        # The answer box sits between the stimulus and the hint line when there is room, else
-        # over the stimulus's lower edge; it never covers the hint.
-        bw, bh = round(self.style.font_px * 5), round(self.style.font_px * 2.4)
-        hint_top = round(self.size[1] * (1 - HINT_MARGIN_FRACTION)) - self.small.get_linesize()
-        below = hint_top - image_rect.bottom
-        cy = image_rect.bottom + below // 2 if below > bh + 10 else image_rect.bottom - bh
+        # Outside the stimulus: below it when there is room above the hint line, else beside
+        # it (runner.session.views.answer_box_rect, the rule `check` applies too). Only when
+        # it fits nowhere (a protocol `check` refuses) does it sit over the stimulus's lower edge.
+        bw, bh = answer_box_size(self.style.font_px)
+        top = hint_top(self.size, self.style.font_px, self.small.get_linesize())
+        image = (image_rect.x, image_rect.y, image_rect.width, image_rect.height)
+        placed = answer_box_rect(self.size, image, (bw, bh), top)
+        if placed is not None:
+            return pygame.Rect(placed)
         box = pygame.Rect(0, 0, bw, bh)
-        box.center = (self.size[0] // 2, cy)
+        box.center = (self.size[0] // 2, min(image_rect.bottom, top) - bh // 2)
         return box
 
     def _redraw_answer_box(self, surf: pygame.Surface, view: StimulusView) -> None:

@@ -271,6 +271,7 @@ def check_protocol(
     *,
     participants: int | None = None,
     cache: LuminanceCache | None = None,
+    loaded: LoadedProtocol | None = None,
 ) -> CheckReport:
     """Check a protocol; problems are returned, not raised (the CLI decides the exit code).
 
@@ -283,6 +284,8 @@ def check_protocol(
         1..N, as participant labels ``P01``, ``P02``, ... are).
     cache
         Image statistics shared between checks (each file content is decoded once).
+    loaded
+        The protocol at ``path`` already loaded (``pilot`` and ``run`` check what they run).
 
     Returns
     -------
@@ -299,7 +302,7 @@ def check_protocol(
     path = Path(path)
     report = CheckReport()
     try:
-        loaded = load_protocol(path)
+        loaded = loaded if loaded is not None else load_protocol(path)
     except ProtocolError as exc:
         report.problems.extend(exc.problems)
         return report
@@ -317,6 +320,21 @@ def check_protocol(
     checker = _Checker(loaded, schedule, report, cache if cache is not None else LuminanceCache())
     checker.run(participants)
     return report
+
+
+def refuse_check_errors(path: Path | str, loaded: LoadedProtocol) -> None:
+    """Raise the errors ``trialdeck check`` finds in ``loaded`` (read from ``path``), so that
+    ``pilot`` and ``run`` start exactly what ``check`` passes (warnings are not raised).
+
+    Raises
+    ------
+    ProtocolError
+        With every error-level problem of the check (for example unacknowledged flashing).
+    """
+    report = check_protocol(path, loaded=loaded)
+    errors = [p for p in report.problems if p.severity == "error"]
+    if errors:
+        raise ProtocolError(errors)
 
 
 class _Checker:

@@ -13,7 +13,14 @@ from pathlib import Path
 from pydantic import ValidationError
 
 from runner.contract.layout import display_path
-from runner.errors import Problem, ProtocolError
+from runner.errors import InputFileError, Problem, ProtocolError
+from runner.protocol.files import (
+    FileProblem,
+    check_image,
+    read_regular,
+    real_path,
+    regular_file,
+)
 from runner.protocol.model import (
     BlocksStep,
     PageStep,
@@ -23,8 +30,10 @@ from runner.protocol.model import (
     Where,
 )
 from runner.protocol.report import problem_at, problems_from_validation, where_miss_message
+from runner.protocol.sizes import stimulus_box
 from runner.protocol.table import TrialRow, TrialTable, read_trial_table
-from runner.protocol.yamlsafe import YamlDoc, read_yaml
+from runner.protocol.yamlsafe import MAX_YAML_BYTES, YamlDoc, read_yaml
+from runner.session.views import answer_box_rect, answer_box_size, answer_fit_limits, hint_top
 
 MAX_PAGE_BYTES = 256 * 1024
 CONTROL_LIMIT = 0x20  # characters below this (NUL, tab, newline ...) never belong in a path
@@ -79,6 +88,44 @@ def _same(have: str, want: object) -> bool:
     return have == str(want)
 
 
+def answer_covers(model: Protocol, images: list[tuple[TrialRow, int, int]]) -> str:
+    """Why the answer box of 'over' mode would cover a stimulus, or "" when it never does.
+
+    ``images`` are the stimuli as ``(row, width, height)`` in pixels; each is scaled into the
+    stimulus box and centred as the presenter shows it, and the box must fit below or beside it
+    (:func:`runner.session.views.answer_box_rect`).
+    """
+    size = model.screen.resolution
+    box = answer_box_size(model.screen.font_px)
+    top = hint_top(size, model.screen.font_px)
+    area = stimulus_box(model)
+    bad: list[tuple[TrialRow, int, int]] = []
+    for row, w, h in images:
+        iw, ih = fit_within(w, h, *area)
+        rect = (size[0] // 2 - iw // 2, size[1] // 2 - ih // 2, iw, ih)
+        if answer_box_rect(size, rect, box, top) is None:
+            bad.append((row, iw, ih))
+    if not bad:
+        return ""
+    row, iw, ih = bad[0]
+    max_h, max_w = answer_fit_limits(size, box, top)
+    others = f" (and {len(bad) - 1} more stimuli)" if len(bad) > 1 else ""
+    return (
+        f"'over' needs room below or beside each stimulus for the answer box ({box[0]}x{box[1]} "
+        f"px), but {row.stimulus!r}{others}, shown {iw}x{ih} px on the {size[0]}x{size[1]} "
+        f"screen, leaves none, so the box would cover it. The box fits below a stimulus at most "
+        f"{max_h} px high or beside one at most {max_w} px wide; make "
+        "stimulus_size smaller (or screen.font_px), or use answer.mode: after"
+    )
+
+
+def fit_within(w: int, h: int, box_w: int, box_h: int) -> tuple[int, int]:
+    """Largest size with the aspect ratio of (w, h) that fits in (box_w, box_h), as the
+    presenter scales stimuli (runner.present.images.fit_within)."""
+    scale = min(box_w / w, box_h / h)
+    return max(1, round(w * scale)), max(1, round(h * scale))
+
+
 def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProtocol:
     """Read, validate and cross-check a protocol.
 
@@ -96,8 +143,20 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     """
     path = Path(path)
     name = display_name(path)
+    try:
+        # Before opening: a FIFO would block, /dev/zero would read without end.
+        regular_file(path, "protocol file")
+    except FileProblem as exc:
+        if exc.code == "missing-file":
+            raise InputFileError(
+                f"The protocol file {name!r} does not exist; check the path and the spelling."
+            ) from None
+        raise InputFileError(f"{name}: {exc.message}; name the protocol's .yaml file.") from None
     doc = read_yaml(path)
-    raw = path.read_bytes()
+    try:
+        raw = read_regular(path, "protocol file", MAX_YAML_BYTES)
+    except FileProblem as exc:
+        raise InputFileError(f"{name}: {exc.message}.") from None
     try:
         model = Protocol.model_validate(doc.data)
     except ValidationError as exc:
@@ -110,7 +169,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     def at(loc: tuple[str | int, ...], message: str, *, code: str) -> None:
         problems.append(problem_at(doc, name, loc, message, code=code))
 
-    table_path = (path.parent / model.trials.table).resolve()
+    table_path = real_path(path.parent / model.trials.table)
     table, table_problems = read_trial_table(table_path, display_name=display_name(table_path))
     if table is None:
         if table_problems and table_problems[0].line == 0 and not table_path.exists():
@@ -145,9 +204,9 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     for i, step in enumerate(model.sequence):
         if isinstance(step, PageStep):
             if step.page.file is not None:
-                page_path = (path.parent / step.page.file).resolve()
+                page_path = real_path(path.parent / step.page.file)
                 if not model.trials.allow_outside and not page_path.is_relative_to(
-                    path.parent.resolve()
+                    real_path(path.parent)
                 ):
                     at(
                         ("sequence", i, "page", "file"),
@@ -157,21 +216,18 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                     )
                     continue
                 try:
-                    data = page_path.read_bytes()
-                    if len(data) > MAX_PAGE_BYTES:
-                        raise ValueError
-                    pages[i] = data.decode("utf-8")
-                except FileNotFoundError:
+                    pages[i] = read_regular(page_path, "page file", MAX_PAGE_BYTES).decode("utf-8")
+                except FileProblem as exc:
                     at(
                         ("sequence", i, "page", "file"),
-                        f"the page file {step.page.file!r} does not exist",
-                        code="missing-file",
+                        f"{exc.message} ({step.page.file!r})",
+                        code=exc.code,
                     )
-                except (OSError, ValueError):
+                except UnicodeDecodeError:
                     at(
                         ("sequence", i, "page", "file"),
-                        f"the page file {step.page.file!r} is not readable UTF-8 text under 256 kB",
-                        code="unreadable-file",
+                        f"the page file {step.page.file!r} is not UTF-8 text",
+                        code="not-utf8",
                     )
             else:
                 pages[i] = step.page.text or ""
@@ -199,6 +255,21 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 need_column(("sequence", i, kind, "max_run", col), col, "column")
             if isinstance(step, BlocksStep):
                 need_column(("sequence", i, "blocks", "by"), step.blocks.by, "block factor")
+                if step.blocks.by in columns and all(col in columns for col in spec.where):
+                    for row in select_rows(table, spec.where):
+                        if not row.value(step.blocks.by).strip():
+                            problems.append(
+                                Problem(
+                                    "error",
+                                    display_name(table_path),
+                                    row.line,
+                                    1,
+                                    f"row {row.row} has no value in the block factor "
+                                    f"{step.blocks.by!r}, so it would make a block of its own; "
+                                    "fill it in or leave the row out with 'where'",
+                                    code="empty-factor-cell",
+                                )
+                            )
                 if step.blocks.order == "fixed" and not step.blocks.levels:
                     at(
                         ("sequence", i, "blocks", "levels"),
@@ -216,6 +287,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                             code="bad-levels",
                         )
 
+    shown: dict[Path, tuple[TrialRow, int, int]] = {}
     for row in table.rows:
         if row.expected is not None and row.expected > model.answer.max:
             problems.append(
@@ -243,7 +315,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                 )
                 continue
             stim = table.stimulus_path(row)
-            if not model.trials.allow_outside and not stim.is_relative_to(path.parent.resolve()):
+            if not model.trials.allow_outside and not stim.is_relative_to(real_path(path.parent)):
                 problems.append(
                     Problem(
                         "error",
@@ -255,17 +327,25 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
                         code="outside-folder",
                     )
                 )
-            elif not stim.is_file():
-                problems.append(
-                    Problem(
-                        "error",
-                        display_name(table_path),
-                        row.line,
-                        1,
-                        f"stimulus file {row.stimulus!r} does not exist (looked for {stim})",
-                        code="missing-file",
+            else:
+                try:
+                    info = check_image(stim)
+                    shown.setdefault(stim, (row, info.width, info.height))
+                except FileProblem as exc:
+                    problems.append(
+                        Problem(
+                            "error",
+                            display_name(table_path),
+                            row.line,
+                            1,
+                            f"stimulus {row.stimulus!r}: {exc.message} (looked for {stim})",
+                            code=exc.code,
+                        )
                     )
-                )
+    if model.answer.mode == "over" and shown:
+        covered = answer_covers(model, [(r, w, h) for r, w, h in shown.values()])
+        if covered:
+            at(("answer", "mode"), covered, code="answer-covers-stimulus")
     if problems:
         raise ProtocolError(problems)
 
@@ -276,7 +356,7 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
     for i in sorted(pages):
         digest.update(pages[i].encode("utf-8"))
     return LoadedProtocol(
-        path=path.resolve(),
+        path=real_path(path),
         model=model,
         table=table,
         raw=raw,

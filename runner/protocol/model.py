@@ -50,7 +50,7 @@ class Strict(BaseModel):
 
 
 def _colour(value: str) -> str:
-    if not isinstance(value, str) or not COLOUR_RE.match(value):
+    if not isinstance(value, str) or not COLOUR_RE.fullmatch(value):
         raise ValueError("expected a colour written '#rrggbb' or '#rgb', like '#808080'")
     return value.lower()
 

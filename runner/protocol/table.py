@@ -13,9 +13,11 @@ from pathlib import Path
 
 from runner.contract.columns import RESERVED_TABLE_COLUMNS, TABLE_REQUIRED
 from runner.errors import Problem
+from runner.protocol.files import FileProblem, read_regular, real_path
 
 MAX_TABLE_BYTES = 20 * 1024 * 1024
 MAX_TABLE_ROWS = 100_000
+MAX_EXPECTED_DIGITS = 9  # a count of a billion or more is a typing slip
 REQUIRED_COLUMNS = TABLE_REQUIRED
 # Every name trialdeck writes itself into trials.csv, the pooled table or events.tsv: a table
 # column of that name would be shadowed or lost (runner.contract.columns).
@@ -49,7 +51,14 @@ class TrialTable:
 
     def stimulus_path(self, row: TrialRow) -> Path:
         """Absolute path of a row's stimulus (paths in the table are relative to the table)."""
-        return (self.path.parent / row.stimulus).resolve()
+        return real_path(self.path.parent / row.stimulus)
+
+
+def _short(text: str, limit: int = 40) -> str:
+    """``text`` quoted, shortened to ``limit`` characters for a problem line."""
+    return (
+        repr(text) if len(text) <= limit else repr(text[:limit]) + f"... ({len(text)} characters)"
+    )
 
 
 def _field_columns(line_text: str) -> list[int]:
@@ -75,33 +84,9 @@ def read_trial_table(
         problems.append(Problem("error", name, line, col, msg, code=code))
 
     try:
-        raw = path.read_bytes()
-    except FileNotFoundError:
-        return None, [
-            Problem("error", name, 0, 0, "the trial table does not exist", code="missing-file")
-        ]
-    except OSError as exc:
-        return None, [
-            Problem(
-                "error",
-                name,
-                0,
-                0,
-                f"the trial table cannot be read ({exc.strerror})",
-                code="unreadable-file",
-            )
-        ]
-    if len(raw) > MAX_TABLE_BYTES:
-        return None, [
-            Problem(
-                "error",
-                name,
-                0,
-                0,
-                f"the trial table is larger than {MAX_TABLE_BYTES // 2**20} MB",
-                code="file-too-large",
-            )
-        ]
+        raw = read_regular(path, "trial table", MAX_TABLE_BYTES)
+    except FileProblem as exc:
+        return None, [Problem("error", name, 0, 0, exc.message, code=exc.code)]
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -122,6 +107,21 @@ def read_trial_table(
         ]
     header = [h.strip() for h in header]
     header_cols = _field_columns(lines[0])
+    if TABLE_REQUIRED[0] not in header or TABLE_REQUIRED[1] not in header:
+        for sep, called in ((";", "semicolons"), ("\t", "tabs")):
+            if len(header) == 1 and sep in header[0]:
+                return None, [
+                    Problem(
+                        "error",
+                        name,
+                        1,
+                        header[0].index(sep) + 1,
+                        f"the trial table separates its fields with {called}; trialdeck reads "
+                        "comma-separated tables, so save it as CSV with commas (in a "
+                        "spreadsheet: CSV, comma as the field separator)",
+                        code="wrong-delimiter",
+                    )
+                ]
     seen: dict[str, int] = {}
     for i, col in enumerate(header):
         c = header_cols[i] if i < len(header_cols) else 1
@@ -151,12 +151,27 @@ def read_trial_table(
 
     rows: list[TrialRow] = []
     try:
+        start = reader.line_num + 1
         for record in reader:
-            line_no = reader.line_num
+            line_no, opened, start = start, reader.line_num, reader.line_num + 1
             if not any(f.strip() for f in record):
                 continue
             line_text = lines[line_no - 1] if line_no - 1 < len(lines) else ""
             cols = _field_columns(line_text)
+            if opened != line_no:
+                # A field holds line breaks: a quote that is never closed on its line swallows
+                # the rows after it (no trial table needs a line break inside a field).
+                i = next(k for k, f in enumerate(record) if "\n" in f or "\r" in f)
+                quote = line_text.find('"')
+                err(
+                    line_no,
+                    quote + 1 if quote >= 0 else (cols[i] if i < len(cols) else 1),
+                    f"a quoted field opens here and runs to line {opened}, swallowing "
+                    f"{opened - line_no} line(s) of rows; remove the stray quote (or close it "
+                    "on this line)",
+                    code="stray-quote",
+                )
+                continue
             if len(record) != len(header):
                 err(
                     line_no,
@@ -177,6 +192,15 @@ def read_trial_table(
                 )
                 continue
             expected: int | None = None
+            if len(exp_text) > MAX_EXPECTED_DIGITS and exp_text.isdigit():
+                err(
+                    line_no,
+                    cols[seen["expected"]],
+                    f"expected has {len(exp_text)} digits; a count has at most "
+                    f"{MAX_EXPECTED_DIGITS}",
+                    code="bad-expected",
+                )
+                continue
             if exp_text:
                 try:
                     expected = int(exp_text)
@@ -184,7 +208,7 @@ def read_trial_table(
                     err(
                         line_no,
                         cols[seen["expected"]],
-                        f"expected must be a whole number or empty, got {exp_text!r}",
+                        f"expected must be a whole number or empty, got {_short(exp_text)}",
                         code="bad-expected",
                     )
                     continue

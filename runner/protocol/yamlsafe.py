@@ -479,6 +479,19 @@ class _Builder:
         return str(node.value)
 
     def _scalar(self, node: ScalarNode) -> object:
+        try:
+            return self._scalar_value(node)
+        except ValueError:  # a whole number longer than Python converts (4300 digits)
+            text = str(node.value)
+            self._add(
+                node,
+                f"The number {text[:12]}... has {len(text)} digits; no setting takes a number "
+                "that long.",
+                code="out-of-range",
+            )
+            return None
+
+    def _scalar_value(self, node: ScalarNode) -> object:
         text = str(node.value)
         tag = node.tag
         if tag == _STR_TAG:

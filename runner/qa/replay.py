@@ -36,6 +36,7 @@ from typing import TYPE_CHECKING, Any
 
 from runner.contract.hashing import HashCache
 from runner.contract.layout import FROZEN_PROTOCOL, JOURNAL_NAME
+from runner.contract.outputs import replace_file
 from runner.errors import InputFileError, ProtocolError
 from runner.journal.frozen import frozen_file_text, frozen_protocol, frozen_text
 from runner.journal.read import verify_chain
@@ -452,7 +453,8 @@ def write_png(path: Path, rgb: bytes, size: tuple[int, int], *, level: int = PNG
         + chunk(b"IEND", b"")
     )
     try:
-        path.write_bytes(data)
+        with replace_file(path, binary=True) as fh:  # never written through a link
+            fh.write(data)
     except OSError as exc:
         raise InputFileError(f"the frame {path} cannot be written: {exc.strerror}.") from None
     return path

@@ -469,7 +469,7 @@ class Engine:
                 self.show(BreakView(item.text, shown), "break-tick")
             self.watch_recorder(self.clock())
             self.key(frozenset(), min(self.clock() + 0.25, t0 + min_s), pausable=True)
-        self.show(BreakView(item.text, 0, hint=hint_ready), "break-ready")
+        self.show(BreakView(item.text, 0, hint=hint_ready, key=item.key), "break-ready")
         hit = self.wait(frozenset({item.key}))
         self.emit("break_end", hit.t, item=item.index, actual_s=round(hit.t - t0, 6))
         self.journal.sync()

@@ -11,14 +11,14 @@ interrupted attempt before a resume), the last completion counts.
 from __future__ import annotations
 
 import csv
-import os
 from pathlib import Path
 from typing import Any
 
 from runner.contract import columns as registry
 from runner.contract.columns import own_table_columns, trials_columns
 from runner.contract.events import VALUES_FIELD
-from runner.contract.layout import TMP_SUFFIX, TRIALS_NAME
+from runner.contract.layout import TRIALS_NAME
+from runner.contract.outputs import replace_file
 from runner.journal.read import JournalRead
 from runner.journal.trials import winning_records
 
@@ -80,17 +80,23 @@ def columns_for(header: dict[str, Any]) -> list[str]:
 
 
 def write_trials_csv(read: JournalRead, folder: Path) -> Path:
-    """Write (or rewrite) ``trials.csv`` in ``folder`` from the journal, atomically."""
+    """Write (or rewrite) ``trials.csv`` in ``folder`` from the journal, atomically.
+
+    Raises
+    ------
+    OutputRefused
+        ``trials.csv.tmp`` exists and is a link, a folder or a linked file.
+    OSError
+        The file cannot be written.
+    """
     header = read.header or {}
     columns = columns_for(header)
     path = folder / TRIALS_NAME
-    tmp = folder / (TRIALS_NAME + TMP_SUFFIX)
-    with open(tmp, "w", encoding="utf-8", newline="") as fh:
+    # trials.csv.tmp is created exclusively and never followed: a link there is refused
+    # (OutputRefused), a link at trials.csv is replaced, not written through.
+    with replace_file(path, durable=True) as fh:
         writer = csv.writer(fh, lineterminator="\n")
         writer.writerow(columns)
         for row in trial_records(read):
             writer.writerow([csv_cell(record_value(row, c), c) for c in columns])
-        fh.flush()
-        os.fsync(fh.fileno())
-    os.replace(tmp, path)
     return path

@@ -28,6 +28,7 @@ from typing import Any, Literal
 from runner import __version__
 from runner.contract.hashing import file_sha256
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TORN_SUFFIX, session_folder
+from runner.contract.outputs import replace_file
 from runner.errors import (
     DisplayError,
     JournalError,
@@ -154,10 +155,10 @@ def _video_driver() -> str:
 
 def _freeze(loaded: LoadedProtocol, folder: Path) -> None:
     # Written whole and renamed into place, so a kill mid-write never leaves half a copy.
+    # The temporary file is created exclusively, so a link planted at NAME.tmp is never followed.
     for name, data in ((FROZEN_PROTOCOL, loaded.raw), (FROZEN_TABLE, loaded.table.raw)):
-        tmp = folder / (name + ".tmp")
-        tmp.write_bytes(data)
-        os.replace(tmp, folder / name)
+        with replace_file(folder / name, binary=True) as fh:
+            fh.write(data)
 
 
 def check_writable(out: Path, *, min_free: int = MIN_FREE_BYTES) -> None:

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from runner.protocol.schedule import ScheduledTrial
-from runner.session.views import PageView, View
+from runner.session.views import BreakView, PageView, View
 
 if TYPE_CHECKING:
     from runner.session.engine import Engine
@@ -210,9 +210,10 @@ class SimulatedParticipant:
             key = view.key if isinstance(view, PageView) else ""
             self.keys.at(t + self._s(PAGE_READ_S), key or "space")
         elif kind == "break-ready":
-            # The break's minimum is over and the screen says so: go on after a moment.
-            # BreakView does not carry the break's key: the default key, the space bar, is pressed.
-            self.keys.at(t + self._s(BREAK_EXTRA_S), "space")
+            # The break's minimum is over and the screen says so: go on after a moment, with
+            # the break's own key.
+            key = view.key if isinstance(view, BreakView) else ""
+            self.keys.at(t + self._s(BREAK_EXTRA_S), key or "space")
         elif kind == "pause":
             self.keys.at(t + self._s(self.pause_s), self.pause_key)
         elif kind == "stimulus" and trial is not None:

@@ -43,6 +43,70 @@ def fixation_rects(size: tuple[int, int]) -> tuple[Rect, Rect]:
     )
 
 
+#: The answer box of 'over' mode: width and height as multiples of the body font size, and the
+#: least gap between it and the stimulus, the hint line or the screen edge, in pixels.
+ANSWER_BOX_EM = (5.0, 2.4)
+ANSWER_GAP_PX = 10
+#: The hint line's baseline sits this share of the screen height above the bottom edge.
+HINT_MARGIN_FRACTION = 0.07
+#: An upper bound of the hint line's height as a multiple of the body font size (the hint font
+#: is 0.95 of it; a line is at most 1.3 of its font size), for placing without the font at hand.
+HINT_LINE_EM = 0.95 * 1.3
+
+
+def answer_box_size(font_px: int) -> tuple[int, int]:
+    """Width and height of the answer box typed into over the stimulus ('over' mode)."""
+    return round(font_px * ANSWER_BOX_EM[0]), round(font_px * ANSWER_BOX_EM[1])
+
+
+def hint_top(size: tuple[int, int], font_px: int, line_px: int | None = None) -> int:
+    """The top of the hint line: ``line_px`` is its height (default the bound HINT_LINE_EM)."""
+    line = line_px if line_px is not None else round(font_px * HINT_LINE_EM)
+    return round(size[1] * (1 - HINT_MARGIN_FRACTION)) - line
+
+
+def answer_box_rect(
+    size: tuple[int, int], image: Rect, box: tuple[int, int], top_of_hint: int
+) -> Rect | None:
+    """Where the answer box goes so that it covers neither the stimulus nor the hint line.
+
+    Below the stimulus (centred) when there is room above the hint line, else to its right,
+    else to its left (level with the stimulus's centre, above the hint line); None when the
+    box fits nowhere on the screen. The painter draws it here; ``check`` refuses a protocol
+    whose stimuli leave it no room.
+    """
+    w, h = size
+    x, y, iw, ih = image
+    bw, bh = box
+    gap = ANSWER_GAP_PX
+    below = top_of_hint - (y + ih)
+    if below >= bh + 2 * gap:
+        return (w // 2 - bw // 2, y + ih + (below - bh) // 2, bw, bh)
+    cy = min(y + ih // 2 - bh // 2, top_of_hint - gap - bh)
+    if cy < gap:
+        return None
+    right = w - (x + iw)
+    if right >= bw + 2 * gap:
+        return (x + iw + (right - bw) // 2, cy, bw, bh)
+    if x >= bw + 2 * gap:
+        return ((x - bw) // 2, cy, bw, bh)
+    return None
+
+
+def answer_fit_limits(
+    size: tuple[int, int], box: tuple[int, int], top_of_hint: int
+) -> tuple[int, int]:
+    """The largest stimulus height (with the box below) and width (with the box beside), in
+    pixels, that leave the centred stimulus room for the answer box."""
+    w, h = size
+    bw, bh = box
+    gap = ANSWER_GAP_PX
+    # Centred: bottom = (h + ih) / 2 must stay bh + 2 gap above the hint line.
+    max_h = max(0, 2 * (top_of_hint - bh - 2 * gap) - h)
+    max_w = max(0, w - 2 * (bw + 2 * gap))
+    return max_h, max_w
+
+
 def photodiode_rect(size: tuple[int, int], corner: str, side: int) -> Rect:
     """The photodiode patch: a ``side``-pixel square in ``corner`` (e.g. 'top-left')."""
     w, h = size
@@ -105,6 +169,7 @@ class BreakView:
     text: str
     seconds_left: int
     hint: str = ""
+    key: str = "space"  # the key that ends the break once its minimum is over
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ from runner.contract.line import (
 )
 
 REPO = Path(__file__).resolve().parents[2]
-CONTRACT_MODULES = ("columns", "events", "hashing", "layout", "line")
+CONTRACT_MODULES = ("columns", "events", "hashing", "layout", "line", "outputs")
 THIRD_PARTY = ("numpy", "pandas", "pygame", "pylsl", "pydantic", "yaml", "scipy", "matplotlib")
 
 
@@ -55,3 +55,14 @@ def test_encoded_line_starts_with_its_lead_fields_and_ends_with_its_hash():
     raw = line.encode()
     assert stored_hash(raw) == h.encode() and line_event(raw) == b"flip"
     assert json.loads(body) == {"seq": 4, "prev": GENESIS, **record}
+
+
+def test_labels_match_whole_text_only():
+    """A label with a trailing newline is not a label (a final newline would make a second folder).
+
+    Source: Python's re documentation: ``$`` also matches before a final newline, ``fullmatch``
+    does not.
+    """
+    from runner.contract.layout import is_label
+
+    assert is_label("P01") and not is_label("P01\n") and not is_label("") and not is_label("P 1")

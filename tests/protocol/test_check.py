@@ -123,9 +123,10 @@ def test_luminance_spread_beyond_tolerance_is_a_warning(tmp_path: Path) -> None:
     assert "spreads 0.816" in hits[0].message
 
 
+# Stimuli 240 px wide and full height: 'over' answers need room beside them for the answer box.
 FLASHY = merged(
     screen={"resolution": [640, 480], "refresh_hz": 60, "background": "#000000"},
-    stimulus_size={"width_px": 640},
+    stimulus_size={"width_px": 240},
     answer={"mode": "over", "max": 60},
     timing={"fixation_ms": [0, 0], "gap_ms": 0, "feedback_ms": 0},
     checks={"min_response_ms": 1},
@@ -133,12 +134,15 @@ FLASHY = merged(
 )
 
 
+FLASHY_IMAGE = (240, 480)
+
+
 def _flashy_rows() -> list[tuple[str, str, str, str]]:
     return [(f"img/f{i}.png", "3", "main", "sparse") for i in range(8)]
 
 
 def test_fast_full_screen_flashing_breaks_the_three_flash_rule(tmp_path: Path, capsys) -> None:
-    """White full-screen stimuli on black every 14 frames make 5 flashes in one second: error.
+    """White full-height stimuli on black every 14 frames make 5 flashes in one second: error.
 
     Source: WCAG 2.2 success criterion 2.3.1. By hand: each trial is fixation 1 frame,
     stimulus 1, offset 1, rating 1, chosen rating 9 (0.15 s), gap 1 = 14 frames at 60 Hz;
@@ -146,7 +150,7 @@ def test_fast_full_screen_flashing_breaks_the_three_flash_rule(tmp_path: Path, c
     frames 1-60 (one second), so 5 flashes.
     """
     path = write_protocol(
-        tmp_path, FLASHY, rows=_flashy_rows(), image_size=(640, 480), colour=(255, 255, 255)
+        tmp_path, FLASHY, rows=_flashy_rows(), image_size=FLASHY_IMAGE, colour=(255, 255, 255)
     )
     assert RATING_SHOW_CHOICE_S == pytest.approx(9 / 60)
     report = check_protocol(path)
@@ -158,12 +162,30 @@ def test_fast_full_screen_flashing_breaks_the_three_flash_rule(tmp_path: Path, c
     capsys.readouterr()
 
 
+def test_pilot_refuses_what_check_refuses_and_creates_nothing(tmp_path: Path, capsys) -> None:
+    """A protocol `check` refuses for flashing is refused by `pilot` too, before any folder or
+    frame is made (issue 13, item 17: one rule for check and pilot)."""
+    path = write_protocol(
+        tmp_path / "study",
+        FLASHY,
+        rows=_flashy_rows(),
+        image_size=FLASHY_IMAGE,
+        colour=(255, 255, 255),
+    )
+    out, frames = tmp_path / "sessions", tmp_path / "frames"
+    argv = ["pilot", str(path), "--participant", "P01", "--out", str(out), "--frames", str(frames)]
+    assert main(argv) == 1
+    err = capsys.readouterr().err
+    assert ": error: " in err and "Traceback" not in err
+    assert not out.exists() and not frames.exists()
+
+
 def test_acknowledged_flashing_is_a_warning(tmp_path: Path) -> None:
     """With checks.acknowledge_flashes the same flashing is a warning and the check passes."""
     protocol = merged(**{k: v for k, v in FLASHY.items() if k != "checks"})
     protocol["checks"] = {"min_response_ms": 1, "acknowledge_flashes": True}
     path = write_protocol(
-        tmp_path, protocol, rows=_flashy_rows(), image_size=(640, 480), colour=(255, 255, 255)
+        tmp_path, protocol, rows=_flashy_rows(), image_size=FLASHY_IMAGE, colour=(255, 255, 255)
     )
     report = check_protocol(path)
     assert not report.has_errors
@@ -180,7 +202,7 @@ def test_slow_responses_keep_the_same_stimuli_within_the_rule(tmp_path: Path) ->
     """
     protocol = merged(**{k: v for k, v in FLASHY.items() if k != "checks"})
     path = write_protocol(
-        tmp_path, protocol, rows=_flashy_rows(), image_size=(640, 480), colour=(255, 255, 255)
+        tmp_path, protocol, rows=_flashy_rows(), image_size=FLASHY_IMAGE, colour=(255, 255, 255)
     )
     report = check_protocol(path)
     assert report.flash_reports["whole screen"].max_flashes == 2
@@ -196,7 +218,7 @@ def test_small_photodiode_patch_flashing_passes_as_small_area(tmp_path: Path) ->
     protocol["screen"] = {"resolution": [640, 480], "refresh_hz": 60, "background": "#808080"}
     protocol["photodiode"] = {"size_px": 20}
     path = write_protocol(
-        tmp_path, protocol, rows=_flashy_rows(), image_size=(640, 480), colour=(128, 128, 128)
+        tmp_path, protocol, rows=_flashy_rows(), image_size=FLASHY_IMAGE, colour=(128, 128, 128)
     )
     report = check_protocol(path)
     assert report.flash_reports["photodiode patch"].max_flashes >= 4

@@ -463,6 +463,80 @@ CASES = [
         6,
         "undecodable-stimulus",
     ),
+    (
+        "colour ending in a newline",
+        edit({2: 'screen: {resolution: [640, 480], refresh_hz: 60, background: "#808080\\n"}'}),
+        TABLE,
+        P,
+        2,
+        "bad-value",
+    ),
+    (
+        "table: stray quote swallows rows",
+        BASE,
+        TABLE.replace("img/b.png,4,main", 'img/b.png,4,"main'),
+        T,
+        3,
+        "stray-quote",
+    ),
+    (
+        "table: empty block factor",
+        BASE,
+        TABLE.replace("img/d.png,6,main,dense", "img/d.png,6,main,"),
+        T,
+        5,
+        "empty-factor-cell",
+    ),
+    ("table: semicolons", BASE, TABLE.replace(",", ";"), T, 1, "wrong-delimiter"),
+    (
+        "table: 5000-digit expected",
+        BASE,
+        TABLE.replace("img/e.png,7", "img/e.png," + "9" * 5000),
+        T,
+        6,
+        "bad-expected",
+    ),
+    (
+        "protocol: 5000-digit number",
+        edit({6: 'answer: {prompt: "How many stops?", max: ' + "9" * 5000 + "}"}),
+        TABLE,
+        P,
+        6,
+        "out-of-range",
+    ),
+    (
+        "table: text named .png",
+        BASE,
+        TABLE.replace("img/e.png", "img/text.png"),
+        T,
+        6,
+        "unsupported-image",
+    ),
+    (
+        "table: 0-byte image",
+        BASE,
+        TABLE.replace("img/e.png", "img/empty.png"),
+        T,
+        6,
+        "undecodable-stimulus",
+    ),
+    (
+        "table: SVG stimulus",
+        BASE,
+        TABLE.replace("img/e.png", "img/drawing.svg"),
+        T,
+        6,
+        "unsupported-image",
+    ),
+    ("table: stimulus folder", BASE, TABLE.replace("img/e.png", "img"), T, 6, "not-a-file"),
+    (
+        "table: truncated image",
+        BASE,
+        TABLE.replace("img/e.png", "img/cut.png"),
+        T,
+        6,
+        "undecodable-stimulus",
+    ),
 ]
 
 
@@ -470,6 +544,12 @@ def _setup(folder: Path, protocol: str | bytes, table: str | bytes) -> Path:
     for row in BASE_ROWS:
         write_image(folder / row[0])
     (folder / "img" / "broken.png").write_bytes(b"\x89PNG\r\n\x1a\n not really an image")
+    (folder / "img" / "text.png").write_text("not an image\n", encoding="utf-8")
+    (folder / "img" / "empty.png").write_bytes(b"")
+    (folder / "img" / "drawing.svg").write_text(
+        '<svg xmlns="http://www.w3.org/2000/svg" width="9" height="9"/>\n', encoding="utf-8"
+    )
+    (folder / "img" / "cut.png").write_bytes((folder / "img" / "a.png").read_bytes()[:-40])
     (folder.parent / "outside.png").write_bytes((folder / "img" / "a.png").read_bytes())
     (folder.parent / "outside.md").write_text("# outside\n", encoding="utf-8")
     path = folder / P

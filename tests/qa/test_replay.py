@@ -16,6 +16,7 @@ from conftest import TEST_DATA, run_pilot
 
 from runner.cli.replay import add_arguments as add_replay_arguments
 from runner.cli.replay import run as run_replay
+from runner.contract.outputs import MARKER_NAME, OutputRefused
 from runner.errors import InputFileError, UsageError
 from runner.present.contact_sheet import SHEET_COLUMNS, write_contact_sheet
 from runner.qa.replay import CONTACT_SHEET, plan_replay, replay_session, write_png
@@ -164,15 +165,29 @@ def test_command_headless_needs_frames(pilot):
 
 @pytest.mark.slow
 def test_command_writes_frames_and_refuses_a_used_folder(pilot, tmp_path, capsys):
-    """`replay --frames DIR` writes the frames and sheet; a non-empty DIR is refused."""
+    """`replay --frames DIR` writes the frames and sheet; its own DIR is re-written without
+    stale files, a DIR holding other files is refused."""
     folder, live_frames = pilot
     out = tmp_path / "frames"
     assert run_replay(_args(str(folder), "--frames", str(out))) == 0
     printed = capsys.readouterr().out
     assert f"Frames: {len(_pngs(live_frames))} PNG files" in printed
     assert (out / CONTACT_SHEET).is_file()
-    with pytest.raises(UsageError, match="not empty"):
-        run_replay(_args(str(folder), "--frames", str(out)))
+    first = sorted(p.name for p in out.iterdir())
+    stale = out / "99999-StimulusView.png"
+    stale.write_bytes(b"x")  # as if an earlier replay had written one more frame
+    marker = json.loads((out / MARKER_NAME).read_text(encoding="utf-8"))
+    marker["files"].append(stale.name)
+    (out / MARKER_NAME).write_text(json.dumps(marker), encoding="utf-8")
+    assert run_replay(_args(str(folder), "--frames", str(out))) == 0
+    assert sorted(p.name for p in out.iterdir()) == first
+    other = tmp_path / "other"
+    other.mkdir()
+    (other / "notes.txt").write_text("mine", encoding="utf-8")
+    with pytest.raises(OutputRefused) as info:
+        run_replay(_args(str(folder), "--frames", str(other)))
+    assert info.value.reason == "not-empty"
+    assert sorted(p.name for p in other.iterdir()) == ["notes.txt"]
 
 
 def test_png_writer_round_trips_through_a_reference_decoder(tmp_path):

@@ -47,15 +47,23 @@ def test_confirmed_abort_keeps_completed_trials(tmp_path, capsys):
     assert [r["trial"] for r in _rows(folder / "trials.csv")] == ["1", "2"]
 
 
-def test_exception_mid_trial_is_journaled(tmp_path, capsys):
+def test_exception_mid_trial_is_journaled(tmp_path, capsys, monkeypatch):
     """A stimulus that cannot be decoded at trial time fails the session cleanly: the error is
     journaled, earlier trials are in trials.csv, and the user sees one plain line, no traceback."""
+    import runner.session.run as run_module
+
     folder = tmp_path / "proto"
     shutil.copytree(MINI_PROTOCOL.parent, folder)
-    # Trial order for P01 puts route1 (practice) first; damage a main-block image.
-    for name in ("route3.png", "route5.png", "route2.png", "route4.png"):
-        (folder / "img" / name).write_bytes(b"not a png")
-        break
+    real_run = run_module.run_session
+
+    def damage_then_run(*args, **kwargs):
+        # Loading and checking decode every stimulus, so the damage must come after them, as
+        # when a file is replaced while the session runs. Trial order for P01 puts route1
+        # (practice) first.
+        (folder / "img" / "route3.png").write_bytes(b"not a png")
+        return real_run(*args, **kwargs)
+
+    monkeypatch.setattr(run_module, "run_session", damage_then_run)
     code = main(
         [
             "pilot",
