@@ -55,7 +55,7 @@ PROBLEM_CODES: dict[str, str] = {
     "no-matching-rows": "a 'where' selection matches no row of the trial table",
     "bad-levels": "block levels are missing or do not list each level of the factor once",
     "answer-above-max": "a row's expected count is above answer.max",
-    "control-character": "a stimulus path contains a control character",
+    "control-character": "a file or stimulus path contains a control character",
     "impossible-order": "no trial order meets the ordering constraints",
     "unknown-event": "a trigger code is given for a name that is not a marker event",
     "unsupported-image": "a stimulus is not a PNG, JPEG, BMP or GIF image (SVG, text, ...)",

@@ -36,6 +36,19 @@ KEY_HELP = "expected a letter a-z or one of space, return, tab, period, comma, s
 MAX_SCREEN_PX = 16384
 
 
+def plain_path(v: str) -> str:
+    """A file path as written in a protocol: no control characters (NUL, line breaks, ...)."""
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in v):
+        raise PydanticCustomError(
+            "control_character",
+            "a file path may not hold control characters (such as NUL or a line break); retype it",
+        )
+    return v
+
+
+PathText = Annotated[str, AfterValidator(plain_path)]
+
+
 def check_key(v: str) -> str:
     """A key name a participant can press (see KEY_NAMES); Escape is kept for ending sessions."""
     if v not in KEY_NAMES:
@@ -76,7 +89,7 @@ class Screen(Strict):
     )
     distance_cm: float | None = Field(None, gt=0, le=1000, description="Viewing distance in cm.")
     font_px: int = Field(34, ge=10, le=200, description="Height of body text in pixels.")
-    font: str | None = Field(
+    font: PathText | None = Field(
         None,
         min_length=1,
         description="A TrueType or OpenType font file for every text the participant sees,"
@@ -128,7 +141,7 @@ class Markers(Strict):
 class Trials(Strict):
     """The trial table: a CSV file with `stimulus`, `expected` and factor columns."""
 
-    table: str = Field(
+    table: PathText = Field(
         min_length=1, description="Path of the CSV trial table, relative to the protocol."
     )
     factors: list[str] = Field(
@@ -230,7 +243,7 @@ Where = dict[str, str | int | float | bool | list[str | int | float]]
 
 class PageSpec(Strict):
     text: str | None = Field(None, max_length=20000)
-    file: str | None = Field(
+    file: PathText | None = Field(
         None, description="A text or simple Markdown file, relative to the protocol."
     )
     key: str = Field("space", description="Key that moves on from the page.")

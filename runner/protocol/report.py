@@ -114,6 +114,7 @@ _CODES = {
     # Custom error types raised by runner.protocol.model's validators.
     "unknown_key": "unknown-key",
     "key_clash": "key-clash",
+    "control_character": "control-character",
 }
 _QUOTED_RE = re.compile(r"'((?:[^'\\]|\\.)*)'")
 _IDENT_RE = re.compile(r"[A-Za-z_][A-Za-z0-9_-]*")

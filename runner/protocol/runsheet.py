@@ -66,7 +66,7 @@ def run_sheet(loaded: LoadedProtocol, participants: int) -> list[RunSheetRow]:
     ProtocolError
         When a participant's schedule cannot be built (ordering constraints).
     """
-    from runner.protocol.check import estimate_length
+    from runner.protocol.length import estimate_length
 
     model = loaded.model
     out: list[RunSheetRow] = []
