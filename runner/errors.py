@@ -147,6 +147,10 @@ class SessionExistsError(TrialdeckError, FileExistsError):
     """The session folder already holds a journal; trialdeck never overwrites a session."""
 
 
+class SessionBusyError(TrialdeckError):
+    """Another process holds the session (or its marker source_id); only one may write it."""
+
+
 class InputFileError(TrialdeckError):
     """A file named on the command line is missing, unreadable or not what was expected."""
 

@@ -22,11 +22,13 @@ from runner.contract.events import (
 
 __all__ = [
     "ATTEMPT_EVENTS",
+    "STIMULI_ACCEPTED",
     "Attempt",
     "attempts",
     "completed_trials",
     "session_facts",
     "session_span",
+    "stimulus_hashes_now",
     "trial_of_end",
     "winning_records",
 ]
@@ -193,3 +195,25 @@ def attempts(records: Iterable[tuple[int, dict[str, Any]]]) -> list[Attempt]:
             cur.end_line, cur.end_t = n, _num(rec.get("t"))
             cur.status = str(rec.get("status") or "unknown")
     return found
+
+
+#: The journal event that acknowledges changed stimuli at a resume (``--accept-changed-stimuli``).
+STIMULI_ACCEPTED = "stimuli_changed_accepted"
+
+
+def stimulus_hashes_now(records: Iterable[dict[str, Any]]) -> dict[str, str]:
+    """The stimulus hashes the session runs with after its last line.
+
+    Those of the header (``stimulus_hashes``), updated by every acknowledged change
+    (:data:`STIMULI_ACCEPTED` lines, each listing ``files`` with ``stimulus``, ``old``, ``new``).
+    """
+    out: dict[str, str] = {}
+    for rec in records:
+        event = rec.get("event")
+        if event == "header" and isinstance(rec.get("stimulus_hashes"), dict):
+            out.update({str(k): str(v) for k, v in rec["stimulus_hashes"].items()})
+        elif event == STIMULI_ACCEPTED and isinstance(rec.get("files"), list):
+            for f in rec["files"]:
+                if isinstance(f, dict) and isinstance(f.get("stimulus"), str):
+                    out[f["stimulus"]] = str(f.get("new"))
+    return out

@@ -14,12 +14,14 @@
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import os
 import platform
 import shutil
 import sys
 import tempfile
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,7 +29,13 @@ from typing import Any, Literal
 
 from runner import __version__
 from runner.contract.hashing import file_sha256
-from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TORN_SUFFIX, session_folder
+from runner.contract.layout import (
+    FROZEN_PROTOCOL,
+    FROZEN_TABLE,
+    LOCK_NAME,
+    TORN_SUFFIX,
+    session_folder,
+)
 from runner.errors import (
     DisplayError,
     JournalError,
@@ -40,10 +48,24 @@ from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Schedule, build_schedule
 from runner.session.engine import AbortRequested, Engine
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
-from runner.session.markers import MarkerOutlet, local_clock, make_source_id, station_name
+from runner.session.lock import SessionLock, claim_source_id
+from runner.session.markers import (
+    MarkerOutlet,
+    local_clock,
+    make_source_id,
+    source_id_candidates,
+    station_name,
+)
 from runner.session.ports import ConsoleLike, Observer, Presenter
 from runner.session.records import write_trials_csv
-from runner.session.resume import ResumePlan, SessionComplete, plan_resume, schedule_summary
+from runner.session.resume import (
+    ResumePlan,
+    SessionComplete,
+    check_stimuli,
+    plan_resume,
+    resume_speed,
+    schedule_summary,
+)
 from runner.session.simulate import SimulatedParticipant
 from runner.session.triggers import SerialTriggers, trigger_map
 
@@ -57,7 +79,8 @@ class RunOptions:
     session: str = "1"
     out: Path = Path("sessions")
     mode: Literal["live", "pilot"] = "live"
-    speed: float = 1.0
+    # None: not given (1, or on --resume the session's own speed from its journal header).
+    speed: float | None = None
     wait_for_recorder: float | None = None
     station: str | None = None
     abort_at: int | None = None
@@ -66,6 +89,7 @@ class RunOptions:
     pause_key: str | None = "p"
     trigger_port: str | None = None
     pause_at: int | None = None
+    accept_changed_stimuli: bool = False
 
 
 @dataclass
@@ -102,7 +126,7 @@ def _header(
     hashes: dict[str, str],
 ) -> dict[str, Any]:
     model = loaded.model
-    now_lsl = local_clock()
+    now_lsl, now_wall = local_clock(), time.time()
     return {
         "software": "trialdeck",
         "version": __version__,
@@ -111,10 +135,11 @@ def _header(
         "study": model.study,
         "participant": schedule.participant,
         "session": schedule.session,
-        "wall_clock_start": _dt.datetime.now(_dt.UTC)
+        "wall_clock_start": _dt.datetime.fromtimestamp(now_wall, _dt.UTC)
         .astimezone()
         .isoformat(timespec="milliseconds"),
         "lsl_clock_at_start": now_lsl,
+        "wall_clock_unix_at_start": now_wall,
         "protocol_file": str(loaded.path),
         "protocol_hash": loaded.content_hash,
         "protocol_text": loaded.raw.decode("utf-8"),
@@ -226,13 +251,47 @@ def _open_journal(
     folder: Path,
     plan: ResumePlan | None,
     header: Any,
+    lock: SessionLock,
 ) -> Journal:
     if plan is None:
+        # A new session: its folder and lock come into being together, right before the journal,
+        # so a refusal earlier (display, storage, recorder) leaves nothing behind.
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StorageError(
+                f"cannot create the session folder {folder}: {exc.strerror}."
+            ) from None
+        lock.create = True
+        lock.acquire()
         return Journal.create(folder, header())
     journal = Journal.reopen(folder / JOURNAL_NAME)
+    # This attempt's clock epoch first: its lines are on this process's local_clock, which after
+    # a reboot restarted (runner.journal.timeline maps every attempt onto one session timeline).
+    journal.append("clock_epoch", **clock_epoch(plan.attempt))
     journal.append("session_interrupted", t=local_clock(), **plan.interrupted)
+    if plan.accepted_stimuli:
+        journal.append(
+            "stimuli_changed_accepted",
+            t=local_clock(),
+            attempt=plan.attempt,
+            files=plan.accepted_stimuli,
+        )
     journal.sync()
     return journal
+
+
+def clock_epoch(attempt: int) -> dict[str, Any]:
+    """The local_clock and the wall clock read together, at the start of ``attempt``."""
+    t, wall = local_clock(), time.time()
+    return {
+        "t": t,
+        "attempt": attempt,
+        "wall_clock": _dt.datetime.fromtimestamp(wall, _dt.UTC)
+        .astimezone()
+        .isoformat(timespec="milliseconds"),
+        "wall_clock_unix": wall,
+    }
 
 
 def _prepare_resume(
@@ -290,11 +349,59 @@ def run_session(
     console: ConsoleLike,
     observers: list[Observer] | None = None,
 ) -> RunResult:
-    """Run one session from start to closed journal and trials.csv. See the module docstring."""
+    """Run one session from start to closed journal and trials.csv. See the module docstring.
+
+    Raises
+    ------
+    SessionBusyError
+        Another process is writing this session (a run, pilot or resume still going).
+    """
     check_pause_key(loaded, opts.pause_key)
     schedule = build_schedule(loaded, opts.participant, opts.session)
     folder = session_folder(opts.out, loaded.model.study, schedule.participant, schedule.session)
+    # One writer per session: an existing session is locked before its journal is read; a new
+    # one when its folder is made (see _open_journal). Held until everything is written.
+    lock = SessionLock(
+        folder / LOCK_NAME, what=f"the session at {folder}", mode=opts.mode, create=opts.resume
+    )
+    try:
+        if (folder / JOURNAL_NAME).exists():
+            lock.acquire()
+        return _run_locked(
+            loaded,
+            opts,
+            schedule,
+            folder,
+            lock,
+            open_presenter=open_presenter,
+            console=console,
+            observers=observers,
+        )
+    finally:
+        lock.release()
+
+
+def _run_locked(
+    loaded: LoadedProtocol,
+    opts: RunOptions,
+    schedule: Schedule,
+    folder: Path,
+    lock: SessionLock,
+    *,
+    open_presenter: Callable[[], Presenter],
+    console: ConsoleLike,
+    observers: list[Observer] | None,
+) -> RunResult:
     plan = _prepare_resume(folder, loaded, schedule, opts)
+    if plan is not None:
+        # A resume continues the session as it was run: same mode, same speed, same stimuli.
+        opts = dataclasses.replace(opts, speed=resume_speed(plan.header, opts.mode, opts.speed))
+        plan.accepted_stimuli = check_stimuli(
+            plan.stimulus_hashes, loaded, accept_changed=opts.accept_changed_stimuli
+        )
+    elif opts.speed is None:
+        opts = dataclasses.replace(opts, speed=1.0)
+    speed = opts.speed if opts.speed is not None else 1.0
     check_writable(opts.out)
     codes = trigger_map(loaded)
     hashes = stimulus_hashes(loaded)
@@ -303,6 +410,7 @@ def run_session(
     sim: SimulatedParticipant | None = None
     journal: Journal | None = None
     triggers: SerialTriggers | None = None
+    stream_lock: SessionLock | None = None
     try:
         timing = _check_display(presenter, opts, console)
         port = opts.trigger_port or (
@@ -322,9 +430,31 @@ def run_session(
                 f"--trigger-port {port} is ignored: the protocol has no triggers.codes to send."
             )
         station = station_name(opts.station or loaded.model.markers.station)
+        # Two sessions on one machine never share a source_id: the second takes the suffixed one
+        # (held like the session lock, for as long as the outlet is open).
+        journaled_markers = plan.header.get("markers") if plan is not None else None
+        source_id, stream_lock = claim_source_id(
+            source_id_candidates(
+                loaded.model.study,
+                station,
+                schedule.participant,
+                schedule.session,
+                journaled_markers.get("source_id") if isinstance(journaled_markers, dict) else None,
+            ),
+            mode=opts.mode,
+        )
+        base_id = make_source_id(loaded.model.study, station)
+        if source_id != base_id and (
+            not isinstance(journaled_markers, dict)
+            or journaled_markers.get("source_id") != source_id
+        ):
+            console.warn(
+                f"Another session on this machine sends markers as {base_id!r}; this one uses"
+                f" {source_id!r}. Select that stream in the recorder."
+            )
         outlet = MarkerOutlet(
             loaded.model.markers.stream,
-            make_source_id(loaded.model.study, station),
+            source_id,
             metadata={
                 "study": loaded.model.study,
                 "participant": schedule.participant,
@@ -356,14 +486,16 @@ def run_session(
                 "timing": timing,
                 "triggers": {"port": port, "codes": codes} if triggers is not None else None,
             },
+            lock,
         )
         if plan is not None:
             journal.append(
                 "display_check",
                 t=local_clock(),
                 mode=opts.mode,
-                speed=opts.speed,
+                speed=speed,
                 interval_s=presenter.interval,
+                markers=outlet.details.as_dict(),
                 **timing,
             )
             console.info(
@@ -381,7 +513,7 @@ def run_session(
                 unsure_key=ans.unsure_key,
                 decision_key=ans.decision_key,
                 mode=ans.mode,
-                speed=opts.speed,
+                speed=speed,
                 post=presenter.post_key,
                 clock=local_clock,
                 abort_at=opts.abort_at,
@@ -407,7 +539,7 @@ def run_session(
             journal=journal,
             markers=outlet,
             clock=local_clock,
-            speed=opts.speed,
+            speed=speed,
             observers=all_observers,
             extra_row=sim.extra_row if sim is not None else None,
             on_recorder_change=recorder_change,
@@ -416,6 +548,11 @@ def run_session(
             triggers=triggers,
             resume_attempt=plan.attempt if plan is not None and plan.attempt > 1 else None,
         )
+        # Whether a recorder listens as the attempt starts: journaled, so that audit can count
+        # the markers sent while none was connected (the engine journals every change after).
+        engine.state.recorder_connected = outlet.have_consumers()
+        if engine.state.recorder_connected:
+            journal.append("recorder_connected", t=local_clock())
         status = "completed"
         error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
@@ -484,3 +621,5 @@ def run_session(
         presenter.close()
         if outlet is not None:
             outlet.close()
+        if stream_lock is not None:
+            stream_lock.release()
