@@ -24,7 +24,6 @@ import tempfile
 from pathlib import Path
 from typing import Any
 
-from runner.contract.layout import LOCK_NAME
 from runner.errors import SessionBusyError
 
 try:
