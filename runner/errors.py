@@ -81,6 +81,10 @@ PROBLEM_CODES: dict[str, str] = {
     # The stimulus kit.
     "no-target-pair": "no target pair of a stimulus meets its set's pairs rule",
     "unreadable-drawing": "no drawing of a stimulus meets the readability limits",
+    # The session audit (runner/qa/audit_checks.py).
+    "markers-unrecorded": "markers were sent while no recorder was connected to the stream",
+    "changed-stimuli-accepted": "a resume went on with changed stimuli (--accept-changed-stimuli)",
+    "clock-restarted": "an attempt ran on a restarted clock; the wall clock placed its times",
 }
 
 

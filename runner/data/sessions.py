@@ -52,6 +52,7 @@ EXPORT_EVENTS = frozenset(
         "session_resume",
         "session_end",
         "abort",
+        "clock_epoch",
     }
 )
 # Worker processes pay off from this many sessions on (starting them takes a moment).

@@ -38,6 +38,8 @@ __all__ = [
 ATTEMPT_NEUTRAL = frozenset(
     {"session_start", "session_resume", "recorder_connected", "recorder_lost", "warning"}
 )
+# Lines a resuming process writes before its session_resume (runner.session.run).
+PROCESS_STARTS = frozenset({"clock_epoch", "session_interrupted"})
 # The lines that shape attempts; the rest (flips, answers...) cannot start or end one.
 ATTEMPT_EVENTS = (
     "session_start",
@@ -117,7 +119,13 @@ def session_facts(records: Iterable[dict[str, Any]]) -> tuple[str, float, list[d
                 by_trial[row["trial"]] = row
         if not isinstance(t, (int, float)):
             continue
-        if event in ATTEMPT_STARTS:
+        if event in PROCESS_STARTS:
+            # A resuming process's first lines: the attempt before it ended at its last line
+            # (its time after that is downtime, and may be on a restarted clock).
+            if start is not None and last_t is not None:
+                total += last_t - start
+            start = None
+        elif event in ATTEMPT_STARTS:
             if start is not None and last_t is not None:
                 total += last_t - start
             start = float(t)

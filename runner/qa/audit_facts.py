@@ -101,11 +101,11 @@ class Findings:
         self.file = file
         self.items: list[Problem] = []
 
-    def error(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("error", file or self.file, line, 0, message))
+    def error(self, message: str, line: int = 0, file: str | None = None, code: str = "") -> None:
+        self.items.append(Problem("error", file or self.file, line, 0, message, code=code))
 
-    def warning(self, message: str, line: int = 0, file: str | None = None) -> None:
-        self.items.append(Problem("warning", file or self.file, line, 0, message))
+    def warning(self, message: str, line: int = 0, file: str | None = None, code: str = "") -> None:
+        self.items.append(Problem("warning", file or self.file, line, 0, message, code=code))
 
 
 @dataclass(frozen=True)
