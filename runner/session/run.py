@@ -325,6 +325,27 @@ def _prepare_resume(
         raise SessionComplete(f"{exc} Its trials.csv was rewritten from the journal.") from None
 
 
+class WatchedMarkers:
+    """The marker outlet, checking for a recorder before every marker it sends.
+
+    A recorder that connects or drops is journaled (by ``watch``, the engine's
+    ``watch_recorder``) before the marker that finds it changed, so the journal knows which
+    markers went out with no consumer connected (audit counts them).
+    """
+
+    def __init__(self, outlet: MarkerOutlet):
+        self.outlet = outlet
+        self.watch: Callable[[float], None] | None = None
+
+    def push(self, payload: str, timestamp: float) -> float:
+        if self.watch is not None:
+            self.watch(timestamp)
+        return self.outlet.push(payload, timestamp)
+
+    def have_consumers(self) -> bool:
+        return self.outlet.have_consumers()
+
+
 RESERVED_KEYS = frozenset({"escape", "return", "backspace", "y"} | set("0123456789"))
 
 
@@ -532,12 +553,13 @@ def _run_locked(
                     "The recorder disconnected from the marker stream: markers are not being recorded."
                 )
 
+        watched = WatchedMarkers(outlet)
         engine = Engine(
             loaded,
             schedule,
             presenter=presenter,
             journal=journal,
-            markers=outlet,
+            markers=watched,
             clock=local_clock,
             speed=speed,
             observers=all_observers,
@@ -553,6 +575,7 @@ def _run_locked(
         engine.state.recorder_connected = outlet.have_consumers()
         if engine.state.recorder_connected:
             journal.append("recorder_connected", t=local_clock())
+        watched.watch = engine.watch_recorder
         status = "completed"
         error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
