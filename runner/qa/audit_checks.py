@@ -613,18 +613,18 @@ def check_timeline(
 ) -> None:
     """How each attempt's clock maps onto the session timeline; a restarted clock is noted."""
     timeline = session_timeline([r for _, r in records])
-    segments = timeline.as_dicts()
-    for seg, (n, _) in zip(segments, (records[s.first] for s in timeline.segments), strict=True):
-        seg["first_line"] = n
-    facts["timeline"] = segments
-    for k, seg in enumerate(timeline.segments):
-        if not seg.restarted:
+    found: list[dict[str, Any]] = []
+    for segment in timeline.segments:
+        line = records[segment.first][0]
+        found.append({**segment.as_dict(), "first_line": line})
+        if not segment.restarted:
             continue
         out.warning(
-            f"the clock restarted before the attempt that begins at line {segments[k]['first_line']}"
-            f" (a reboot or another computer): its times were placed on the session timeline "
-            f"by the {seg.bridge} (shifted {seg.offset:+.3f} s). Durations within the attempt "
-            "are exact; the gap between attempts is as the wall clock says.",
-            segments[k]["first_line"],
+            f"the clock restarted before the attempt that begins at line {line} (a reboot or"
+            " another computer): its times were placed on the session timeline by the"
+            f" {segment.bridge} (shifted {segment.offset:+.3f} s). Durations within the attempt"
+            " are exact; the gap between attempts is as the wall clock says.",
+            line,
             code="clock-restarted",
         )
+    facts["timeline"] = found
