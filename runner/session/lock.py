@@ -66,11 +66,14 @@ class SessionLock:
     locked thing in the refusal ("the session at ...").
     """
 
-    def __init__(self, path: Path, *, what: str, mode: str = "", create: bool = True):
+    def __init__(
+        self, path: Path, *, what: str, mode: str = "", create: bool = True, record: bool = True
+    ):
         self.path = path
         self.what = what
         self.mode = mode
         self.create = create
+        self.record = record  # write this process into the lock file once it holds the lock
         self._fd: int | None = None
 
     @property
@@ -106,6 +109,15 @@ class SessionLock:
         except BaseException:
             os.close(fd)
             raise
+        self._fd = fd
+        if self.record:
+            self.write_holder()
+        return True
+
+    def write_holder(self) -> None:
+        """Write this process (pid, host, mode, start time) into the held lock file."""
+        if self._fd is None:
+            return
         info = {
             "pid": os.getpid(),
             "host": socket.gethostname(),
@@ -113,10 +125,8 @@ class SessionLock:
             "started": _dt.datetime.now(_dt.UTC).astimezone().isoformat(timespec="seconds"),
         }
         data = (json.dumps(info) + "\n").encode("utf-8")
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, data, 0)
-        self._fd = fd
-        return True
+        os.ftruncate(self._fd, 0)
+        os.pwrite(self._fd, data, 0)
 
     def release(self) -> None:
         """Drop the lock (closing the file releases the flock); safe to call twice."""

@@ -264,6 +264,7 @@ def _open_journal(
             ) from None
         lock.create = True
         lock.acquire()
+        lock.write_holder()
         return Journal.create(folder, header())
     journal = Journal.reopen(folder / JOURNAL_NAME)
     # This attempt's clock epoch first: its lines are on this process's local_clock, which after
@@ -382,8 +383,13 @@ def run_session(
     folder = session_folder(opts.out, loaded.model.study, schedule.participant, schedule.session)
     # One writer per session: an existing session is locked before its journal is read; a new
     # one when its folder is made (see _open_journal). Held until everything is written.
+    # Without --resume an existing session is only probed (refused as running, or as existing).
     lock = SessionLock(
-        folder / LOCK_NAME, what=f"the session at {folder}", mode=opts.mode, create=opts.resume
+        folder / LOCK_NAME,
+        what=f"the session at {folder}",
+        mode=opts.mode,
+        create=opts.resume,
+        record=opts.resume,
     )
     try:
         if (folder / JOURNAL_NAME).exists():

@@ -121,6 +121,16 @@ def test_lock_is_exclusive_and_released(tmp_path):
     second.release()
 
 
+def test_probe_without_record_leaves_the_holder_named_in_the_file(tmp_path):
+    """A lock taken only to probe (record off) keeps the last holder's line in the file."""
+    path = tmp_path / LOCK_NAME
+    path.write_text('{"pid": 1, "mode": "live"}\n')
+    probe = SessionLock(path, what="the session", create=False, record=False)
+    assert probe.acquire()
+    probe.release()
+    assert json.loads(path.read_text()) == {"pid": 1, "mode": "live"}
+
+
 def test_without_create_a_missing_lock_file_is_not_made(tmp_path):
     """A lock that may not create its file reports False and leaves the folder empty."""
     assert SessionLock(tmp_path / LOCK_NAME, what="x", create=False).acquire() is False
