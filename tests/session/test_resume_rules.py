@@ -13,8 +13,11 @@ from journalcopy import rewrite_session
 
 from runner.cli import main
 from runner.journal.read import read_journal
+from runner.protocol.load import load_protocol
 from runner.qa.audit import audit_session
+from runner.session.console import Console
 from runner.session.resume import ResumeRefused, resume_speed
+from runner.session.run import RunOptions, run_session
 
 
 @pytest.fixture
@@ -44,8 +47,9 @@ def test_resume_speed_rules():
 
 @pytest.mark.slow
 def test_pilot_resume_of_a_live_session_and_a_new_speed_are_refused(protocol_dir, tmp_path, capsys):
-    """`pilot --resume` of a live session exits 1 naming the mode and writes nothing; a pilot
-    resumed with another --speed is refused, and without --speed it keeps the journaled one."""
+    """`pilot --resume` of a live session exits 1 naming the mode and writes nothing, as does a
+    live resume of a pilot; a pilot resumed with another --speed is refused, and without --speed
+    it keeps the journaled one."""
     out = tmp_path / "out"
     aborted = run_pilot(protocol_dir / "mini.yaml", out, abort_at=3, speed=20.0)
     live = rewrite_session(
@@ -63,6 +67,15 @@ def test_pilot_resume_of_a_live_session_and_a_new_speed_are_refused(protocol_dir
     before = _journal_bytes(aborted.folder)
     assert main([*base, "--out", str(out), "--speed", "5"]) == 1
     assert "--speed 20" in capsys.readouterr().err
+    assert _journal_bytes(aborted.folder) == before
+
+    def no_display():
+        raise AssertionError("a refused resume must not open the display")
+
+    loaded = load_protocol(protocol_dir / "mini.yaml")
+    live_opts = RunOptions(participant="P01", out=out, mode="live", resume=True)
+    with pytest.raises(ResumeRefused, match="trialdeck pilot --resume"):
+        run_session(loaded, live_opts, open_presenter=no_display, console=Console(quiet=True))
     assert _journal_bytes(aborted.folder) == before
 
     assert main([*base, "--out", str(out)]) == 0
