@@ -164,3 +164,73 @@ def test_second_session_on_the_machine_takes_a_distinct_source_id(tmp_path):
     base = make_source_id("mini-test", STATION)
     assert read_journal(folder / "journal.jsonl").header["markers"]["source_id"] == base
     assert read_journal(second.journal).header["markers"]["source_id"] == f"{base}:sub-P02:ses-1"
+
+
+class LateInlet(threading.Thread):
+    """A real LSL consumer that connects only once the journal shows trial 2 started."""
+
+    def __init__(self, source_id: str, journal: Path):
+        super().__init__(daemon=True)
+        self.source_id = source_id
+        self.journal = journal
+        self.received: list[str] = []
+        self.stop = threading.Event()
+
+    def _trial_2_started(self) -> bool:
+        if not self.journal.exists():
+            return False
+        # Only whole lines: the journal may be read while a line is being written.
+        lines = self.journal.read_bytes().split(b"\n")[:-1]
+        return any(
+            rec.get("event") == "trial_start" and rec.get("trial") == 2
+            for rec in (json.loads(x) for x in lines)
+        )
+
+    def run(self) -> None:
+        while not self.stop.is_set() and not self._trial_2_started():
+            time.sleep(0.02)
+        streams = []
+        while not streams and not self.stop.is_set():
+            streams = pylsl.resolve_byprop("source_id", self.source_id, timeout=1.0)
+        if not streams:
+            return
+        inlet = pylsl.StreamInlet(streams[0], max_buflen=60)
+        inlet.open_stream(timeout=10.0)
+        while not self.stop.is_set():
+            sample, _ = inlet.pull_sample(timeout=0.2)
+            if sample is not None:
+                self.received.append(sample[0])
+                if json.loads(sample[0]).get("event") == "session_end":
+                    break
+        inlet.close_stream()
+
+
+@pytest.mark.slow
+def test_recorder_that_connects_late_is_counted_until_it_connects(tmp_path):
+    """A real inlet that connects during trial 2: audit counts the markers before the journaled
+    connect, and every marker after that line reached the inlet.
+
+    Source: the payloads a real pylsl inlet received, against the journal's marker lines.
+    """
+    loaded = load_protocol(MINI_PROTOCOL)
+    folder = tmp_path / "mini-test" / "sub-P01" / "ses-1"
+    inlet = LateInlet(
+        make_source_id(loaded.model.study, station_name(STATION)), folder / "journal.jsonl"
+    )
+    inlet.start()
+    try:
+        result = run_pilot(MINI_PROTOCOL, tmp_path, station=STATION, speed=4.0)
+    finally:
+        inlet.stop.set()
+        inlet.join(timeout=10)
+    lines = _lines(result.folder)
+    audit = audit_session(result.folder)
+    info = audit.facts["markers"]
+    assert info["recorder"] == "connected" and info["without_recorder"] > 0
+    connect = info["first_connected_line"]
+    before = [r["marker"] for n, r in enumerate(lines, 1) if "marker" in r and n < connect]
+    after = [r["marker"] for n, r in enumerate(lines, 1) if "marker" in r and n > connect]
+    assert len(before) == info["without_recorder"] and after
+    assert set(after) <= set(inlet.received)
+    (warning,) = [p for p in audit.problems if p.code == "markers-unrecorded"]
+    assert info["first_trial"] == 1 and info["last_trial"] >= 2
