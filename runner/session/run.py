@@ -1,13 +1,17 @@
 """Start, run and close one session: the order of the steps is what keeps data safe.
 
 1. Load and schedule (bad input stops here; nothing has been created).
-2. Refuse an existing session folder (unless resuming it), check the output folder takes writes
-   and has room.
+2. Take the session lock of an existing session (one writer per session: a second process is
+   refused, naming the one that runs). Refuse an existing session folder (unless resuming it);
+   a resume keeps the session's mode and speed and refuses changed stimuli unless they are
+   accepted. Check the output folder takes writes and has room.
 3. Open the display and measure its refresh; refuse a live run whose flips do not block or whose
    rate is off by more than 2 % (unless the mismatch is explicitly allowed, then journal it).
-4. Open the marker outlet (and the trigger port); optionally wait for a recorder.
-5. Create the journal with its header and the frozen protocol and trial table (or, on resume,
-   reopen it and journal the interrupted attempt).
+4. Claim a source_id no other session on this machine sends under, open the marker outlet (and
+   the trigger port); optionally wait for a recorder.
+5. Create the session folder, its lock and the journal with its header and the frozen protocol
+   and trial table (or, on resume, reopen it and journal the attempt's clock epoch, the
+   interrupted attempt and any accepted stimulus change).
 6. Run the engine. On every exit path (completed, aborted, exception, Ctrl+C) the journal gets a
    closing line and is fsynced, and trials.csv is written from it.
 """

@@ -220,6 +220,7 @@ def test_recorder_that_connects_late_is_counted_until_it_connects(tmp_path):
     inlet.start()
     try:
         result = run_pilot(MINI_PROTOCOL, tmp_path, station=STATION, speed=4.0)
+        inlet.join(timeout=30)  # it ends by itself once it has pulled session_end
     finally:
         inlet.stop.set()
         inlet.join(timeout=10)
@@ -233,4 +234,8 @@ def test_recorder_that_connects_late_is_counted_until_it_connects(tmp_path):
     assert len(before) == info["without_recorder"] and after
     assert set(after) <= set(inlet.received)
     (warning,) = [p for p in audit.problems if p.code == "markers-unrecorded"]
-    assert info["first_trial"] == 1 and info["last_trial"] >= 2
+    trials = [
+        r["trial"] for n, r in enumerate(lines, 1) if "marker" in r and n < connect and "trial" in r
+    ]
+    assert (info["first_trial"], info["last_trial"]) == (min(trials), max(trials))
+    assert info["first_trial"] == 1  # the inlet waited for trial 2 to start
