@@ -44,3 +44,19 @@ def rewrite_session(
     assert journal is not None
     journal.close()
     return dest
+
+
+def crash_after_onset(folder: Path, trial: int) -> None:
+    """Cut a finished session's journal right after ``trial``'s stimulus onset, as a crash would.
+
+    Interrupted sessions made this way need no abort (no confirmation keys), so the test does not
+    depend on the simulated participant's timing of the abort.
+    """
+    path = folder / JOURNAL_NAME
+    raw = path.read_bytes().split(b"\n")
+    cut = next(
+        i
+        for i, x in enumerate(raw)
+        if b'"stimulus_onset"' in x and f'"trial":{trial},'.encode() in x
+    )
+    path.write_bytes(b"\n".join(raw[: cut + 1]) + b"\n")

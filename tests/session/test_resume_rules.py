@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 from conftest import TEST_DATA, run_pilot
-from journalcopy import rewrite_session
+from journalcopy import crash_after_onset, rewrite_session
 
 from runner.cli import main
 from runner.journal.read import read_journal
@@ -51,7 +51,8 @@ def test_pilot_resume_of_a_live_session_and_a_new_speed_are_refused(protocol_dir
     live resume of a pilot; a pilot resumed with another --speed is refused, and without --speed
     it keeps the journaled one."""
     out = tmp_path / "out"
-    aborted = run_pilot(protocol_dir / "mini.yaml", out, abort_at=3, speed=20.0)
+    aborted = run_pilot(protocol_dir / "mini.yaml", out, speed=20.0)
+    crash_after_onset(aborted.folder, 3)
     live = rewrite_session(
         aborted.folder,
         tmp_path / "live" / "mini-test" / "sub-P01" / "ses-1",
@@ -88,7 +89,7 @@ def test_pilot_resume_of_a_live_session_and_a_new_speed_are_refused(protocol_dir
 def test_changed_stimulus_refuses_resume_unless_accepted_and_audit_reports_it(
     protocol_dir, tmp_path
 ):
-    """A stimulus replaced between abort and resume is named and refused (journal untouched);
+    """A stimulus replaced between a crash and the resume is named and refused (journal untouched);
     with --accept-changed-stimuli the resume completes, journals old and new hashes, and audit
     warns with a stable code instead of failing.
 
@@ -96,7 +97,8 @@ def test_changed_stimulus_refuses_resume_unless_accepted_and_audit_reports_it(
     """
     out = tmp_path / "out"
     proto = protocol_dir / "mini.yaml"
-    aborted = run_pilot(proto, out, abort_at=3, speed=20.0)
+    aborted = run_pilot(proto, out, speed=20.0)
+    crash_after_onset(aborted.folder, 3)
     image = protocol_dir / "img" / "route4.png"
     old = hashlib.sha256(image.read_bytes()).hexdigest()
     shutil.copyfile(protocol_dir / "img" / "route1.png", image)

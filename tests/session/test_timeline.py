@@ -5,7 +5,7 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 from conftest import MINI_PROTOCOL, run_pilot
-from journalcopy import rewrite_session
+from journalcopy import crash_after_onset, rewrite_session
 
 from runner.cli import main
 from runner.journal.read import read_journal
@@ -121,13 +121,14 @@ def _export(folder, out) -> pd.DataFrame:
 
 @pytest.mark.slow
 def test_resume_after_a_clock_restart_exports_one_forward_timeline(tmp_path):
-    """A pilot aborted and resumed, then rewritten (chain intact) as if the computer rebooted
+    """A pilot crashed and resumed, then rewritten (chain intact) as if the computer rebooted
     before the resume: events.tsv onsets stay non-negative, go forward across attempts and equal
     the unrewritten session's within 5 ms; audit notes the restart with a stable code.
 
     Source: the same session's export before the rewrite, whose attempts share one clock.
     """
-    run_pilot(MINI_PROTOCOL, tmp_path / "out", abort_at=3)
+    first = run_pilot(MINI_PROTOCOL, tmp_path / "out")
+    crash_after_onset(first.folder, 3)
     done = run_pilot(MINI_PROTOCOL, tmp_path / "out", resume=True)
     assert done.status == "completed"
     records = read_journal(done.journal).records
