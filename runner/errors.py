@@ -170,6 +170,10 @@ PROBLEM_CODES: dict[str, str] = {
     "anticipations": "key presses came before stimulus onset and were journaled as anticipations",
     "photodiode-missing": "the photodiode stream or channel named with --photodiode is not in the recording",
     "photodiode-edges": "the photodiode patch did not light for every onset, or lit without one",
+    # The session audit (runner/qa/audit_checks.py).
+    "markers-unrecorded": "markers were sent while no recorder was connected to the stream",
+    "changed-stimuli-accepted": "a resume went on with changed stimuli (--accept-changed-stimuli)",
+    "clock-restarted": "an attempt ran on a restarted clock; the wall clock placed its times",
 }
 
 
@@ -234,6 +238,10 @@ class ProtocolError(TrialdeckError):
 
 class SessionExistsError(TrialdeckError, FileExistsError):
     """The session folder already holds a journal; trialdeck never overwrites a session."""
+
+
+class SessionBusyError(TrialdeckError):
+    """Another process holds the session (or its marker source_id); only one may write it."""
 
 
 class InputFileError(TrialdeckError):

@@ -29,6 +29,8 @@ if "TRIALDECK_TEST_LSLCFG" not in os.environ:
     )
     os.environ["TRIALDECK_TEST_LSLCFG"] = str(_LSL_CFG)
     os.environ["LSLAPICFG"] = str(_LSL_CFG)
+    # The marker source_id locks of this test run (runner.session.lock), apart from other runs.
+    os.environ["TRIALDECK_STREAM_LOCKS"] = tempfile.mkdtemp(prefix="trialdeck-test-streams-")
 
 REPO = Path(__file__).resolve().parent.parent
 TEST_DATA = Path(__file__).resolve().parent / "data"

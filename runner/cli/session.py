@@ -45,6 +45,12 @@ def add_session_arguments(p: argparse.ArgumentParser, *, pilot: bool) -> None:
         help="continue an interrupted session at its first incomplete trial",
     )
     p.add_argument(
+        "--accept-changed-stimuli",
+        action="store_true",
+        help="with --resume: go on although stimulus files changed since the session started"
+        " (each change is journaled with its old and new hash, and audit reports it)",
+    )
+    p.add_argument(
         "--pause-key",
         default="p",
         metavar="KEY",
@@ -74,9 +80,10 @@ def add_session_arguments(p: argparse.ArgumentParser, *, pilot: bool) -> None:
         p.add_argument(
             "--speed",
             type=positive_float,
-            default=1.0,
+            default=None,
             metavar="X",
-            help="divide every wait and simulated response time by X",
+            help="divide every wait and simulated response time by X (default 1; a --resume"
+            " keeps the session's own speed and refuses a different one)",
         )
         p.add_argument(
             "--show", action="store_true", help="open a real window instead of running headless"
@@ -186,7 +193,7 @@ def run_one_session(
         session=args.session,
         out=Path(args.out),
         mode=mode,  # type: ignore[arg-type]  # the verbs pass 'live' or 'pilot'
-        speed=getattr(args, "speed", 1.0),
+        speed=getattr(args, "speed", None),
         wait_for_recorder=args.wait_for_recorder,
         station=args.station,
         abort_at=getattr(args, "sim_abort_at", None),
@@ -195,6 +202,7 @@ def run_one_session(
         pause_key=pause_key,
         trigger_port=getattr(args, "trigger_port", None),
         pause_at=getattr(args, "sim_pause_at", None),
+        accept_changed_stimuli=getattr(args, "accept_changed_stimuli", False),
     )
     console.plan(build_schedule(loaded, args.participant, args.session))
     console.start()

@@ -58,6 +58,8 @@ JOURNAL_ONLY_EVENTS = frozenset(
         "warning",
         "session_interrupted",
         "display_check",
+        "clock_epoch",
+        "stimuli_changed_accepted",
     }
 )
 KNOWN_EVENTS = MARKED_EVENTS | JOURNAL_ONLY_EVENTS

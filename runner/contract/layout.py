@@ -1,8 +1,8 @@
 """**Contract.** The session folder and the files trialdeck writes into it.
 
 ``<out>/<study>/sub-<participant>/ses-<session>/`` holds ``journal.jsonl``, the frozen copies
-``protocol.yaml`` and ``trial_table.csv``, and ``trials.csv`` (written at the end, also after an
-abort). Participant and session labels follow BIDS label rules: letters and digits only.
+``protocol.yaml`` and ``trial_table.csv``, ``trials.csv`` (written at the end, also after an
+abort) and ``session.lock`` (the lock of the process writing the session). Participant and session labels follow BIDS label rules: letters and digits only.
 """
 
 from __future__ import annotations
@@ -15,6 +15,8 @@ JOURNAL_NAME = "journal.jsonl"
 FROZEN_PROTOCOL = "protocol.yaml"
 FROZEN_TABLE = "trial_table.csv"
 TRIALS_NAME = "trials.csv"
+# Held (flock) by the one process writing the session; names that process (pid, start time).
+LOCK_NAME = "session.lock"
 # A torn journal set aside before a resume: journal.jsonl.torn1, .torn2, ...
 TORN_SUFFIX = ".torn"
 TMP_SUFFIX = ".tmp"

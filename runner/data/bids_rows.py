@@ -17,6 +17,7 @@ from runner.contract.columns import (
 )
 from runner.contract.events import VALUES_FIELD
 from runner.data.sessions import ExportSession
+from runner.journal.timeline import session_timeline
 
 __all__ = [
     "BIDS_COLUMNS",
@@ -150,9 +151,14 @@ def event_rows(session: ExportSession) -> EventRows:
 
     Rows of a trial run that a later completion of the same trial replaced are left out; runs
     never completed are kept with ``completed`` 0. A resume starts a new attempt; what the
-    previous attempt left open keeps an unknown end.
+    previous attempt left open keeps an unknown end. Times are on the session timeline
+    (:func:`runner.journal.timeline.session_timeline`): onsets go forward across attempts, also
+    when the clock restarted between them.
     """
     records = session.read.records
+    # Times go onto one session timeline, also across a restarted clock (a resume after a reboot).
+    timeline = session_timeline(records)
+    shifted = any(seg.offset for seg in timeline.segments)
     # For each trial number, which of its runs (1, 2, ... in journal order) completed last.
     winners: dict[int, int] = {}
     rows: list[EventRow] = []
@@ -162,9 +168,11 @@ def event_rows(session: ExportSession) -> EventRows:
     runs: dict[int, int] = {}
     starts: dict[tuple[int, int], dict[str, Any]] = {}
     attempt = 0
-    for rec in records:
+    for i, rec in enumerate(records):
         event = rec.get("event")
         t = rec.get("t")
+        if shifted and t is not None:
+            t = timeline.at(i, t)
         if event == "flip":
             if next_flip and t is not None:
                 still = [r for r in next_flip if not t > r.t]

@@ -67,7 +67,9 @@ def session_origin(session: ExportSession) -> Origin:
         description=(
             "Onset in seconds from the session start: the session_start marker, sent when the "
             "session began, at presenter LSL clock time "
-            f"{t0:.{SECONDS_DECIMALS}f} s. No recording was used to set the origin."
+            f"{t0:.{SECONDS_DECIMALS}f} s. No recording was used to set the origin. Later "
+            "attempts (resumes) are on the same timeline; an attempt whose clock restarted "
+            "(a reboot) was placed by the wall clock."
         ),
         details={"session_start_lsl": t0},
     )
@@ -104,7 +106,9 @@ def recording_origin(
             "export without --recording to use the session start as the origin."
         )
     stream = eeg[0]
-    markers = session.markers()
+    # On the session timeline, like the event rows: one clock offset serves every attempt, also
+    # when the presenter's clock restarted between them (bridged by the wall clock).
+    markers = session.markers(on_timeline=True)
     info = session.header.get("markers") or {}
     report = check_recording(rec, markers, source_id=info.get("source_id"), name=info.get("name"))
     for sid in report.choice.stream_ids:

@@ -25,6 +25,7 @@ from runner.contract.layout import JOURNAL_NAME, is_label
 from runner.errors import InputFileError, JournalError
 from runner.journal.frozen import protocol_from_header
 from runner.journal.read import JournalRead, read_journal
+from runner.journal.timeline import session_timeline
 from runner.journal.trials import session_facts
 from runner.protocol.model import Protocol
 
@@ -52,6 +53,7 @@ EXPORT_EVENTS = frozenset(
         "session_resume",
         "session_end",
         "abort",
+        "clock_epoch",
     }
 )
 # Worker processes pay off from this many sessions on (starting them takes a moment).
@@ -128,11 +130,18 @@ class ExportSession:
             "the session did not start."
         )
 
-    def markers(self) -> list[tuple[str, float]]:
-        """Every marker the session sent, as ``(payload, LSL timestamp)`` from the journal."""
+    def markers(self, *, on_timeline: bool = False) -> list[tuple[str, float]]:
+        """Every marker the session sent, as ``(payload, LSL timestamp)`` from the journal.
+
+        With ``on_timeline`` the times are on the session timeline
+        (:func:`runner.journal.timeline.session_timeline`): the same unless an attempt ran on a
+        restarted clock.
+        """
+        records = self.read.records
+        timeline = session_timeline(records) if on_timeline else None
         return [
-            (str(r[MARKER_FIELD]), float(r["t"]))
-            for r in self.read.records
+            (str(r[MARKER_FIELD]), timeline.at(i, float(r["t"])) if timeline else float(r["t"]))
+            for i, r in enumerate(records)
             if MARKER_FIELD in r and "t" in r
         ]
 

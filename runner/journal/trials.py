@@ -23,11 +23,13 @@ from runner.contract.line import num as _num
 
 __all__ = [
     "ATTEMPT_EVENTS",
+    "STIMULI_ACCEPTED",
     "Attempt",
     "attempts",
     "completed_trials",
     "session_facts",
     "session_span",
+    "stimulus_hashes_now",
     "trial_of_end",
     "winning_records",
 ]
@@ -37,6 +39,8 @@ __all__ = [
 ATTEMPT_NEUTRAL = frozenset(
     {"session_start", "session_resume", "recorder_connected", "recorder_lost", "warning"}
 )
+# Lines a resuming process writes before its session_resume (runner.session.run).
+PROCESS_STARTS = frozenset({"clock_epoch", "session_interrupted"})
 # The lines that shape attempts; the rest (flips, answers...) cannot start or end one.
 ATTEMPT_EVENTS = (
     "session_start",
@@ -104,7 +108,13 @@ def session_facts(records: Iterable[dict[str, Any]]) -> tuple[str, float, list[d
                 by_trial[row["trial"]] = row
         if not isinstance(t, (int, float)):
             continue
-        if event in ATTEMPT_STARTS:
+        if event in PROCESS_STARTS:
+            # A resuming process's first lines: the attempt before it ended at its last line
+            # (its time after that is downtime, and may be on a restarted clock).
+            if start is not None and last_t is not None:
+                total += last_t - start
+            start = None
+        elif event in ATTEMPT_STARTS:
             if start is not None and last_t is not None:
                 total += last_t - start
             start = float(t)
@@ -182,3 +192,25 @@ def attempts(records: Iterable[tuple[int, dict[str, Any]]]) -> list[Attempt]:
             cur.end_line, cur.end_t = n, _num(rec.get("t"))
             cur.status = str(rec.get("status") or "unknown")
     return found
+
+
+#: The journal event that acknowledges changed stimuli at a resume (``--accept-changed-stimuli``).
+STIMULI_ACCEPTED = "stimuli_changed_accepted"
+
+
+def stimulus_hashes_now(records: Iterable[dict[str, Any]]) -> dict[str, str]:
+    """The stimulus hashes the session runs with after its last line.
+
+    Those of the header (``stimulus_hashes``), updated by every acknowledged change
+    (:data:`STIMULI_ACCEPTED` lines, each listing ``files`` with ``stimulus``, ``old``, ``new``).
+    """
+    out: dict[str, str] = {}
+    for rec in records:
+        event = rec.get("event")
+        if event == "header" and isinstance(rec.get("stimulus_hashes"), dict):
+            out.update({str(k): str(v) for k, v in rec["stimulus_hashes"].items()})
+        elif event == STIMULI_ACCEPTED and isinstance(rec.get("files"), list):
+            for f in rec["files"]:
+                if isinstance(f, dict) and isinstance(f.get("stimulus"), str):
+                    out[f["stimulus"]] = str(f.get("new"))
+    return out

@@ -39,12 +39,15 @@ from runner.journal.read import ChainCheck, verify_chain
 from runner.journal.trials import ATTEMPT_EVENTS, Attempt
 from runner.journal.trials import attempts as find_attempts
 from runner.qa.audit_checks import (
+    check_accepted_stimuli,
     check_against_recording,
     check_completion,
     check_files,
     check_photodiode,
     check_responses,
+    check_timeline,
     check_trials_csv,
+    check_unrecorded_markers,
     journaled_markers,
 )
 from runner.qa.audit_facts import AUDIT_FORMAT, EventIndex, Findings, SessionAudit
@@ -160,13 +163,17 @@ def audit_session(
     attempts = find_attempts(ix.of(*ATTEMPT_EVENTS))
     facts["attempts"] = [a.as_dict() for a in attempts]
     completed = check_completion(header, ix, attempts, out, facts)
-    check_files(header, folder, out, facts, hashes or HashCache())
+    check_timeline(records, out, facts)
+    check_files(header, folder, out, facts, hashes or HashCache(), ix)
+    check_accepted_stimuli(ix, out, facts)
     check_timing(header, ix, out, facts)
     check_responses(header, ix, completed, out, facts)
     check_trials_csv(folder, completed, out, facts)
 
     report: RecordingReport | None = None
-    if recording is not None:
+    if recording is None:
+        check_unrecorded_markers(events, out, facts)
+    else:
         report = check_against_recording(
             header, events, recording, out, facts, max_gap_s, residual_limit_ms
         )

@@ -24,7 +24,14 @@ from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TRIALS_NAME, d
 from runner.contract.line import as_int, num
 from runner.errors import ProtocolError, RecordingError
 from runner.journal.frozen import frozen_protocol, frozen_text
-from runner.journal.trials import Attempt, trial_of_end
+from runner.journal.timeline import session_timeline
+from runner.journal.trials import (
+    PROCESS_STARTS,
+    STIMULI_ACCEPTED,
+    Attempt,
+    stimulus_hashes_now,
+    trial_of_end,
+)
 from runner.qa.audit_facts import (
     CompletedTrial,
     EventIndex,
@@ -229,8 +236,19 @@ def check_completion(
 
 
 def check_files(
-    header: dict[str, Any], folder: Path, out: Findings, facts: dict[str, Any], cache: HashCache
+    header: dict[str, Any],
+    folder: Path,
+    out: Findings,
+    facts: dict[str, Any],
+    cache: HashCache,
+    ix: EventIndex | None = None,
 ) -> None:
+    """The frozen copies and the stimulus files against the journal.
+
+    A stimulus is compared with the hash the session last ran with: the header's, or the new
+    one of a change accepted at a resume (``ix``'s ``stimuli_changed_accepted`` lines, which
+    :func:`check_accepted_stimuli` reports).
+    """
     info: dict[str, Any] = {}
     for name, key in ((FROZEN_PROTOCOL, "protocol_text"), (FROZEN_TABLE, "trial_table_text")):
         path = folder / name
@@ -259,6 +277,8 @@ def check_files(
             info[name] = "unchanged"
 
     hashes = header.get("stimulus_hashes")
+    if isinstance(hashes, dict) and ix is not None:
+        hashes = stimulus_hashes_now([header] + [r for _, r in ix.of(STIMULI_ACCEPTED)])
     table_file = header.get("trial_table_file")
     if not isinstance(hashes, dict) or not isinstance(table_file, str):
         facts["files"] = info
@@ -608,3 +628,130 @@ def check_photodiode(
             file=rec_file,
             code="photodiode-edges",
         )
+
+
+# --------------------------------------------------------------------------------------------
+# Changed stimuli accepted at a resume
+
+
+def check_accepted_stimuli(ix: EventIndex, out: Findings, facts: dict[str, Any]) -> None:
+    """Report each resume that went on with changed stimuli (``--accept-changed-stimuli``)."""
+    found: list[dict[str, Any]] = []
+    for n, rec in ix.of(STIMULI_ACCEPTED):
+        files = [f for f in rec.get("files") or [] if isinstance(f, dict)]
+        names = [str(f.get("stimulus")) for f in files]
+        attempt = as_int(rec.get("attempt"))
+        found.append({"line": n, "attempt": attempt, "files": files})
+        out.warning(
+            f"at the resume that began attempt {attempt if attempt is not None else '?'} the "
+            f"experimenter accepted {plural(len(files), 'changed stimulus file')} "
+            f"({listing(names)}): trials before it showed the earlier "
+            f"{'version' if len(files) == 1 else 'versions'}, trials after it the new "
+            f"{'one' if len(files) == 1 else 'ones'} (old and new hashes are on this line).",
+            n,
+            code="changed-stimuli-accepted",
+        )
+    facts["stimuli_accepted"] = found
+
+
+# --------------------------------------------------------------------------------------------
+# Markers sent while no recorder was connected (from the journal alone)
+
+
+def count_unrecorded_markers(events: Iterable[tuple[int, dict[str, Any]]]) -> dict[str, Any]:
+    """Markers journaled while no consumer was connected to the marker stream.
+
+    Each process (the first attempt, each resume) opens its own outlet with no consumer; the
+    journal's ``recorder_connected`` and ``recorder_lost`` lines say when that changed.
+    """
+    connected = False
+    ever = False
+    sent = 0
+    lost: list[tuple[int, int | None]] = []  # (line, trial)
+    first_connect: int | None = None
+    drops: list[int] = []
+    for n, rec in events:
+        event = rec.get("event")
+        if event in PROCESS_STARTS:
+            connected = False
+        elif event == "recorder_connected":
+            connected = ever = True
+            if first_connect is None:
+                first_connect = n
+        elif event == "recorder_lost":
+            connected = False
+            drops.append(n)
+        if isinstance(rec.get("marker"), str):
+            sent += 1
+            if not connected:
+                lost.append((n, as_int(rec.get("trial"))))
+    trials = [t for _, t in lost if t is not None]
+    return {
+        "sent": sent,
+        "without_recorder": len(lost),
+        "first_line": lost[0][0] if lost else None,
+        "first_trial": min(trials) if trials else None,
+        "last_trial": max(trials) if trials else None,
+        "recorder": ("never connected" if not ever else "dropped" if drops else "connected"),
+        "first_connected_line": first_connect,
+        "dropped_lines": drops,
+    }
+
+
+def check_unrecorded_markers(
+    events: list[tuple[int, dict[str, Any]]], out: Findings, facts: dict[str, Any]
+) -> None:
+    """Warn about markers the journal knows no recorder received (audit without a recording)."""
+    info = count_unrecorded_markers(events)
+    facts["markers"] = info
+    n = info["without_recorder"]
+    if not n:
+        return
+    if info["recorder"] == "never connected":
+        why = "no recorder ever connected to the marker stream"
+    elif info["dropped_lines"]:
+        why = (
+            "the recorder connected late or dropped out (lost at line "
+            f"{listing(info['dropped_lines'])})"
+        )
+    else:
+        why = f"the recorder connected late (at line {info['first_connected_line']})"
+    if info["first_trial"] is None:
+        where = "none of them in a trial"
+    elif info["first_trial"] == info["last_trial"]:
+        where = f"trial {info['first_trial']} affected"
+    else:
+        where = f"trials {info['first_trial']} to {info['last_trial']} affected"
+    out.warning(
+        f"{n} of {info['sent']} markers were sent while no recorder was connected ({why}; "
+        f"{where}): they are in no recording. Give the recording with --recording to check "
+        "what it holds.",
+        info["first_line"] or 0,
+        code="markers-unrecorded",
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# The session timeline across attempts
+
+
+def check_timeline(
+    records: list[tuple[int, dict[str, Any]]], out: Findings, facts: dict[str, Any]
+) -> None:
+    """How each attempt's clock maps onto the session timeline; a restarted clock is noted."""
+    timeline = session_timeline([r for _, r in records])
+    found: list[dict[str, Any]] = []
+    for segment in timeline.segments:
+        line = records[segment.first][0]
+        found.append({**segment.as_dict(), "first_line": line})
+        if not segment.restarted:
+            continue
+        out.warning(
+            f"the clock restarted before the attempt that begins at line {line} (a reboot or"
+            " another computer): its times were placed on the session timeline by the"
+            f" {segment.bridge} (shifted {segment.offset:+.3f} s). Durations within the attempt"
+            " are exact; the gap between attempts is as the wall clock says.",
+            line,
+            code="clock-restarted",
+        )
+    facts["timeline"] = found

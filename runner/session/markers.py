@@ -93,6 +93,21 @@ def make_source_id(study: str, station: str) -> str:
     return f"trialdeck:{study}:{station}"
 
 
+def source_id_candidates(
+    study: str, station: str, participant: str, session: str, journaled: str | None = None
+) -> list[str]:
+    """The source_ids a session may send under, in order of preference.
+
+    First the stable ``trialdeck:<study>:<station>``; when another session on this machine is
+    sending under it, the same id suffixed with ``:sub-<participant>:ses-<session>``. On resume,
+    the one of these two the session already used (``journaled``) comes first, so a recorder
+    reconnects.
+    """
+    base = make_source_id(study, station)
+    suffixed = f"{base}:sub-{participant}:ses-{session}"
+    return [suffixed, base] if journaled == suffixed else [base, suffixed]
+
+
 @dataclass(frozen=True)
 class StreamDetails:
     name: str

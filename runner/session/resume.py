@@ -14,16 +14,26 @@ from pathlib import Path
 from typing import Any
 
 from runner.contract.events import ATTEMPT_STARTS, STATUS_COMPLETED
+from runner.contract.hashing import file_sha256
 from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE
 from runner.errors import JournalError
 from runner.journal.read import JournalRead, read_journal
 from runner.journal.trials import completed_trials as _completed
+from runner.journal.trials import stimulus_hashes_now
 from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Schedule
 
 
 class SessionComplete(JournalError):
     """The session asked to resume already ended as completed."""
+
+
+class ResumeRefused(JournalError):
+    """The resume would not continue the session as it was run (mode, speed or stimuli)."""
+
+
+# The verb that runs each mode, for the refusal that names the right command.
+VERB_OF_MODE = {"live": "run", "pilot": "pilot"}
 
 
 @dataclass
@@ -33,6 +43,97 @@ class ResumePlan:
     done: set[int]
     attempt: int  # the number of the attempt about to start (2 for the first resume)
     interrupted: dict[str, Any] = field(default_factory=dict)
+    header: dict[str, Any] = field(default_factory=dict)
+    # The stimulus hashes the session ran with so far (header, updated by acknowledged changes).
+    stimulus_hashes: dict[str, str] = field(default_factory=dict)
+    # Changed stimuli the experimenter accepted (--accept-changed-stimuli), journaled on resume.
+    accepted_stimuli: list[dict[str, str]] = field(default_factory=list)
+
+
+def resume_speed(header: dict[str, Any], mode: str, speed: float | None) -> float:
+    """The speed a resume runs at: the session's own, from its journal header.
+
+    A resume continues the session in the mode it was started in (a live session cannot be
+    finished by ``pilot --resume``, nor a pilot by ``run --resume``) and at its speed: an
+    explicit ``--speed`` that differs is refused rather than silently ignored.
+
+    Raises
+    ------
+    ResumeRefused
+        The mode differs, or ``speed`` is given and differs from the journaled one.
+    """
+    started = header.get("mode")
+    if started != mode:
+        verb = VERB_OF_MODE.get(str(started))
+        how = f"continue it with `trialdeck {verb} --resume`" if verb else "it cannot be resumed"
+        raise ResumeRefused(
+            f"this session was started as a {started} session, so `{VERB_OF_MODE.get(mode, mode)}"
+            f" --resume` cannot continue it; {how}."
+        )
+    journaled = header.get("speed", 1.0)
+    if isinstance(journaled, bool) or not isinstance(journaled, (int, float)) or journaled <= 0:
+        raise ResumeRefused("the journal header holds no valid speed, so it cannot be resumed.")
+    if speed is not None and float(speed) != float(journaled):
+        raise ResumeRefused(
+            f"this session runs at --speed {journaled:g}; a resume keeps the session's speed."
+            f" Leave out --speed (or give --speed {journaled:g})."
+        )
+    return float(journaled)
+
+
+def changed_stimuli(
+    journaled: dict[str, str], loaded: LoadedProtocol
+) -> tuple[list[dict[str, str]], list[str]]:
+    """Stimulus files whose content differs from the journaled hashes.
+
+    ``journaled`` are the hashes the session ran with (:attr:`ResumePlan.stimulus_hashes`).
+    Returns the changed files (``{"stimulus", "old", "new"}``, in journal order) and the files
+    that can no longer be read.
+    """
+    base = loaded.table.path.parent
+    changed: list[dict[str, str]] = []
+    missing: list[str] = []
+    for rel, old in journaled.items():
+        try:
+            new = file_sha256(base / str(rel))
+        except OSError:
+            missing.append(str(rel))
+            continue
+        if new != old:
+            changed.append({"stimulus": str(rel), "old": str(old), "new": new})
+    return changed, missing
+
+
+def check_stimuli(
+    journaled: dict[str, str], loaded: LoadedProtocol, *, accept_changed: bool
+) -> list[dict[str, str]]:
+    """Refuse to resume with stimuli that differ from those the session started with.
+
+    Returns the changed files when ``accept_changed`` is set (the caller journals them as
+    acknowledged); a missing file is always refused, as it cannot be shown.
+
+    Raises
+    ------
+    ResumeRefused
+        A stimulus is missing, or changed without ``accept_changed``.
+    """
+    changed, missing = changed_stimuli(journaled, loaded)
+    base = loaded.table.path.parent
+    if missing:
+        raise ResumeRefused(
+            f"stimulus file {missing[0]} (in {base}) is missing"
+            + (f", and {len(missing) - 1} more" if len(missing) > 1 else "")
+            + "; restore the files the session started with before resuming."
+        )
+    if changed and not accept_changed:
+        names = ", ".join(c["stimulus"] for c in changed[:5])
+        more = f" and {len(changed) - 5} more" if len(changed) > 5 else ""
+        raise ResumeRefused(
+            f"stimulus files changed since the session started: {names}{more} (in {base}). Restore"
+            " the originals, or resume with --accept-changed-stimuli to go on with the new files"
+            " (the change is journaled and reported by audit)."
+        )
+    return changed
 
 
 def schedule_summary(schedule: Schedule) -> list[dict[str, Any]]:
@@ -122,4 +223,6 @@ def plan_resume(path: Path, loaded: LoadedProtocol, schedule: Schedule) -> Resum
         done=completed_trials(read),
         attempt=len(starts) + 1,
         interrupted=describe_interruption(read, size - read.good_bytes),
+        header=header,
+        stimulus_hashes=stimulus_hashes_now(read.records),
     )

@@ -1,25 +1,31 @@
 """Start, run and close one session: the order of the steps is what keeps data safe.
 
 1. Load and schedule (bad input stops here; nothing has been created).
-2. Refuse an existing session folder (unless resuming it), check the output folder takes writes
-   and has room.
+2. Take the session lock of an existing session (one writer per session: a second process is
+   refused, naming the one that runs). Refuse an existing session folder (unless resuming it);
+   a resume keeps the session's mode and speed and refuses changed stimuli unless they are
+   accepted. Check the output folder takes writes and has room.
 3. Open the display and measure its refresh; refuse a live run whose flips do not block or whose
    rate is off by more than 2 % (unless the mismatch is explicitly allowed, then journal it).
-4. Open the marker outlet (and the trigger port); optionally wait for a recorder.
-5. Create the journal with its header and the frozen protocol and trial table (or, on resume,
-   reopen it and journal the interrupted attempt).
+4. Claim a source_id no other session on this machine sends under, open the marker outlet (and
+   the trigger port); optionally wait for a recorder.
+5. Create the session folder, its lock and the journal with its header and the frozen protocol
+   and trial table (or, on resume, reopen it and journal the attempt's clock epoch, the
+   interrupted attempt and any accepted stimulus change).
 6. Run the engine. On every exit path (completed, aborted, exception, Ctrl+C) the journal gets a
    closing line and is fsynced, and trials.csv is written from it.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import os
 import platform
 import shutil
 import sys
 import tempfile
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,7 +33,13 @@ from typing import Any, Literal
 
 from runner import __version__
 from runner.contract.hashing import file_sha256
-from runner.contract.layout import FROZEN_PROTOCOL, FROZEN_TABLE, TORN_SUFFIX, session_folder
+from runner.contract.layout import (
+    FROZEN_PROTOCOL,
+    FROZEN_TABLE,
+    LOCK_NAME,
+    TORN_SUFFIX,
+    session_folder,
+)
 from runner.contract.outputs import replace_file
 from runner.errors import (
     DisplayError,
@@ -41,10 +53,24 @@ from runner.protocol.load import LoadedProtocol
 from runner.protocol.schedule import Schedule, build_schedule
 from runner.session.engine import AbortRequested, Engine
 from runner.session.journal import JOURNAL_NAME, Journal, read_journal
-from runner.session.markers import MarkerOutlet, local_clock, make_source_id, station_name
+from runner.session.lock import SessionLock, claim_source_id
+from runner.session.markers import (
+    MarkerOutlet,
+    local_clock,
+    make_source_id,
+    source_id_candidates,
+    station_name,
+)
 from runner.session.ports import ConsoleLike, Observer, Presenter
 from runner.session.records import write_trials_csv
-from runner.session.resume import ResumePlan, SessionComplete, plan_resume, schedule_summary
+from runner.session.resume import (
+    ResumePlan,
+    SessionComplete,
+    check_stimuli,
+    plan_resume,
+    resume_speed,
+    schedule_summary,
+)
 from runner.session.simulate import SimulatedParticipant
 from runner.session.triggers import SerialTriggers, trigger_map
 
@@ -58,7 +84,8 @@ class RunOptions:
     session: str = "1"
     out: Path = Path("sessions")
     mode: Literal["live", "pilot"] = "live"
-    speed: float = 1.0
+    # None: not given (1, or on --resume the session's own speed from its journal header).
+    speed: float | None = None
     wait_for_recorder: float | None = None
     station: str | None = None
     abort_at: int | None = None
@@ -67,6 +94,7 @@ class RunOptions:
     pause_key: str | None = "p"
     trigger_port: str | None = None
     pause_at: int | None = None
+    accept_changed_stimuli: bool = False
 
 
 @dataclass
@@ -103,7 +131,7 @@ def _header(
     hashes: dict[str, str],
 ) -> dict[str, Any]:
     model = loaded.model
-    now_lsl = local_clock()
+    now_lsl, now_wall = local_clock(), time.time()
     return {
         "software": "trialdeck",
         "version": __version__,
@@ -112,10 +140,11 @@ def _header(
         "study": model.study,
         "participant": schedule.participant,
         "session": schedule.session,
-        "wall_clock_start": _dt.datetime.now(_dt.UTC)
+        "wall_clock_start": _dt.datetime.fromtimestamp(now_wall, _dt.UTC)
         .astimezone()
         .isoformat(timespec="milliseconds"),
         "lsl_clock_at_start": now_lsl,
+        "wall_clock_unix_at_start": now_wall,
         "protocol_file": str(loaded.path),
         "protocol_hash": loaded.content_hash,
         "protocol_text": loaded.raw.decode("utf-8"),
@@ -247,13 +276,48 @@ def _open_journal(
     folder: Path,
     plan: ResumePlan | None,
     header: Any,
+    lock: SessionLock,
 ) -> Journal:
     if plan is None:
+        # A new session: its folder and lock come into being together, right before the journal,
+        # so a refusal earlier (display, storage, recorder) leaves nothing behind.
+        try:
+            folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise StorageError(
+                f"cannot create the session folder {folder}: {exc.strerror}."
+            ) from None
+        lock.create = True
+        lock.acquire()
+        lock.write_holder()
         return Journal.create(folder, header())
     journal = Journal.reopen(folder / JOURNAL_NAME)
+    # This attempt's clock epoch first: its lines are on this process's local_clock, which after
+    # a reboot restarted (runner.journal.timeline maps every attempt onto one session timeline).
+    journal.append("clock_epoch", **clock_epoch(plan.attempt))
     journal.append("session_interrupted", t=local_clock(), **plan.interrupted)
+    if plan.accepted_stimuli:
+        journal.append(
+            "stimuli_changed_accepted",
+            t=local_clock(),
+            attempt=plan.attempt,
+            files=plan.accepted_stimuli,
+        )
     journal.sync()
     return journal
+
+
+def clock_epoch(attempt: int) -> dict[str, Any]:
+    """The local_clock and the wall clock read together, at the start of ``attempt``."""
+    t, wall = local_clock(), time.time()
+    return {
+        "t": t,
+        "attempt": attempt,
+        "wall_clock": _dt.datetime.fromtimestamp(wall, _dt.UTC)
+        .astimezone()
+        .isoformat(timespec="milliseconds"),
+        "wall_clock_unix": wall,
+    }
 
 
 def _prepare_resume(
@@ -287,6 +351,27 @@ def _prepare_resume(
         raise SessionComplete(f"{exc} Its trials.csv was rewritten from the journal.") from None
 
 
+class WatchedMarkers:
+    """The marker outlet, checking for a recorder before every marker it sends.
+
+    A recorder that connects or drops is journaled (by ``watch``, the engine's
+    ``watch_recorder``) before the marker that finds it changed, so the journal knows which
+    markers went out with no consumer connected (audit counts them).
+    """
+
+    def __init__(self, outlet: MarkerOutlet):
+        self.outlet = outlet
+        self.watch: Callable[[float], None] | None = None
+
+    def push(self, payload: str, timestamp: float) -> float:
+        if self.watch is not None:
+            self.watch(timestamp)
+        return self.outlet.push(payload, timestamp)
+
+    def have_consumers(self) -> bool:
+        return self.outlet.have_consumers()
+
+
 RESERVED_KEYS = frozenset({"escape", "return", "backspace", "y"} | set("0123456789"))
 
 
@@ -311,11 +396,64 @@ def run_session(
     console: ConsoleLike,
     observers: list[Observer] | None = None,
 ) -> RunResult:
-    """Run one session from start to closed journal and trials.csv. See the module docstring."""
+    """Run one session from start to closed journal and trials.csv. See the module docstring.
+
+    Raises
+    ------
+    SessionBusyError
+        Another process is writing this session (a run, pilot or resume still going).
+    """
     check_pause_key(loaded, opts.pause_key)
     schedule = build_schedule(loaded, opts.participant, opts.session)
     folder = session_folder(opts.out, loaded.model.study, schedule.participant, schedule.session)
+    # One writer per session: an existing session is locked before its journal is read; a new
+    # one when its folder is made (see _open_journal). Held until everything is written.
+    # Without --resume an existing session is only probed (refused as running, or as existing).
+    lock = SessionLock(
+        folder / LOCK_NAME,
+        what=f"the session at {folder}",
+        mode=opts.mode,
+        create=opts.resume,
+        record=opts.resume,
+    )
+    try:
+        if (folder / JOURNAL_NAME).exists():
+            lock.acquire()
+        return _run_locked(
+            loaded,
+            opts,
+            schedule,
+            folder,
+            lock,
+            open_presenter=open_presenter,
+            console=console,
+            observers=observers,
+        )
+    finally:
+        lock.release()
+
+
+def _run_locked(
+    loaded: LoadedProtocol,
+    opts: RunOptions,
+    schedule: Schedule,
+    folder: Path,
+    lock: SessionLock,
+    *,
+    open_presenter: Callable[[], Presenter],
+    console: ConsoleLike,
+    observers: list[Observer] | None,
+) -> RunResult:
     plan = _prepare_resume(folder, loaded, schedule, opts)
+    if plan is not None:
+        # A resume continues the session as it was run: same mode, same speed, same stimuli.
+        opts = dataclasses.replace(opts, speed=resume_speed(plan.header, opts.mode, opts.speed))
+        plan.accepted_stimuli = check_stimuli(
+            plan.stimulus_hashes, loaded, accept_changed=opts.accept_changed_stimuli
+        )
+    elif opts.speed is None:
+        opts = dataclasses.replace(opts, speed=1.0)
+    speed = opts.speed if opts.speed is not None else 1.0
     check_writable(opts.out)
     codes = trigger_map(loaded)
     hashes = stimulus_hashes(loaded)
@@ -324,6 +462,7 @@ def run_session(
     sim: SimulatedParticipant | None = None
     journal: Journal | None = None
     triggers: SerialTriggers | None = None
+    stream_lock: SessionLock | None = None
     try:
         timing = _check_display(presenter, opts, console)
         port = opts.trigger_port or (
@@ -343,9 +482,31 @@ def run_session(
                 f"--trigger-port {port} is ignored: the protocol has no triggers.codes to send."
             )
         station = station_name(opts.station or loaded.model.markers.station)
+        # Two sessions on one machine never share a source_id: the second takes the suffixed one
+        # (held like the session lock, for as long as the outlet is open).
+        journaled_markers = plan.header.get("markers") if plan is not None else None
+        source_id, stream_lock = claim_source_id(
+            source_id_candidates(
+                loaded.model.study,
+                station,
+                schedule.participant,
+                schedule.session,
+                journaled_markers.get("source_id") if isinstance(journaled_markers, dict) else None,
+            ),
+            mode=opts.mode,
+        )
+        base_id = make_source_id(loaded.model.study, station)
+        if source_id != base_id and (
+            not isinstance(journaled_markers, dict)
+            or journaled_markers.get("source_id") != source_id
+        ):
+            console.warn(
+                f"Another session on this machine sends markers as {base_id!r}; this one uses"
+                f" {source_id!r}. Select that stream in the recorder."
+            )
         outlet = MarkerOutlet(
             loaded.model.markers.stream,
-            make_source_id(loaded.model.study, station),
+            source_id,
             metadata={
                 "study": loaded.model.study,
                 "participant": schedule.participant,
@@ -377,14 +538,16 @@ def run_session(
                 "timing": timing,
                 "triggers": {"port": port, "codes": codes} if triggers is not None else None,
             },
+            lock,
         )
         if plan is not None:
             journal.append(
                 "display_check",
                 t=local_clock(),
                 mode=opts.mode,
-                speed=opts.speed,
+                speed=speed,
                 interval_s=presenter.interval,
+                markers=outlet.details.as_dict(),
                 **timing,
             )
             console.info(
@@ -402,7 +565,7 @@ def run_session(
                 unsure_key=ans.unsure_key,
                 decision_key=ans.decision_key,
                 mode=ans.mode,
-                speed=opts.speed,
+                speed=speed,
                 post=presenter.post_key,
                 clock=local_clock,
                 abort_at=opts.abort_at,
@@ -421,14 +584,15 @@ def run_session(
                     "The recorder disconnected from the marker stream: markers are not being recorded."
                 )
 
+        watched = WatchedMarkers(outlet)
         engine = Engine(
             loaded,
             schedule,
             presenter=presenter,
             journal=journal,
-            markers=outlet,
+            markers=watched,
             clock=local_clock,
-            speed=opts.speed,
+            speed=speed,
             observers=all_observers,
             extra_row=sim.extra_row if sim is not None else None,
             on_recorder_change=recorder_change,
@@ -439,6 +603,12 @@ def run_session(
         )
         # Losing the display (the X server) ends the process from C: close the session first.
         presenter.on_lost = _display_lost_close(engine, journal, folder)
+        # Whether a recorder listens as the attempt starts: journaled, so that audit can count
+        # the markers sent while none was connected (the engine journals every change after).
+        engine.state.recorder_connected = outlet.have_consumers()
+        if engine.state.recorder_connected:
+            journal.append("recorder_connected", t=local_clock())
+        watched.watch = engine.watch_recorder
         status = "completed"
         error: BaseException | None = None
         # A short GIL switch interval bounds how long the engine can wait for the interpreter
@@ -507,3 +677,5 @@ def run_session(
         presenter.close()
         if outlet is not None:
             outlet.close()
+        if stream_lock is not None:
+            stream_lock.release()
