@@ -62,6 +62,9 @@ def _protocol(tmp: Path, mode: str, *, study: str) -> Path:
     path = folder / MINI_PROTOCOL.name
     data = yaml.safe_load(path.read_text("utf-8"))
     data["answer"]["mode"] = mode
+    if mode == "over":
+        # Room beside the stimulus for the answer box (check refuses a box over the stimulus).
+        data["stimulus_size"] = {"width_px": 400}
     data["study"] = study
     data["markers"]["stream"] = f"{study}-markers"
     path.write_text(yaml.safe_dump(data, sort_keys=False), "utf-8")

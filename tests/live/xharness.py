@@ -206,5 +206,7 @@ class MarkerListener:
 
     def stop(self) -> None:
         self._stop.set()
-        self._thread.join(timeout=5)
-        self.inlet.close_stream()
+        thread = getattr(self, "_thread", None)  # not there when start() found no stream
+        if thread is not None:
+            thread.join(timeout=5)
+            self.inlet.close_stream()
