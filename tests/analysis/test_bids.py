@@ -494,3 +494,38 @@ def test_export_reads_a_truncated_recording_only_when_allowed(pilots, tmp_path, 
     args = ["export", str(folder), "--out", str(tmp_path / "b"), "--recording", str(cut)]
     assert main([*args, "--allow-truncated"]) == 0
     assert "first EEG sample" in capsys.readouterr().out
+
+
+def test_mne_bids_reads_the_event_codes_and_mne_pools_sessions(bids_out: Path):
+    """mne-bids reads each events.tsv into annotations whose event ids are the fixed values, the
+    same in sessions with different event sets, so MNE pools their stimulus epochs.
+
+    Source: mne_bids.read.events_file_to_annotation_kwargs (it takes event ids from the value
+    column) and mne.concatenate_epochs, which refuses epochs whose event ids disagree.
+    """
+    mne = pytest.importorskip("mne", reason="MNE is part of the test extra")
+    mne_bids_read = pytest.importorskip("mne_bids.read", reason="mne-bids is in the test extra")
+    from runner.contract.events import EVENT_VALUES
+
+    epochs = []
+    event_sets = []
+    for path in _events_files(bids_out):
+        kw = mne_bids_read.events_file_to_annotation_kwargs(path, verbose=False)
+        ids = kw["event_id"]
+        assert ids == {k: EVENT_VALUES[k] for k in ids}
+        event_sets.append(frozenset(ids))
+        sfreq = 100.0
+        length = float(np.nanmax(kw["onset"])) + 2.0
+        info = mne.create_info(["light"], sfreq, ch_types="misc")
+        raw = mne.io.RawArray(np.zeros((1, int(length * sfreq))), info, verbose=False)
+        raw.set_annotations(
+            mne.Annotations(kw["onset"], np.nan_to_num(kw["duration"]), kw["description"])
+        )
+        events, found = mne.events_from_annotations(raw, event_id=ids, verbose=False)
+        stim = {"stimulus": found["stimulus"]}
+        ep = mne.Epochs(raw, events, stim, tmin=0.0, tmax=0.5, baseline=None, verbose=False)
+        epochs.append(ep.load_data().set_annotations(None))
+    assert len(set(event_sets)) > 1  # the sessions' event sets differ
+    pooled = mne.concatenate_epochs(epochs, verbose=False)
+    assert pooled.event_id == {"stimulus": EVENT_VALUES["stimulus"]}
+    assert len(pooled) == sum(len(e) for e in epochs) > 0
