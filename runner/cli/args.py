@@ -93,3 +93,12 @@ def has_display() -> bool:
     if os.environ.get("SDL_VIDEODRIVER") in ("dummy", "offscreen"):
         return False
     return not no_display()
+
+
+def add_allow_truncated(parser: argparse.ArgumentParser) -> None:
+    """``--allow-truncated``: the recording-reading option audit and export share."""
+    parser.add_argument(
+        "--allow-truncated",
+        action="store_true",
+        help="read the intact part of a truncated recording instead of refusing it",
+    )

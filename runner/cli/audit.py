@@ -6,7 +6,7 @@ import argparse
 import json
 from pathlib import Path
 
-from runner.cli.args import positive_float
+from runner.cli.args import add_allow_truncated, positive_float
 from runner.errors import EXIT_OK, EXIT_PROBLEMS, UsageError
 from runner.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
 
@@ -47,11 +47,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="with --recording: measure the display latency per onset from a light sensor on "
         "the photodiode patch, recorded in this stream (name, source_id or type; channel from 1)",
     )
-    p.add_argument(
-        "--allow-truncated",
-        action="store_true",
-        help="read the intact part of a truncated recording instead of refusing it",
-    )
+    add_allow_truncated(p)
 
 
 def session_folders(paths: list[str]) -> list[Path]:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from runner.cli.args import add_allow_truncated
 from runner.data.export import DATATYPES, DEFAULT_DATATYPE, export_sessions
 from runner.errors import EXIT_OK
 
@@ -30,11 +31,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="XDF recording of a session: onsets then count from the first sample of its EEG "
         "stream; give one per session, in session order",
     )
-    parser.add_argument(
-        "--allow-truncated",
-        action="store_true",
-        help="read the intact part of a truncated recording instead of refusing it",
-    )
+    add_allow_truncated(parser)
     parser.add_argument(
         "--datatype",
         choices=DATATYPES,

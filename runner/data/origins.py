@@ -171,6 +171,6 @@ def recording_origin(
             "origin_presenter_lsl": t0,
         },
         clock=clock,
-        recorded={t: r for _, t, r in match.pairs},
+        recorded=match.recorded_times(),
         zero=first,
     )

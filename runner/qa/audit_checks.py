@@ -610,7 +610,7 @@ def check_photodiode(
     clock = report.match.clock
     if clock is None:
         return
-    recorded = {t: r for _, t, r in report.match.pairs}
+    recorded = report.match.recorded_times()
     flips = [
         (float(r["t"]), bool(r.get("photodiode"))) for _, r in events if r.get("event") == "flip"
     ]

@@ -273,6 +273,10 @@ class MarkerMatch:
     clock: ClockModel | None = field(default=None, repr=False)
     outliers: int = 0
 
+    def recorded_times(self) -> dict[float, float]:
+        """The recorded time of each matched marker, keyed by its journaled (flip) time."""
+        return {t: r for _, t, r in self.pairs}
+
     def as_dict(self) -> dict[str, Any]:
         def items(xs: list[tuple[str, float]]) -> list[dict[str, Any]]:
             return [{"payload": p, "timestamp": t} for p, t in xs]
