@@ -1,25 +1,25 @@
-"""Reading the lab's XDF recording (pyxdf is the only reader), without pylsl or a display.
+"""Reading the lab's XDF recording, without pylsl or a display.
 
 :func:`read_recording` gives a :class:`Recording` of :class:`RecordedStream` objects; a damaged
-or truncated file is named with the byte where it goes wrong.
+or truncated file is named with the byte where it goes wrong. The one reader underneath is the
+streaming :func:`runner.recording.scan.scan_xdf` (one pass over the chunks, only the channels
+asked for kept, pyxdf's clock synchronisation); :func:`read_stream_channels` reads selected
+channels of one stream as float32 for per-trial analyses.
 """
 
 from __future__ import annotations
 
-import logging
 import struct
-import warnings
-from collections.abc import Iterator
-from contextlib import contextmanager
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
-from xml.etree.ElementTree import ParseError
 
 import numpy as np
-import pyxdf
 
 from runner.errors import RecordingError
+from runner.recording.dejitter import dejitter
+from runner.recording.scan import Select, XdfFormatError, scan_xdf
 
 MARKER_TYPE = "Markers"
 XDF_MAGIC = b"XDF:"
@@ -27,8 +27,6 @@ XDF_MAGIC = b"XDF:"
 KNOWN_TAGS = frozenset({1, 2, 3, 4, 5, 6})
 VARLEN_WIDTHS = {1: "<B", 4: "<I", 8: "<Q"}
 TAG_BYTES = 2
-PYXDF_LOGGER = "pyxdf"
-PYXDF_NO_OFFSET_MESSAGE = "Segments and clock-segments differ"
 
 
 # Reading
@@ -38,7 +36,7 @@ PYXDF_NO_OFFSET_MESSAGE = "Segments and clock-segments differ"
 class RecordedStream:
     """What an XDF file says about one stream, plus a summary of its samples.
 
-    Timestamps are in the recorder's clock after pyxdf's clock synchronisation.
+    Timestamps are in the recorder's clock after clock synchronisation (pyxdf's procedure).
     ``clock_offset_s`` is the median of the stream's ClockOffset values (0.0 when it has none):
     subtracting it maps a synchronised timestamp back to the sending machine's clock to within
     the offset's spread.
@@ -106,6 +104,11 @@ class Recording:
     truncated: bool = False
     _timestamps: dict[int, np.ndarray] = field(default_factory=dict, repr=False)
     _values: dict[int, Any] = field(default_factory=dict, repr=False)
+    _kept: dict[int, tuple[int, ...]] = field(default_factory=dict, repr=False)
+    _clock: dict[int, tuple[list[float], list[float]]] = field(default_factory=dict, repr=False)
+    _headers: dict[int, tuple[dict[str, Any], dict[str, Any] | None]] = field(
+        default_factory=dict, repr=False
+    )
 
     def stream(self, stream_id: int) -> RecordedStream:
         """Return the summary of the stream with id ``stream_id``."""
@@ -123,9 +126,55 @@ class Recording:
         return self._timestamps[stream_id]
 
     def values(self, stream_id: int) -> Any:
-        """Samples of one stream: an array (samples, channels), or a list of lists of str."""
-        self.stream(stream_id)
+        """Samples of one stream: an array (samples, channels), or a list of lists of str.
+
+        Raises
+        ------
+        RecordingError
+            Not every channel of the stream was read (see ``values`` of :func:`read_recording`).
+        """
+        stream = self.stream(stream_id)
+        if self._kept.get(stream_id) != tuple(range(stream.channel_count)):
+            raise RecordingError(
+                f"the samples of {stream.label()} in {self.path} were not read (only channels "
+                f"{self._channel_list(stream_id)}); read the recording with those values."
+            )
         return self._values[stream_id]
+
+    def channel(self, stream_id: int, channel: int) -> Any:
+        """One channel (0-based) of one stream: an array, or a list of str for a string stream.
+
+        Raises
+        ------
+        RecordingError
+            That channel was not read (see ``values`` of :func:`read_recording`).
+        """
+        stream = self.stream(stream_id)
+        kept = self._kept.get(stream_id, ())
+        if channel not in kept:
+            raise RecordingError(
+                f"channel {channel + 1} of {stream.label()} in {self.path} was not read (read: "
+                f"{self._channel_list(stream_id)}); read the recording with that channel."
+            )
+        column = kept.index(channel)
+        vals = self._values[stream_id]
+        if isinstance(vals, list):
+            return [row[column] for row in vals]
+        return vals[:, column]
+
+    def kept_channels(self, stream_id: int) -> tuple[int, ...]:
+        """The 0-based channels of a stream whose values were read."""
+        self.stream(stream_id)
+        return self._kept.get(stream_id, ())
+
+    def clock_offsets(self, stream_id: int) -> tuple[list[float], list[float]]:
+        """The stream's ClockOffset (measurement times, offsets) after pyxdf's pylsl#67 repair."""
+        self.stream(stream_id)
+        return self._clock.get(stream_id, ([], []))
+
+    def _channel_list(self, stream_id: int) -> str:
+        kept = self._kept.get(stream_id, ())
+        return ", ".join(str(c + 1) for c in kept) if kept else "none"
 
     def marker_samples(self, stream_id: int) -> list[tuple[str, float]]:
         """(payload, timestamp) pairs of a string stream, using its first channel."""
@@ -137,34 +186,6 @@ class Recording:
                 "strings; check the stream name and source_id given to the check."
             )
         return [(str(v[0]) if len(v) else "", float(t)) for v, t in zip(vals, ts, strict=True)]
-
-
-class _Collect(logging.Handler):
-    def __init__(self) -> None:
-        super().__init__(level=logging.WARNING)
-        self.messages: list[str] = []
-
-    def emit(self, record: logging.LogRecord) -> None:
-        self.messages.append(record.getMessage())
-
-
-@contextmanager
-def _collect_reader_messages() -> Iterator[list[str]]:
-    """Collect pyxdf's log messages and Python warnings raised while reading.
-
-    pyxdf logs (and numpy may warn) when it repairs a damaged file; those repairs are findings
-    for the report, so they are kept as notes instead of reaching the console.
-    """
-    handler = _Collect()
-    logger = logging.getLogger(PYXDF_LOGGER)
-    logger.addHandler(handler)
-    try:
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            yield handler.messages
-        handler.messages.extend(str(w.message) for w in caught)
-    finally:
-        logger.removeHandler(handler)
 
 
 def _scan_chunks(path: Path, data_size: int) -> tuple[int, str | None]:
@@ -208,7 +229,8 @@ def _scan_chunks(path: Path, data_size: int) -> tuple[int, str | None]:
 
 
 def stream_identity(info: dict[str, Any]) -> dict[str, str]:
-    """The ``desc/session`` entries of a stream header as read by pyxdf (text values only)."""
+    """The ``desc/session`` entries of a stream header (nested dicts as pyxdf gives them; text
+    values only)."""
     desc = info.get("desc")
     node = desc[0] if isinstance(desc, list) and desc else None
     session = node.get("session") if isinstance(node, dict) else None
@@ -229,11 +251,23 @@ def _first(info: dict[str, Any], key: str, default: str = "") -> str:
     return value if isinstance(value, str) else default
 
 
-def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Recording:
-    """Load an XDF recording with pyxdf and summarise its streams.
+def read_recording(
+    path: str | Path,
+    *,
+    allow_truncated: bool = False,
+    values: Select | None = None,
+    numeric_dtype: Any = None,
+) -> Recording:
+    """Read an XDF recording in one streaming pass and summarise its streams.
+
+    Every stream's timestamps are read; of the sample values only what ``values`` names is
+    kept, so a long many-channel recording needs little memory (``Select()`` keeps the marker
+    strings only; ``Select(channels={"light": [0]})`` adds channel 1 of the stream named (or
+    with source_id or type) ``light``).
 
     Clock synchronisation is on (each stream's ClockOffset chunks map its timestamps to the
-    recorder's clock). Dejitter is off for every stream: irregular marker streams must keep
+    recorder's clock, as ``pyxdf.load_xdf(synchronize_clocks=True)`` does; the tests check the
+    result against pyxdf). Dejitter is off for every stream: irregular marker streams must keep
     their exact timestamps, and dejittering a regular stream fits one straight line per segment,
     which would spread a data gap shorter than pyxdf's break threshold over the whole segment
     and hide it from :func:`stream_coverage`.
@@ -244,6 +278,10 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
         The ``.xdf`` file.
     allow_truncated : bool
         Read what a truncated file holds (noting it) instead of refusing it.
+    values : Select, optional
+        Which sample values to keep (default: every value of every stream).
+    numeric_dtype : numpy dtype, optional
+        Convert the kept numeric values to this type while reading (default: as stored).
 
     Returns
     -------
@@ -289,40 +327,20 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
     if chunks == 0:
         raise RecordingError(f"The recording {path} holds no data after its 'XDF:' start.")
 
-    raw_loaded: list[dict[str, Any]]
-    with _collect_reader_messages() as messages:
-        try:
-            raw_loaded, _ = pyxdf.load_xdf(
-                str(path), synchronize_clocks=True, dejitter_timestamps=False
-            )
-        except (
-            OSError,
-            ValueError,
-            KeyError,
-            IndexError,
-            TypeError,
-            RuntimeError,
-            struct.error,
-            ParseError,
-            UnicodeError,
-            np.linalg.LinAlgError,
-        ) as exc:
-            raise RecordingError(
-                f"The recording {path} could not be read as XDF ({type(exc).__name__}: {exc}); "
-                "use a complete copy from the recording computer."
-            ) from exc
-    # pyxdf says "Segments and clock-segments differ" for every stream without ClockOffset
-    # chunks; that case gets a clearer sentence of our own below, so its message is dropped.
-    no_offsets = {int(e["info"]["stream_id"]) for e in raw_loaded if not e.get("clock_values")}
-    boilerplate = {f"Stream {sid}: {PYXDF_NO_OFFSET_MESSAGE}" for sid in no_offsets}
-    notes.extend(f"XDF reader: {m}" for m in messages if m not in boilerplate)
+    try:
+        scan = scan_xdf(path, values, numeric_dtype=numeric_dtype)
+    except (OSError, XdfFormatError, np.linalg.LinAlgError) as exc:
+        raise RecordingError(
+            f"The recording {path} could not be read as XDF ({type(exc).__name__}: {exc}); "
+            "use a complete copy from the recording computer."
+        ) from exc
+    notes.extend(f"XDF reader: {m}" for m in scan.notes)
 
     rec = Recording(path=path, streams=[], notes=notes, truncated=damage is not None)
-    for entry in raw_loaded:
-        info = entry["info"]
-        sid = int(info["stream_id"])
-        ts = np.asarray(entry["time_stamps"], dtype=np.float64)
-        offsets = np.asarray(entry.get("clock_values", []), dtype=np.float64)
+    for sid, entry in scan.streams.items():
+        info = entry.info
+        ts = entry.time_stamps
+        offsets = np.asarray(entry.clock_values, dtype=np.float64)
         rec.streams.append(
             RecordedStream(
                 stream_id=sid,
@@ -330,15 +348,15 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
                 type=_first(info, "type"),
                 source_id=_first(info, "source_id"),
                 created_at=_first(info, "created_at"),
-                nominal_srate=float(_first(info, "nominal_srate", "0") or 0.0),
-                channel_count=int(_first(info, "channel_count", "0") or 0),
-                channel_format=_first(info, "channel_format"),
+                nominal_srate=entry.srate,
+                channel_count=entry.channel_count,
+                channel_format=entry.channel_format,
                 sample_count=len(ts),
                 first_timestamp=float(ts[0]) if len(ts) else None,
                 last_timestamp=float(ts[-1]) if len(ts) else None,
                 clock_offset_s=float(np.median(offsets)) if len(offsets) else 0.0,
                 clock_offset_count=len(offsets),
-                has_footer="footer" in entry,
+                has_footer=entry.footer is not None,
                 identity=stream_identity(info),
             )
         )
@@ -349,7 +367,120 @@ def read_recording(path: str | Path, *, allow_truncated: bool = False) -> Record
                 "stored; check the recorder's settings if that stream came from another computer."
             )
         rec._timestamps[sid] = ts
-        rec._values[sid] = entry["time_series"]
+        rec._values[sid] = entry.values
+        rec._kept[sid] = entry.kept
+        rec._clock[sid] = (list(entry.clock_times), list(entry.clock_values))
+        rec._headers[sid] = (entry.header, entry.footer)
     if not rec.streams:
         raise RecordingError(f"The recording {path} holds no streams.")
     return rec
+
+
+# Selected channels of one stream, for per-trial analyses
+
+
+@dataclass(frozen=True)
+class StreamChannels:
+    """Selected channels of one stream, read without the others.
+
+    ``times`` are the samples' times on the recorder's clock (synchronised; dejittered for a
+    regular stream unless asked otherwise); ``values`` is float32 of shape (samples, channels)
+    in the order of ``channels`` (0-based); ``labels`` are the channels' labels from the header's
+    ``desc/channels`` (``""`` where the header names none).
+    """
+
+    stream: RecordedStream
+    channels: tuple[int, ...]
+    labels: tuple[str, ...]
+    times: np.ndarray
+    values: np.ndarray
+    notes: tuple[str, ...] = ()
+
+
+def channel_labels(header: dict[str, Any], count: int) -> list[str]:
+    """Labels from ``desc/channels/channel/label`` of a stream header (``""`` where missing)."""
+    labels = [""] * count
+    info = header.get("info")
+    desc = info.get("desc") if isinstance(info, dict) else None
+    node = desc[0] if isinstance(desc, list) and desc else None
+    chans = node.get("channels") if isinstance(node, dict) else None
+    group = chans[0] if isinstance(chans, list) and chans else None
+    items = group.get("channel") if isinstance(group, dict) else None
+    for i, item in enumerate(items if isinstance(items, list) else []):
+        if i < count and isinstance(item, dict):
+            labels[i] = _first(item, "label")
+    return labels
+
+
+def read_stream_channels(
+    path: str | Path,
+    stream: str,
+    channels: Sequence[int] | None = None,
+    *,
+    allow_truncated: bool = False,
+    dejittered: bool = True,
+) -> StreamChannels:
+    """Read chosen channels of one numeric stream as float32, skipping every other stream.
+
+    Memory stays near the size of what is returned: samples are decoded chunk by chunk and only
+    the chosen channels are kept (as float32) before the next chunk is read.
+
+    Parameters
+    ----------
+    path : str or Path
+        The ``.xdf`` file.
+    stream : str
+        The stream's name, source_id or type (case-insensitive) or its stream id; the first
+        stream (in header order) that matches is read.
+    channels : sequence of int, optional
+        0-based channel indices (default: all channels).
+    allow_truncated : bool
+        Read the intact part of a truncated file.
+    dejittered : bool
+        Replace a regular stream's timestamps by pyxdf's dejittering line (default on).
+
+    Returns
+    -------
+    StreamChannels
+
+    Raises
+    ------
+    RecordingError
+        The file cannot be read, no numeric stream matches, or a channel does not exist.
+    """
+    wanted = tuple(int(c) for c in channels) if channels is not None else None
+    select = Select(strings=False, channels={stream: wanted}, only_listed=True)
+    rec = read_recording(
+        path, allow_truncated=allow_truncated, values=select, numeric_dtype=np.float32
+    )
+    numeric = [s for s in rec.streams if s.channel_format != "string"]
+    if not numeric:
+        found = ", ".join(f"{s.name!r} ({s.type})" for s in rec.streams) or "none"
+        raise RecordingError(
+            f"{rec.path} has no numeric stream named {stream!r} (by name, source_id, type or "
+            f"stream id); streams matching: {found}."
+        )
+    info = numeric[0]
+    chosen = wanted if wanted is not None else tuple(range(info.channel_count))
+    bad = [c for c in chosen if not 0 <= c < info.channel_count]
+    if bad:
+        raise RecordingError(
+            f"{info.label()} in {rec.path} has {info.channel_count} channels; channel "
+            f"{bad[0] + 1} does not exist."
+        )
+    kept = rec.kept_channels(info.stream_id)
+    raw = rec._values[info.stream_id]
+    values = raw[:, [kept.index(c) for c in chosen]] if tuple(chosen) != kept else raw
+    times = rec.timestamps(info.stream_id)
+    if dejittered:
+        times = dejitter(times, info.nominal_srate)
+    header, _ = rec._headers[info.stream_id]
+    labels = channel_labels(header, info.channel_count)
+    return StreamChannels(
+        stream=info,
+        channels=tuple(chosen),
+        labels=tuple(labels[c] for c in chosen),
+        times=times,
+        values=np.asarray(values, dtype=np.float32),
+        notes=tuple(rec.notes),
+    )
