@@ -84,7 +84,13 @@ def run(args: argparse.Namespace) -> int:
         except ValueError as exc:
             raise UsageError(f"{exc}.") from None
     if args.recording:
-        rec = read_recording(args.recording, allow_truncated=args.allow_truncated)
+        from runner.recording.photodiode import recording_values
+
+        rec = read_recording(
+            args.recording,
+            allow_truncated=args.allow_truncated,
+            values=recording_values(args.photodiode),
+        )
     audits = audit_sessions(
         session_folders(args.sessions),
         recording=rec,

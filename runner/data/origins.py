@@ -93,7 +93,10 @@ def recording_origin(
     from runner.recording import check_recording, read_recording
     from runner.recording.check import sequence_mismatch
 
-    rec = read_recording(recording, allow_truncated=allow_truncated)
+    from runner.recording.scan import Select
+
+    # Timestamps of every stream, sample values of the marker streams only.
+    rec = read_recording(recording, allow_truncated=allow_truncated, values=Select())
     eeg = [
         s
         for s in sorted(rec.streams, key=lambda x: x.stream_id)

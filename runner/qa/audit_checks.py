@@ -616,8 +616,7 @@ def check_photodiode(
     ]
     onsets = [recorded.get(t, clock.to_recorder(t)) for t in light_onsets(flips)]
     times = dejitter(recording.timestamps(stream.stream_id), stream.nominal_srate)
-    values = np.asarray(recording.values(stream.stream_id), dtype=float)
-    values = values[:, channel] if values.ndim == 2 else values
+    values = np.asarray(recording.channel(stream.stream_id, channel), dtype=float)
     result = measure_latency(times, values, onsets, stream=stream.name, channel=channel)
     facts["photodiode"] = result.as_dict() | {"sentence": result.describe()}
     lat = result.latency

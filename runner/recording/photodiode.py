@@ -18,6 +18,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from runner.recording.scan import Select
+
 LOW_PERCENTILE = 5.0
 HIGH_PERCENTILE = 99.5  # the patch may be lit for a small share of the time
 HYSTERESIS = 0.1  # share of the level range either side of the threshold
@@ -146,6 +148,15 @@ def light_onsets(flips: Sequence[tuple[float, bool]]) -> list[float]:
             out.append(t)
         lit = on
     return out
+
+
+def recording_values(spec: str | None) -> Select:
+    """What the audit and export read of a recording's samples: the marker strings, and the
+    photodiode channel ``spec`` names (``STREAM[:CHANNEL]``) when given."""
+    if not spec:
+        return Select()
+    name, channel = parse_spec(spec)
+    return Select(channels={name: [channel]})
 
 
 def parse_spec(spec: str) -> tuple[str, int]:
