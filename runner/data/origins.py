@@ -92,7 +92,6 @@ def recording_origin(
     """
     from runner.recording import check_recording, read_recording
     from runner.recording.check import sequence_mismatch
-
     from runner.recording.scan import Select
 
     # Timestamps of every stream, sample values of the marker streams only.

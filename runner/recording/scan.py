@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import struct
 from collections import defaultdict
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, BinaryIO
@@ -268,14 +268,14 @@ def _numeric_chunk(s: ScannedStream, buf: bytes, keep: Keep) -> tuple[np.ndarray
         stamps = np.zeros((0,))
         block = np.zeros((0, nch), dtype=dt)
     elif rest == n * (9 + width):
-        rows = np.frombuffer(
-            buf, np.dtype([("f", "u1"), ("t", "<f8"), ("v", dt, (nch,))]), n, pos
-        )
+        rows = np.frombuffer(buf, np.dtype([("f", "u1"), ("t", "<f8"), ("v", dt, (nch,))]), n, pos)
         if np.all(rows["f"] != 0):
             stamps = rows["t"].astype(np.float64)
             block = rows["v"]
     elif rest == 9 + width + (n - 1) * (1 + width) and buf[pos] != 0:
-        rows = np.frombuffer(buf, np.dtype([("f", "u1"), ("v", dt, (nch,))]), n - 1, pos + 9 + width)
+        rows = np.frombuffer(
+            buf, np.dtype([("f", "u1"), ("v", dt, (nch,))]), n - 1, pos + 9 + width
+        )
         if np.all(rows["f"] == 0):
             first = struct.unpack_from("<d", buf, pos + 1)[0]
             stamps = np.concatenate(([first], _deduced(first, s.tdiff, n - 1)))

@@ -371,7 +371,7 @@ def read_recording(
         rec._kept[sid] = entry.kept
         rec._clock[sid] = (list(entry.clock_times), list(entry.clock_values))
         rec._headers[sid] = (entry.header, entry.footer)
-    if not rec.streams:
+    if not rec.streams and not (values is not None and values.only_listed):
         raise RecordingError(f"The recording {path} holds no streams.")
     return rec
 
