@@ -8,7 +8,7 @@ stays valid). An XDF recording is then written to the XDF specification (tests/q
 the session's markers on a recorder clock three hours ahead and drifting by 20 ppm, EEG of the
 given channel count at 1 kHz stamped per chunk with arrival jitter, and a 1 kHz photodiode
 channel that lights 18 ms after each patch-lighting flip. Then `audit --recording --photodiode`
-and `export --recording` run on it, each timed, with peak memory (ru_maxrss) of a fresh process.
+and `export --recording` run on it, each timed, with the peak memory of a fresh process (its own high-water mark, VmHWM).
 Targets: each under 20 s and 2 GB.
 """
 
@@ -113,14 +113,23 @@ def write_recording(folder: Path, path: Path, channels: int) -> None:
 
 def timed(cmd: list[str]) -> tuple[float, float, str]:
     """Run a trialdeck command in a fresh process: wall time (s), peak memory (GB), output."""
+    # The peak is the process's own high-water mark (VmHWM of /proc/self/status on Linux).
+    # ru_maxrss is only the fallback: Linux carries the parent's peak across fork and exec into
+    # it, so it reported this script's own memory (the fixture writing) instead of the command's.
     code = (
-        "import resource, sys, runpy\n"
+        "import resource, sys\n"
         "sys.argv = ['trialdeck'] + sys.argv[1:]\n"
+        "def peak_kb():\n"
+        "    try:\n"
+        "        with open('/proc/self/status') as f:\n"
+        "            return next(int(x.split()[1]) for x in f if x.startswith('VmHWM'))\n"
+        "    except (OSError, StopIteration):\n"
+        "        return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
         "try:\n"
         "    from runner.cli import main\n"
         "    rc = main(sys.argv[1:])\n"
         "finally:\n"
-        "    print('PEAK_KB', resource.getrusage(resource.RUSAGE_SELF).ru_maxrss, file=sys.stderr)\n"
+        "    print('PEAK_KB', peak_kb(), file=sys.stderr)\n"
         "sys.exit(rc)\n"
     )
     t0 = time.perf_counter()
@@ -135,9 +144,10 @@ def main() -> None:
     ap.add_argument("--minutes", type=float, default=60.0)
     ap.add_argument("--channels", type=int, default=64)
     ap.add_argument("--trials", type=int, default=300)
+    ap.add_argument("--keep", type=Path, help="write the fixture here and keep it (for profiling)")
     args = ap.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
-        root = Path(tmp)
+        root = args.keep or Path(tmp)
         first = run_pilot(make_protocol(root / "protocol", args.trials), root / "out")
         folder = stretch_journal(first, args.minutes, root / "long")
         xdf = root / "rec.xdf"

@@ -102,3 +102,37 @@ def add_allow_truncated(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="read the intact part of a truncated recording instead of refusing it",
     )
+
+
+def add_photodiode(parser: argparse.ArgumentParser, purpose: str) -> None:
+    """``--photodiode STREAM[:CHANNEL]``: the light-sensor option audit and export share."""
+    parser.add_argument(
+        "--photodiode",
+        metavar="STREAM[:CHANNEL]",
+        help=f"with --recording: {purpose}, recorded in this stream (name, source_id or type; "
+        "channel from 1)",
+    )
+
+
+def check_photodiode(photodiode: str | None, recording: object) -> None:
+    """Refuse ``--photodiode`` without ``--recording`` or with a bad channel (audit and export).
+
+    Raises
+    ------
+    UsageError
+        With the sentence both verbs print.
+    """
+    from runner.errors import UsageError
+
+    if not photodiode:
+        return
+    if not recording:
+        raise UsageError(
+            "--photodiode needs --recording FILE.xdf (the sensor is in the recording)."
+        )
+    from runner.recording.photodiode import parse_spec
+
+    try:
+        parse_spec(photodiode)
+    except ValueError as exc:
+        raise UsageError(f"{exc}.") from None

@@ -6,8 +6,8 @@ import argparse
 import json
 from pathlib import Path
 
-from runner.cli.args import add_allow_truncated, positive_float
-from runner.errors import EXIT_OK, EXIT_PROBLEMS, UsageError
+from runner.cli.args import add_allow_truncated, add_photodiode, check_photodiode, positive_float
+from runner.errors import EXIT_OK, EXIT_PROBLEMS
 from runner.recording import DEFAULT_MAX_GAP_S, DEFAULT_RESIDUAL_LIMIT_MS
 
 
@@ -41,11 +41,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="largest accepted difference between journaled and recorded marker times "
         f"(default {DEFAULT_RESIDUAL_LIMIT_MS:g} ms)",
     )
-    p.add_argument(
-        "--photodiode",
-        metavar="STREAM[:CHANNEL]",
-        help="with --recording: measure the display latency per onset from a light sensor on "
-        "the photodiode patch, recorded in this stream (name, source_id or type; channel from 1)",
+    add_photodiode(
+        p, "measure the display latency per onset from a light sensor on the photodiode patch"
     )
     add_allow_truncated(p)
 
@@ -72,17 +69,7 @@ def run(args: argparse.Namespace) -> int:
     from runner.recording import read_recording
 
     rec = None
-    if args.photodiode and not args.recording:
-        raise UsageError(
-            "--photodiode needs --recording FILE.xdf (the sensor is in the recording)."
-        )
-    if args.photodiode:
-        from runner.recording.photodiode import parse_spec
-
-        try:
-            parse_spec(args.photodiode)
-        except ValueError as exc:
-            raise UsageError(f"{exc}.") from None
+    check_photodiode(args.photodiode, args.recording)
     if args.recording:
         from runner.recording.photodiode import recording_values
 

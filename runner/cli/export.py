@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from runner.cli.args import add_allow_truncated
+from runner.cli.args import add_allow_truncated, add_photodiode, check_photodiode
 from runner.data.export import DATATYPES, DEFAULT_DATATYPE, export_sessions
-from runner.errors import EXIT_OK
+from runner.errors import EXIT_OK, UsageError
 
 MAX_LISTED = 10  # events files named one by one; more are counted
 
@@ -32,6 +32,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "stream; give one per session, in session order",
     )
     add_allow_truncated(parser)
+    parser.add_argument(
+        "--sample",
+        action="store_true",
+        help="with --recording: add a sample column, the index of the EEG sample nearest to "
+        "each onset",
+    )
+    add_photodiode(
+        parser,
+        "add a photodiode_onset column, the light edge of each onset that lit the photodiode "
+        "patch, from a light sensor on the patch",
+    )
     parser.add_argument(
         "--datatype",
         choices=DATATYPES,
@@ -65,6 +76,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Export, then print what was written; exit 0."""
+    check_photodiode(args.photodiode, args.recording)
+    if args.sample and not args.recording:
+        raise UsageError(
+            "--sample needs --recording FILE.xdf (the EEG stream is in the recording)."
+        )
     result = export_sessions(
         args.sessions,
         args.out,
@@ -73,6 +89,8 @@ def run(args: argparse.Namespace) -> int:
         recordings=args.recording,
         allow_truncated=args.allow_truncated,
         force=args.force,
+        sample=args.sample,
+        photodiode=args.photodiode,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     if args.copy_stimuli:

@@ -28,7 +28,13 @@ from runner.contract.layout import (
 )
 from runner.contract.outputs import ensure_folder, replace_file
 from runner.data.bids_rows import ROW_KINDS, TRIAL_COLUMNS, EventRows, event_rows, stim_file_name
-from runner.data.origins import SECONDS_DECIMALS, Origin, session_origin
+from runner.data.origins import (
+    PHOTODIODE_COLUMN,
+    SAMPLE_COLUMN,
+    SECONDS_DECIMALS,
+    Origin,
+    session_origin,
+)
 from runner.data.sessions import ExportSession
 from runner.errors import InputFileError, StorageError, UsageError
 
@@ -123,8 +129,9 @@ def bids_events(session: ExportSession, origin: Origin | None = None) -> pd.Data
                 r.attempt,
             )
             + (ev.tails[r.tail] if r.tail is not None else empty)
+            + tuple(origin.extra_cells(r.t))
         )
-    return pd.DataFrame(data, columns=ev.columns, dtype=object)
+    return pd.DataFrame(data, columns=ev.columns + origin.extra_columns(), dtype=object)
 
 
 def _tsv_cell(value: Any) -> str:
@@ -149,7 +156,8 @@ def events_tsv(ev: EventRows, origin: Origin) -> str:
     empty = "\t".join([NA] * width)
     tail_text = {k: "\t".join(_tsv_cell(v) for v in vals) for k, vals in ev.tails.items()}
     onset = origin.onset
-    lines = ["\t".join(ev.columns)]
+    extra = bool(origin.extra_columns())
+    lines = ["\t".join(ev.columns + origin.extra_columns())]
     append = lines.append
     for r in ev.rows:
         t, end, stim, key, label, timed = r.t, r.end, r.stim_file, r.key, r.label, r.timed_out
@@ -162,8 +170,15 @@ def events_tsv(ev: EventRows, origin: Origin) -> str:
             + f"{NA if label is None else _tsv_cell(label)}\t"
             + f"{NA if timed is None else int(bool(timed))}\t{r.attempt}\t"
             + (empty if r.tail is None else tail_text[r.tail])
+            + ("".join(f"\t{_extra_cell(v)}" for v in origin.extra_cells(t)) if extra else "")
         )
     return "\n".join(lines) + "\n"
+
+
+def _extra_cell(value: float | int | None) -> str:
+    if value is None:
+        return NA
+    return str(value) if isinstance(value, int) else f"{value:.{SECONDS_DECIMALS}f}"
 
 
 def _levels(values: Iterable[Any]) -> list[str]:
@@ -278,6 +293,18 @@ def events_sidecar(session: ExportSession, origin: Origin, ev: EventRows) -> dic
         width_m = screen.width_cm / 100.0
         height_m = width_m * screen.resolution[1] / screen.resolution[0]
         presentation["ScreenSize"] = [round(width_m, 4), round(height_m, 4)]
+    if SAMPLE_COLUMN in origin.extra_columns():
+        sidecar[SAMPLE_COLUMN] = {
+            "Description": "Index (from 0) of the sample of the EEG stream named in the onset "
+            "description nearest to the onset, on that stream's synchronised, dejittered "
+            "timestamps (one line per segment between data breaks), so the index counts the "
+            "recorded samples; n/a when the onset lies outside the recorded samples.",
+        }
+    if PHOTODIODE_COLUMN in origin.extra_columns():
+        sidecar[PHOTODIODE_COLUMN] = {
+            "Description": origin.photodiode_description,
+            "Units": "s",
+        }
     sidecar["StimulusPresentation"] = presentation
     return sidecar
 

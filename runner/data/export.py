@@ -130,6 +130,8 @@ def export_sessions(
     allow_truncated: bool = False,
     workers: int | None = None,
     force: bool = False,
+    sample: bool = False,
+    photodiode: str | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -156,6 +158,11 @@ def export_sessions(
         sessions on, else none (everything in this process). Workers are forked, so only where
         the platform forks and this process runs no other thread; otherwise everything runs
         here. The files are the same either way.
+    sample : bool
+        With recordings: add the ``sample`` column (nearest EEG sample of each onset).
+    photodiode : str, optional
+        With recordings: ``STREAM[:CHANNEL]`` of a light sensor on the photodiode patch; adds
+        the ``photodiode_onset`` column (see :func:`recording_origin`).
     force : bool
         Write into an existing folder that is neither empty nor an earlier export's (see
         :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
@@ -186,13 +193,37 @@ def export_sessions(
             f"{len(recordings)} recording(s) were given for {len(folders)} session(s); give "
             "one --recording per session, in the same order as the session folders."
         )
+    if photodiode and not recordings:
+        raise UsageError(
+            "--photodiode needs --recording FILE.xdf (the sensor is in the recording)."
+        )
+    if sample and not recordings:
+        raise UsageError(
+            "--sample needs --recording FILE.xdf (the EEG stream is in the recording)."
+        )
+    if photodiode:
+        from runner.recording.photodiode import parse_spec
+
+        try:
+            parse_spec(photodiode)
+        except ValueError as exc:
+            raise UsageError(f"{exc}.") from None
     target = prepare_output_folder(out, EXPORT_COMMAND, force=force, what="export")
     sessions: list[ExportSession] = []
     origins: list[Origin] = []
     events: list[tuple[Path, Path]] = []
     seen: dict[tuple[str, str, str], Path] = {}
     jobs = [
-        _Job(folder, out, task, datatype, recordings[i] if recordings else None, allow_truncated)
+        _Job(
+            folder,
+            out,
+            task,
+            datatype,
+            recordings[i] if recordings else None,
+            allow_truncated,
+            sample,
+            photodiode,
+        )
         for i, folder in enumerate(folders)
     ]
     workers = worker_count(len(jobs), workers)
@@ -228,6 +259,8 @@ class _Job:
     datatype: str
     recording: str | Path | None
     allow_truncated: bool = False
+    sample: bool = False
+    photodiode: str | None = None
 
 
 def _load(job: _Job) -> ExportSession:
@@ -237,13 +270,19 @@ def _load(job: _Job) -> ExportSession:
 
 def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
     if job.recording is not None:
-        origin = recording_origin(session, job.recording, allow_truncated=job.allow_truncated)
+        origin = recording_origin(
+            session,
+            job.recording,
+            allow_truncated=job.allow_truncated,
+            sample=job.sample,
+            photodiode=job.photodiode,
+        )
     else:
         origin = session_origin(session)
     label = task_label(session.study, job.task)
     written = write_bids_events(session, job.out, task=label, datatype=job.datatype, origin=origin)
     session.release()
-    return session, origin, written
+    return session, origin.without_samples(), written
 
 
 def _export_one(job: _Job) -> tuple[ExportSession, Origin, tuple[Path, Path]]:

@@ -46,7 +46,7 @@ from runner.recording import Recording, RecordingReport, check_recording
 from runner.recording.check import sequence_mismatch
 from runner.recording.dejitter import dejitter
 from runner.recording.identity import compare_identity
-from runner.recording.photodiode import light_onsets, measure_latency, parse_spec
+from runner.recording.photodiode import find_photodiode_stream, light_onsets, measure_latency
 
 # Responses faster than this (divided by the pilot speed) are flagged as possible anticipations
 # or a stuck key. No published floor exists for counting tasks; 200 ms is common practice for
@@ -590,23 +590,11 @@ def check_photodiode(
     :mod:`runner.recording.photodiode`): each flip that lit the patch, mapped onto the recorder's
     clock (its recorded marker time where there is one), paired with the sensor's light edge."""
     rec_file = display_path(recording.path)
-    name, channel = parse_spec(spec)
-    wanted = name.strip().lower()
-    found = [
-        s
-        for s in recording.streams
-        if wanted in (s.name.lower(), s.source_id.lower(), s.type.lower()) and not s.is_markers
-    ]
-    if not found or found[0].channel_count <= channel:
-        names = ", ".join(f"{s.name!r} ({s.type}, {s.channel_count} ch)" for s in recording.streams)
-        out.error(
-            f"no photodiode stream {spec!r} in the recording (name, source_id or type, then "
-            f":CHANNEL from 1); its streams: {names}.",
-            file=rec_file,
-            code="photodiode-missing",
-        )
+    try:
+        stream, channel = find_photodiode_stream(recording, spec)
+    except RecordingError as exc:
+        out.error(str(exc), file=rec_file, code="photodiode-missing")
         return
-    stream = found[0]
     clock = report.match.clock
     if clock is None:
         return

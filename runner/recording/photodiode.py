@@ -18,7 +18,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from runner.errors import RecordingError
 from runner.recording.scan import Select
+from runner.recording.xdf import RecordedStream, Recording
 
 LOW_PERCENTILE = 5.0
 HIGH_PERCENTILE = 99.5  # the patch may be lit for a small share of the time
@@ -157,6 +159,46 @@ def recording_values(spec: str | None) -> Select:
         return Select()
     name, channel = parse_spec(spec)
     return Select(channels={name: [channel]})
+
+
+def find_photodiode_stream(recording: Recording, spec: str) -> tuple[RecordedStream, int]:
+    """The stream and 0-based channel ``STREAM[:CHANNEL]`` names (by name, source_id or type,
+    case-insensitive; marker streams are never photodiode streams).
+
+    Raises
+    ------
+    ValueError
+        The spec's channel is not a whole number from 1.
+    RecordingError
+        No such stream, or it has fewer channels (audit and export say the same sentence).
+    """
+    name, channel = parse_spec(spec)
+    wanted = name.strip().lower()
+    found = [
+        s
+        for s in recording.streams
+        if wanted in (s.name.lower(), s.source_id.lower(), s.type.lower()) and not s.is_markers
+    ]
+    if not found or found[0].channel_count <= channel:
+        names = ", ".join(f"{s.name!r} ({s.type}, {s.channel_count} ch)" for s in recording.streams)
+        raise RecordingError(
+            f"no photodiode stream {spec!r} in the recording (name, source_id or type, then "
+            f":CHANNEL from 1); its streams: {names}."
+        )
+    return found[0], channel
+
+
+def onset_edges(
+    times: np.ndarray, values: np.ndarray, onsets_recorder: Sequence[float]
+) -> tuple[np.ndarray, Latency]:
+    """The light edge of each onset, in the onsets' order (NaN where none was found), and the
+    pairing behind it (:func:`find_edges`, :func:`pair_edges`)."""
+    on = np.asarray(onsets_recorder, dtype=float)
+    order = np.argsort(on, kind="stable")
+    lat = pair_edges(on, find_edges(values, times).times)
+    edges = np.full(len(on), np.nan)
+    edges[order] = lat.onsets + lat.latency_s
+    return edges, lat
 
 
 def parse_spec(spec: str) -> tuple[str, int]:
