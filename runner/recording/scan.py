@@ -23,6 +23,7 @@ all timestamps, or only its first); string streams are decoded per sample.
 
 from __future__ import annotations
 
+import os
 import struct
 from collections import defaultdict
 from collections.abc import Iterable, Mapping, Sequence
@@ -49,6 +50,8 @@ TAG_CLOCK_OFFSET = 4
 TAG_BOUNDARY = 5
 TAG_STREAM_FOOTER = 6
 STREAM_TAGS = (TAG_STREAM_HEADER, TAG_SAMPLES, TAG_CLOCK_OFFSET, TAG_STREAM_FOOTER)
+KNOWN_TAGS = frozenset({1, 2, 3, 4, 5, 6})
+VARLEN_WIDTHS = (1, 4, 8)
 # The 16 bytes of every Boundary chunk (XDF specification); a reader resynchronises on them.
 BOUNDARY_UUID = bytes.fromhex("43a546dccbf5410fb30ed5467383cbe4")
 SCAN_BLOCK = 2**20
@@ -174,10 +177,15 @@ class ScannedStream:
 
 @dataclass
 class XdfScan:
-    """What :func:`scan_xdf` read: the streams in header order and the reader's notes."""
+    """What :func:`scan_xdf` read: the streams in header order, the reader's notes, and where
+    the file's framing is damaged (None: intact)."""
 
     streams: dict[int, ScannedStream]
     notes: list[str] = field(default_factory=list)
+    # The first place where the chunk framing goes wrong (a truncated or damaged file), and the
+    # number of intact chunks before it.
+    damage: str | None = None
+    intact_chunks: int = 0
 
 
 class XdfFormatError(ValueError):
@@ -260,6 +268,7 @@ def _numeric_chunk(s: ScannedStream, buf: bytes, keep: Keep) -> tuple[np.ndarray
     n, pos = _varlen_from(buf, 0)
     nch = s.channel_count
     dt = np.dtype(FORMATS[s.channel_format])
+    out_dtype = s.numeric_dtype or dt.newbyteorder("=")
     width = nch * dt.itemsize
     rest = len(buf) - pos
     stamps: np.ndarray | None = None
@@ -287,34 +296,53 @@ def _numeric_chunk(s: ScannedStream, buf: bytes, keep: Keep) -> tuple[np.ndarray
             stamps = _deduced(s._last_timestamp, s.tdiff, n)
             block = rows["v"]
     if stamps is None or block is None:
-        stamps, block = _numeric_chunk_slow(s, buf, pos, n, dt, width)
+        stamps, starts = _mixed_stamps(s, buf, pos, n, width)
+        values = _gather(buf, starts, dt, nch, keep, out_dtype)
+    else:
+        values = _pick(block, keep, out_dtype)
     s._last_timestamp = float(stamps[-1]) if len(stamps) else s._last_timestamp
-    return stamps, _pick(block, keep, s.numeric_dtype or dt.newbyteorder("="))
+    return stamps, values
 
 
-def _numeric_chunk_slow(
-    s: ScannedStream, buf: bytes, pos: int, n: int, dt: np.dtype, width: int
+_DOUBLE = struct.Struct("<d")
+
+
+def _mixed_stamps(
+    s: ScannedStream, buf: bytes, pos: int, n: int, width: int
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Sample by sample, for chunks that mix stored and deduced timestamps."""
-    stamps = np.zeros(n)
-    starts = np.zeros(n, dtype=np.int64)
-    last = s._last_timestamp
+    """Sample by sample, for chunks that mix stored and deduced timestamps: each timestamp and
+    the byte offset of each sample's values (deduced ones added one by one, as pyxdf does)."""
+    unpack = _DOUBLE.unpack_from
     tdiff = s.tdiff
+    last = s._last_timestamp
+    stamps = [0.0] * n
+    starts = [0] * n
     for k in range(n):
-        if buf[pos] != 0:
-            last = struct.unpack_from("<d", buf, pos + 1)[0]
+        if buf[pos]:
+            last = unpack(buf, pos + 1)[0]
             pos += 9
         else:
-            last = last + tdiff
+            last += tdiff
             pos += 1
         stamps[k] = last
         starts[k] = pos
         pos += width
     if pos > len(buf):
         raise XdfFormatError("a samples chunk is shorter than its samples")
-    raw = np.frombuffer(buf, np.uint8)
-    block = raw[starts[:, None] + np.arange(width)].view(dt).reshape(n, -1)
-    return stamps, block
+    return np.array(stamps), np.array(starts, dtype=np.int64)
+
+
+def _gather(
+    buf: bytes, starts: np.ndarray, dt: np.dtype, nch: int, keep: Keep, out_dtype: np.dtype
+) -> np.ndarray:
+    """The kept channels of samples whose values start at ``starts`` (only their bytes read)."""
+    cols = list(range(nch)) if isinstance(keep, _All) else list(keep or ())
+    if not cols:
+        return np.zeros((len(starts), 0), dtype=out_dtype)
+    size = dt.itemsize
+    offsets = (np.asarray(cols)[:, None] * size + np.arange(size)).ravel()
+    picked = np.frombuffer(buf, np.uint8)[starts[:, None] + offsets]
+    return picked.view(dt).reshape(len(starts), len(cols)).astype(out_dtype)
 
 
 def _pick(block: np.ndarray, keep: Keep, dtype: np.dtype) -> np.ndarray:
@@ -390,7 +418,10 @@ def scan_xdf(
     streams: dict[int, ScannedStream] = {}
     keeps: dict[int, Keep] = {}
     notes: list[str] = []
+    damage: str | None = None
+    intact = 0
     with Path(path).open("rb") as f:
+        size = os.fstat(f.fileno()).st_size
         if f.read(len(XDF_MAGIC)) != XDF_MAGIC:
             raise XdfFormatError("the file does not start with 'XDF:'")
         while True:
@@ -399,10 +430,17 @@ def scan_xdf(
                 chunklen = _read_varlen(f)
             except EOFError:
                 break
-            except XdfFormatError:
-                notes.append(
-                    f"no valid chunk length at byte {at}; skipped to the next boundary chunk."
-                )
+            except XdfFormatError as exc:
+                f.seek(at)
+                width = f.read(1)[0]
+                if damage is None:
+                    damage = (
+                        f"the file ends inside the length of chunk {intact + 1}"
+                        if width in VARLEN_WIDTHS
+                        else f"byte {at} does not start an XDF chunk (length width {width}, "
+                        "expected 1, 4 or 8)"
+                    )
+                notes.append(f"{exc} at byte {at}; skipped to the next boundary chunk.")
                 if f.read(1):
                     f.seek(-1, 1)
                     if _scan_forward(f):
@@ -410,8 +448,22 @@ def scan_xdf(
                 break
             tag_raw = f.read(2)
             if len(tag_raw) < 2:
+                damage = damage or f"the file ends inside the tag of chunk {intact + 1}"
                 break
             tag = struct.unpack("<H", tag_raw)[0]
+            end = f.tell() + chunklen - 2
+            if damage is None:
+                if tag not in KNOWN_TAGS or chunklen < 2:
+                    damage = f"chunk {intact + 1} at byte {at} has an unknown tag {tag}"
+                elif end > size:
+                    damage = (
+                        f"chunk {intact + 1} at byte {at} needs {end - size} more bytes than "
+                        "the file has"
+                    )
+                else:
+                    intact += 1
+            if chunklen < 2:
+                break
             content_len = chunklen - 2
             sid = -1
             if tag in STREAM_TAGS:
@@ -423,6 +475,8 @@ def scan_xdf(
                 if sid in keeps and keeps[sid] is None:
                     f.seek(content_len, 1)
                     continue
+            if end > size and tag != TAG_SAMPLES:
+                break  # a header, offset or footer cut short by the end of the file
             if tag == TAG_STREAM_HEADER:
                 _read_header(f, sid, content_len, select, dtype, streams, keeps)
             elif tag == TAG_SAMPLES:
@@ -474,7 +528,7 @@ def scan_xdf(
     if synchronize_clocks:
         notes.extend(_truncate_corrupted_offsets(streams.values()))
         notes.extend(_clock_sync(streams.values()))
-    return XdfScan(streams, notes)
+    return XdfScan(streams, notes, damage, intact)
 
 
 def _read_header(

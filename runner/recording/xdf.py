@@ -9,7 +9,6 @@ channels of one stream as float32 for per-trial analyses.
 
 from __future__ import annotations
 
-import struct
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,10 +22,6 @@ from runner.recording.scan import Select, XdfFormatError, scan_xdf
 
 MARKER_TYPE = "Markers"
 XDF_MAGIC = b"XDF:"
-# Chunk tags of the XDF 1.0 specification; anything else means the byte layout is off.
-KNOWN_TAGS = frozenset({1, 2, 3, 4, 5, 6})
-VARLEN_WIDTHS = {1: "<B", 4: "<I", 8: "<Q"}
-TAG_BYTES = 2
 
 
 # Reading
@@ -188,46 +183,6 @@ class Recording:
         return [(str(v[0]) if len(v) else "", float(t)) for v, t in zip(vals, ts, strict=True)]
 
 
-def _scan_chunks(path: Path, data_size: int) -> tuple[int, str | None]:
-    """Walk the chunk framing of an XDF file; return (chunk count, damage sentence or None).
-
-    Only lengths and tags are read, so this is quick even for large recordings. It finds a file
-    cut short (the recorder stopped before closing it) or bytes that are not XDF chunks.
-    """
-    count = 0
-    with path.open("rb") as f:
-        f.seek(len(XDF_MAGIC))
-        pos = len(XDF_MAGIC)
-        while pos < data_size:
-            width_byte = f.read(1)
-            width = width_byte[0]
-            if width not in VARLEN_WIDTHS:
-                return count, (
-                    f"byte {pos} does not start an XDF chunk (length width {width}, expected "
-                    "1, 4 or 8)"
-                )
-            raw = f.read(width)
-            if len(raw) < width:
-                return count, f"the file ends inside the length of chunk {count + 1}"
-            length = struct.unpack(VARLEN_WIDTHS[width], raw)[0]
-            tag_raw = f.read(TAG_BYTES)
-            if len(tag_raw) < TAG_BYTES:
-                return count, f"the file ends inside the tag of chunk {count + 1}"
-            tag = struct.unpack("<H", tag_raw)[0]
-            if tag not in KNOWN_TAGS or length < TAG_BYTES:
-                return count, f"chunk {count + 1} at byte {pos} has an unknown tag {tag}"
-            end = pos + 1 + width + length
-            if end > data_size:
-                return count, (
-                    f"chunk {count + 1} at byte {pos} needs {end - data_size} more bytes than "
-                    "the file has"
-                )
-            count += 1
-            pos = end
-            f.seek(pos)
-    return count, None
-
-
 def stream_identity(info: dict[str, Any]) -> dict[str, str]:
     """The ``desc/session`` entries of a stream header (nested dicts as pyxdf gives them; text
     values only)."""
@@ -311,7 +266,14 @@ def read_recording(
             f"{path} is not an XDF recording (it does not start with 'XDF:'); check that you "
             "picked the recorder's .xdf file."
         )
-    chunks, damage = _scan_chunks(path, size)
+    try:
+        scan = scan_xdf(path, values, numeric_dtype=numeric_dtype)
+    except (OSError, XdfFormatError, np.linalg.LinAlgError) as exc:
+        raise RecordingError(
+            f"The recording {path} could not be read as XDF ({type(exc).__name__}: {exc}); "
+            "use a complete copy from the recording computer."
+        ) from exc
+    damage = scan.damage
     notes: list[str] = []
     if damage is not None:
         sentence = (
@@ -324,16 +286,8 @@ def read_recording(
                 "copy."
             )
         notes.append(f"{sentence}; only the intact part was read.")
-    if chunks == 0:
+    if scan.intact_chunks == 0:
         raise RecordingError(f"The recording {path} holds no data after its 'XDF:' start.")
-
-    try:
-        scan = scan_xdf(path, values, numeric_dtype=numeric_dtype)
-    except (OSError, XdfFormatError, np.linalg.LinAlgError) as exc:
-        raise RecordingError(
-            f"The recording {path} could not be read as XDF ({type(exc).__name__}: {exc}); "
-            "use a complete copy from the recording computer."
-        ) from exc
     notes.extend(f"XDF reader: {m}" for m in scan.notes)
 
     rec = Recording(path=path, streams=[], notes=notes, truncated=damage is not None)
