@@ -8,7 +8,7 @@ stays valid). An XDF recording is then written to the XDF specification (tests/q
 the session's markers on a recorder clock three hours ahead and drifting by 20 ppm, EEG of the
 given channel count at 1 kHz stamped per chunk with arrival jitter, and a 1 kHz photodiode
 channel that lights 18 ms after each patch-lighting flip. Then `audit --recording --photodiode`
-and `export --recording` run on it, each timed, with the peak memory of a fresh process (its own high-water mark, VmHWM).
+and `export --recording --sample --photodiode` run on it, each timed, with the peak memory of a fresh process (its own high-water mark, VmHWM).
 Targets: each under 20 s and 2 GB.
 """
 
@@ -161,11 +161,12 @@ def main() -> None:
         wall, gb, out = timed(audit)
         line = next((x for x in out.splitlines() if "photodiode bench-light" in x), "").strip()
         print(f"audit --recording --photodiode: {wall:.1f} s, peak {gb:.2f} GB; {line}")
-        export = ["export", str(folder), "--out", str(root / "bids"), "--recording", str(xdf)]
+        export = ["export", str(folder), "--out", str(root / "bids"), "--recording", str(xdf),
+                  "--sample", "--photodiode", "bench-light"]  # fmt: skip
         wall2, gb2, out2 = timed(export)
         ok = "Exported 1 session" in out2
         print(
-            f"export --recording: {wall2:.1f} s, peak {gb2:.2f} GB; {'ok' if ok else out2[-300:]}"
+            f"export --recording --sample --photodiode: {wall2:.1f} s, peak {gb2:.2f} GB; {'ok' if ok else out2[-300:]}"
         )
         load = os.getloadavg()[0]
         print(f"machine: {os.cpu_count()} cores, load average {load:.2f} at the end")
