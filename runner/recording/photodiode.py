@@ -195,7 +195,7 @@ def onset_edges(
     pairing behind it (:func:`find_edges`, :func:`pair_edges`)."""
     on = np.asarray(onsets_recorder, dtype=float)
     order = np.argsort(on, kind="stable")
-    lat = pair_edges(on, find_edges(values, times).times)
+    lat = pair_edges(on.tolist(), find_edges(values, times).times)
     edges = np.full(len(on), np.nan)
     edges[order] = lat.onsets + lat.latency_s
     return edges, lat
