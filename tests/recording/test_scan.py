@@ -232,3 +232,25 @@ def test_scan_skips_unlisted_streams(tmp_path):
     scan = scan_xdf(path, Select(strings=True, channels={"2": None}, only_listed=True))
     assert list(scan.streams) == [2]
     assert len(scan.streams[2].time_stamps) == 60
+
+
+def test_damaged_chunk_mid_file_recovers_at_the_next_boundary_like_pyxdf(tmp_path):
+    """A chunk whose length byte is garbage: skipped to the next boundary chunk, as pyxdf does,
+    and named as damage (refused unless allowed).
+
+    Source: pyxdf.load_xdf's recovery (_scan_forward to the Boundary chunk's UUID, XDF 1.0).
+    """
+    eeg = FixtureStream(2, "amp", "EEG", "int32", 100.0, _regular(99.0, 4000, 100.0),
+                        np.arange(8000).reshape(4000, 2), clock_offsets=[(99.0, 1.0), (130.0, 1.0)])  # fmt: skip
+    data = bytearray(
+        write_xdf(tmp_path / "ok.xdf", [_markers(), eeg], chunk_samples=50).read_bytes()
+    )
+    at = [p for p, tag in _chunk_starts(bytes(data)) if tag == 3][len(data) // 40000]
+    data[at] = 7  # not a length width of the specification
+    path = tmp_path / "damaged.xdf"
+    path.write_bytes(bytes(data))
+    with pytest.raises(RecordingError, match=f"byte {at} does not start an XDF chunk"):
+        read_recording(path)
+    rec = read_recording(path, allow_truncated=True)
+    _assert_same(rec, _pyxdf(path))
+    assert 0 < rec.stream(2).sample_count < 4000
