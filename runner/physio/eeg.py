@@ -52,6 +52,11 @@ UNIT_TO_VOLTS: dict[str, float] = {
 #: from memory).
 MAD_TO_SD = 1.4826
 
+#: Smallest spread (log10 units) of the channels' log variances used for robust z-scores: when
+#: all channels are alike, a channel must still differ in variance by more than a factor
+#: 10 ** (0.1 * bad_channel_z) (about 3 at z = 5) to be bad (common practice, no source).
+MIN_LOG_VAR_SPREAD = 0.1
+
 #: Welch segment length (s) for band power: 1 s gives 1 Hz resolution, five bins in the 4-8 Hz
 #: theta band; epochs shorter than this use one segment of their own length (common practice,
 #: no source).
@@ -134,7 +139,11 @@ def _filter(block: np.ndarray, srate: float, settings: EEGSettings) -> np.ndarra
 
 
 def _bad_channels(x: np.ndarray, ch_names: list[str], settings: EEGSettings) -> list[str]:
-    """Flat channels and channels whose log variance is a robust outlier."""
+    """Flat channels and channels whose log variance is a robust outlier among the channels.
+
+    Each channel's statistics are medians over epochs (its typical epoch), so an artefact in a
+    few epochs is left to epoch rejection rather than condemning the channel.
+    """
     n_ch = x.shape[1]
     flat_v = settings.flat_uv * 1e-6
     log_var = np.empty(n_ch)
@@ -142,15 +151,15 @@ def _bad_channels(x: np.ndarray, ch_names: list[str], settings: EEGSettings) -> 
     for c in range(n_ch):
         chan = x[:, c, :]
         flat[c] = float(np.median(np.ptp(chan, axis=-1))) < flat_v
-        var = float(np.var(chan))
+        var = float(np.median(np.var(chan, axis=-1)))
         log_var[c] = np.log10(var) if var > 0 else -np.inf
     bad = flat.copy()
     live = ~flat & np.isfinite(log_var)
     if live.sum() >= 3:
         centre = float(np.median(log_var[live]))
         spread = MAD_TO_SD * float(np.median(np.abs(log_var[live] - centre)))
-        if spread > 0:
-            bad[live] = np.abs(log_var[live] - centre) / spread > settings.bad_channel_z
+        spread = max(spread, MIN_LOG_VAR_SPREAD)
+        bad[live] = np.abs(log_var[live] - centre) / spread > settings.bad_channel_z
     return [ch_names[c] for c in np.flatnonzero(bad)]
 
 
@@ -254,6 +263,9 @@ def make_epochs(
         for j in np.flatnonzero(~full):
             s0 = max(0, int(starts[j]))
             s1 = min(n_samples, int(starts[j]) + span_len)
+            # At least one filter length, so MNE pads this edge as it pads the recording's.
+            s1 = min(n_samples, max(s1, s0 + 2 * pad + 1))
+            s0 = max(0, min(s0, s1 - (2 * pad + 1)))
             seg = np.asarray(data[:, s0:s1], dtype=np.float64) * scale
             if not np.isfinite(seg).all():
                 finite[lo + j] = False
@@ -292,30 +304,42 @@ def make_epochs(
     if not usable.size:
         epochs.drop([0], reason="NO_USABLE_EPOCHS", verbose=False)
     epochs.info["bads"] = list(bads)
+    flat_v = settings.flat_uv * 1e-6
+    flat_log: tuple[tuple[str, ...], ...] = ()
+    ptp = np.zeros((0, n_ch))
     if usable.size:
+        # Flat epochs are found before referencing (an average reference would lift a flat
+        # channel off zero), amplitude after it, as is usual.
+        epochs.drop_bad(flat={"eeg": flat_v}, verbose=False)
+        flat_log = epochs.drop_log
         if refs == ["average"]:
             epochs.set_eeg_reference("average", projection=False, verbose=False)
         else:
             epochs.set_eeg_reference(refs, verbose=False)
-        # Peak-to-peak per epoch and channel before MNE drops anything, to name each reason.
+            # A reference channel is now zero (or a mirror of the others): MNE's rejection
+            # ignores it and it leaves the epochs with the bad channels.
+            epochs.info["bads"] = list(bads) + [r for r in refs if r not in bads]
         ptp = np.ptp(epochs.get_data(copy=False), axis=-1)
         epochs.drop_bad(
-            reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6},
-            flat={"eeg": settings.flat_uv * 1e-6},
-            verbose=False,
+            reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6}, flat="existing", verbose=False
         )
-    flat_v = settings.flat_uv * 1e-6
     kept = np.zeros(onsets.size, dtype=bool)
+    remaining = 0
     for k, i in enumerate(usable):
+        if flat_log[k]:
+            reasons[i] = tuple(f"flat:{ch}" for ch in flat_log[k])
+            continue
         log = epochs.drop_log[k]
         if not log:
             kept[i] = True
-            continue
-        reasons[i] = tuple(
-            f"{'flat' if ptp[k, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}" for ch in log
-        )
-    if bads:
-        epochs.drop_channels(bads)
+        else:
+            reasons[i] = tuple(
+                f"{'flat' if ptp[remaining, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}"
+                for ch in log
+            )
+        remaining += 1
+    if epochs.info["bads"]:
+        epochs.drop_channels(list(epochs.info["bads"]))
     return EEGEpochs(
         epochs=epochs,
         kept=kept,
