@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
-from scipy.signal import welch
+from scipy.signal import fftconvolve, welch
 
 from runner.errors import RecordingError
 
@@ -117,14 +117,47 @@ class EEGEpochs:
     filter_pad_s: float = field(default=0.0)
 
 
-def _filter_pad(srate: float, settings: EEGSettings) -> int:
-    """Samples needed on each side of an epoch: half the length of MNE's FIR filter."""
+def _fir(srate: float, settings: EEGSettings) -> np.ndarray | None:
+    """The FIR filter MNE designs by default for this band-pass (None when there is none)."""
     if settings.l_freq is None and settings.h_freq is None:
-        return 0
+        return None
     import mne
 
-    h = mne.filter.create_filter(None, srate, settings.l_freq, settings.h_freq, verbose=False)
-    return int(len(h) // 2)
+    return np.asarray(
+        mne.filter.create_filter(None, srate, settings.l_freq, settings.h_freq, verbose=False)
+    )
+
+
+def _keep_rows(x: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """``x[keep]`` without a second copy of ``x``: rows are moved forward in place."""
+    rows = np.flatnonzero(keep)
+    if rows.size == x.shape[0]:
+        return x
+    for j, r in enumerate(rows):
+        if j != r:
+            x[j] = x[r]
+    return x[: rows.size]
+
+
+def _ptp(x: np.ndarray) -> np.ndarray:
+    """Peak-to-peak amplitude per epoch and channel, one channel at a time."""
+    out = np.empty(x.shape[:2])
+    for c in range(x.shape[1]):
+        out[:, c] = np.ptp(x[:, c, :], axis=-1)
+    return out
+
+
+def _subtract_reference(x: np.ndarray, ref_idx: list[int]) -> None:
+    """Subtract the mean of the reference channels from every channel, in place.
+
+    The same arithmetic as :func:`mne.set_eeg_reference`, without its copy of the data.
+    """
+    ref = x[:, ref_idx[0], :].copy()
+    for c in ref_idx[1:]:
+        ref += x[:, c, :]
+    ref /= len(ref_idx)
+    for c in range(x.shape[1]):
+        x[:, c, :] -= ref
 
 
 def _filter(block: np.ndarray, srate: float, settings: EEGSettings) -> np.ndarray:
@@ -229,7 +262,8 @@ def make_epochs(
     first = int(round(tmin * srate))
     last = int(round(tmax * srate))
     n_times = last - first + 1
-    pad = _filter_pad(srate, settings)
+    h = _fir(srate, settings)
+    pad = (h.size - 1) // 2 if h is not None else 0
     centre = np.round((onsets - first_time) * srate).astype(np.int64)
 
     reasons: list[tuple[str, ...]] = [()] * onsets.size
@@ -239,31 +273,33 @@ def make_epochs(
     todo = np.flatnonzero(inside)
 
     x = np.empty((todo.size, n_ch, n_times), dtype=np.float64)
+    finite = np.ones(todo.size, dtype=bool)
     span_len = n_times + 2 * pad
     per_chunk = max(1, CHUNK_BYTES // (8 * n_ch * span_len))
-    finite = np.ones(todo.size, dtype=bool)
     for lo in range(0, todo.size, per_chunk):
         batch = todo[lo : lo + per_chunk]
         starts = centre[batch] + first - pad
-        full = (starts >= 0) & (starts + span_len <= n_samples)
-        block = np.empty((batch.size, n_ch, span_len), dtype=np.float64)
-        for j in np.flatnonzero(full):
-            block[j] = data[:, starts[j] : starts[j] + span_len]
+        full = np.flatnonzero((starts >= 0) & (starts + span_len <= n_samples))
+        block = np.empty((full.size, n_ch, span_len), dtype=np.float64)
+        for r, j in enumerate(full):
+            block[r] = data[:, starts[j] : starts[j] + span_len]
         block *= scale
-        rows = np.flatnonzero(full)
-        block_ok = np.isfinite(block[rows]).all(axis=(1, 2))
-        finite[lo + rows] = block_ok
-        good_rows = rows[block_ok]
-        if good_rows.size:
-            flat_view = block[good_rows].reshape(-1, span_len)
-            filtered = _filter(flat_view, srate, settings).reshape(good_rows.size, n_ch, span_len)
-            x[lo + good_rows] = filtered[:, :, pad : pad + n_times]
-        # Spans cut by the recording's start or end: filtered alone, as MNE pads a whole
-        # recording's edges the same way.
-        for j in np.flatnonzero(~full):
+        ok = np.isfinite(block).all(axis=(1, 2))
+        finite[lo + full] = ok
+        if ok.any():
+            spans = block[ok] if not ok.all() else block
+            if h is None:
+                x[lo + full[ok]] = spans
+            else:
+                # The FIR filter MNE designs, applied as MNE applies it (zero phase, centred);
+                # "valid" keeps the samples whose whole filter support is real data.
+                x[lo + full[ok]] = fftconvolve(spans, h[None, None, :], mode="valid", axes=-1)
+        del block
+        # Spans cut by the recording's start or end: filtered by MNE itself, which pads the
+        # edges of a segment that starts or ends with the recording as it pads the recording's.
+        for j in np.flatnonzero(~np.isin(np.arange(batch.size), full)):
             s0 = max(0, int(starts[j]))
             s1 = min(n_samples, int(starts[j]) + span_len)
-            # At least one filter length, so MNE pads this edge as it pads the recording's.
             s1 = min(n_samples, max(s1, s0 + 2 * pad + 1))
             s0 = max(0, min(s0, s1 - (2 * pad + 1)))
             seg = np.asarray(data[:, s0:s1], dtype=np.float64) * scale
@@ -273,14 +309,28 @@ def make_epochs(
             seg = _filter(seg, srate, settings)
             offset = int(centre[batch[j]]) + first - s0
             x[lo + j] = seg[:, offset : offset + n_times]
-        del block
     for i in todo[~finite]:
         reasons[i] = (REASON_MISSING,)
+    x = _keep_rows(x, finite)
     usable = todo[finite]
-    x = x[finite] if not finite.all() else x
+
+    bads = _bad_channels(x, list(ch_names), settings) if usable.size else []
+    good = [c for c in range(n_ch) if ch_names[c] not in bads]
+    # Flat epochs are found before referencing (an average reference would lift a flat channel
+    # off zero), as MNE's ``flat`` rule: peak-to-peak below the threshold on any good channel.
+    flat_v = settings.flat_uv * 1e-6
+    ptp = _ptp(x)
+    flat_rows = (ptp[:, good] < flat_v).any(axis=1) if good else np.zeros(usable.size, bool)
+    for k in np.flatnonzero(flat_rows):
+        reasons[usable[k]] = tuple(f"flat:{ch_names[c]}" for c in good if ptp[k, c] < flat_v)
+    x = _keep_rows(x, ~flat_rows)
+    usable = usable[~flat_rows]
+
+    ref_idx = good if refs == ["average"] else [ch_names.index(r) for r in refs]
+    if usable.size and ref_idx:
+        _subtract_reference(x, ref_idx)
 
     info = mne.create_info(list(ch_names), srate, ch_types="eeg", verbose=False)
-    bads = _bad_channels(x, list(ch_names), settings) if usable.size else []
     events = np.column_stack(
         (
             centre[usable],
@@ -301,43 +351,31 @@ def make_epochs(
         baseline=None,
         verbose=False,
     )
+    # The data are referenced above; an empty list tells MNE so without changing them.
+    mne.set_eeg_reference(epochs, ref_channels=[], copy=False, verbose=False)
+    # A reference channel is now zero (or mirrors the others): rejection ignores it and it
+    # leaves the epochs with the bad channels.
+    extra = [] if refs == ["average"] else [r for r in refs if r not in bads]
+    epochs.info["bads"] = list(bads) + extra
     if not usable.size:
         epochs.drop([0], reason="NO_USABLE_EPOCHS", verbose=False)
-    epochs.info["bads"] = list(bads)
-    flat_v = settings.flat_uv * 1e-6
-    flat_log: tuple[tuple[str, ...], ...] = ()
-    ptp = np.zeros((0, n_ch))
-    if usable.size:
-        # Flat epochs are found before referencing (an average reference would lift a flat
-        # channel off zero), amplitude after it, as is usual.
-        epochs.drop_bad(flat={"eeg": flat_v}, verbose=False)
-        flat_log = epochs.drop_log
-        if refs == ["average"]:
-            epochs.set_eeg_reference("average", projection=False, verbose=False)
-        else:
-            epochs.set_eeg_reference(refs, verbose=False)
-            # A reference channel is now zero (or a mirror of the others): MNE's rejection
-            # ignores it and it leaves the epochs with the bad channels.
-            epochs.info["bads"] = list(bads) + [r for r in refs if r not in bads]
-        ptp = np.ptp(epochs.get_data(copy=False), axis=-1)
+    else:
+        ptp = _ptp(x)
         epochs.drop_bad(
-            reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6}, flat="existing", verbose=False
+            reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6},
+            flat={"eeg": flat_v},
+            verbose=False,
         )
     kept = np.zeros(onsets.size, dtype=bool)
-    remaining = 0
     for k, i in enumerate(usable):
-        if flat_log[k]:
-            reasons[i] = tuple(f"flat:{ch}" for ch in flat_log[k])
-            continue
         log = epochs.drop_log[k]
         if not log:
             kept[i] = True
         else:
             reasons[i] = tuple(
-                f"{'flat' if ptp[remaining, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}"
+                f"{'flat' if ptp[k, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}"
                 for ch in log
             )
-        remaining += 1
     if epochs.info["bads"]:
         epochs.drop_channels(list(epochs.info["bads"]))
     return EEGEpochs(
