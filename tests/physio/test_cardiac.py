@@ -158,9 +158,9 @@ def test_windows_too_short_give_flags_not_numbers(
 ) -> None:
     """Each HRV measure is None with a flag when its window is under its published minimum.
 
-    Source: Munoz et al. (2015), PLoS ONE 10:e0138921 (RMSSD from 10 s, SDNN from 30 s) and
-    the Task Force of the ESC and NASPE (1996), Circulation 93:1043-1065 (HF about 1 min, LF
-    about 2 min); both from memory.
+    Source: Munoz et al. (2015), PLoS ONE 10:e0138921 (RMSSD from 10 s, SDNN from 30 s; checked,
+    abstract) and the Task Force of the ESC and NASPE (1996), Circulation 93:1043-1065 (HF about
+    1 min, LF about 2 min; from memory).
     """
     beats = _peaks(_modulated_rr(200.0)) / 1000.0
     result = hrv(beats, beats[0], beats[0] + seconds)
