@@ -1,0 +1,1 @@
+"""Per-trial physiology: pupil, cardiac and EEG measures from an aligned recording (issue 12)."""
