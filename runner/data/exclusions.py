@@ -131,7 +131,11 @@ def physio_validity(physio: pd.DataFrame) -> dict[tuple[str, str], float]:
     ).all(axis=1)
     keys = physio["participant"].astype(str) + "\0" + physio["session"].astype(str)
     shares = valid.groupby(keys).mean()
-    return {tuple(k.split("\0", 1)): float(v) for k, v in shares.items()}  # type: ignore[misc]
+    out: dict[tuple[str, str], float] = {}
+    for k, v in shares.items():
+        participant, _, session = str(k).partition("\0")
+        out[(participant, session)] = float(v)
+    return out
 
 
 def _excludes(rule: str, value: float, threshold: float) -> bool:
