@@ -129,12 +129,17 @@ def physio_validity(physio: pd.DataFrame) -> dict[tuple[str, str], float]:
     valid = pd.concat(
         [physio[c].astype(str).str.strip().str.lower().isin(truthy) for c in flags], axis=1
     ).all(axis=1)
-    keys = physio["participant"].astype(str) + "\0" + physio["session"].astype(str)
-    shares = valid.groupby(keys).mean()
+    frame = pd.DataFrame(
+        {
+            "participant": physio["participant"].astype(str),
+            "session": physio["session"].astype(str),
+            "valid": valid.astype(float),
+        }
+    )
+    shares = frame.groupby(["participant", "session"], sort=True)["valid"].mean()
     out: dict[tuple[str, str], float] = {}
-    for k, v in shares.items():
-        participant, _, session = str(k).partition("\0")
-        out[(participant, session)] = float(v)
+    for (participant, session), share in shares.items():
+        out[(str(participant), str(session))] = float(share)
     return out
 
 
