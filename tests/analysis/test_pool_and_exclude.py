@@ -9,6 +9,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from export_pilots import MINI_PROTOCOL
+from rread import needs_r, same_kinds
 
 from runner.cli import main
 
@@ -109,3 +110,13 @@ def test_alike_sessions_pool_without_the_option(pilots, tmp_path):
     assert main(["summary", str(pilots["alike"]), "--out", str(tmp_path / "s")]) == 0
     trials = pd.read_csv(tmp_path / "x" / "trials.csv", dtype={"participant": str})
     assert set(trials["participant"]) == {"P01", "P02"}
+
+
+@needs_r
+def test_r_reads_the_exported_tables_as_pandas_does(pilots, tmp_path):
+    """The export's trials.csv and exclusions.csv read back with the same column kinds in R's
+    read.csv and pandas (empty cells are missing numbers, not text).
+    Source: R's utils::read.csv (R from the system packages), run with Rscript."""
+    root = str(pilots["protocols"])
+    assert main(["export", root, "--out", str(tmp_path / "x"), "--pool-unlike"]) == 0
+    same_kinds([tmp_path / "x" / "trials.csv", tmp_path / "x" / "exclusions.csv"])
