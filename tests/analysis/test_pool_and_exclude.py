@@ -15,7 +15,10 @@ from runner.cli import main
 
 pytestmark = pytest.mark.slow  # runs pilot sessions in real time
 
-RULES = "exclusions: {unsure_share_above: 0.5, timed_out_share_above: 0.9}\n"
+RULES = (
+    "exclusions: {unsure_share_above: 0.5, timed_out_share_above: 0.9,"
+    " physio_valid_share_below: 0.5}\n"
+)
 ALWAYS_UNSURE = "pilot: {unsure_at_zero: 1.0, unsure_max: 1.0}\n"
 
 
@@ -120,3 +123,25 @@ def test_r_reads_the_exported_tables_as_pandas_does(pilots, tmp_path):
     root = str(pilots["protocols"])
     assert main(["export", root, "--out", str(tmp_path / "x"), "--pool-unlike"]) == 0
     same_kinds([tmp_path / "x" / "trials.csv", tmp_path / "x" / "exclusions.csv"])
+
+
+def test_physiology_table_excludes_through_the_command_line(pilots, tmp_path, capsys):
+    """--physio gives export and summary the per-trial validity: a session with too few valid
+    trials is excluded by both; without the table the rule is listed as not judged."""
+    physio = tmp_path / "physio.csv"
+    physio.write_text(
+        "participant,session,trial,valid\nP01,1,1,1\nP01,1,2,1\nP02,1,1,0\nP02,1,2,1\nP02,1,3,0\n",
+        encoding="utf-8",
+    )
+    root = str(pilots["alike"])
+    for verb, out in (("export", tmp_path / "x"), ("summary", tmp_path / "s")):
+        assert main([verb, root, "--out", str(out), "--physio", str(physio)]) == 0
+        table = pd.read_csv(out / "exclusions.csv", dtype={"participant": str, "session": str})
+        rule = table[table["rule"] == "physio_valid_share_below"].set_index("participant")
+        assert rule.loc["P02", "excluded"] == 1 and rule.loc["P02", "value"] == 0.3333
+        assert rule.loc["P01", "excluded"] == 0 and rule.loc["P01", "value"] == 1.0
+    assert capsys.readouterr().out.count("Excluded participant P02 session 1") == 2
+    assert main(["summary", root, "--out", str(tmp_path / "none")]) == 0
+    table = pd.read_csv(tmp_path / "none" / "exclusions.csv")
+    notes = set(table.loc[table["rule"] == "physio_valid_share_below", "note"])
+    assert notes == {"no physiology table given"}
