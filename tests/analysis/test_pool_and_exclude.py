@@ -128,11 +128,14 @@ def test_r_reads_the_exported_tables_as_pandas_does(pilots, tmp_path):
 def test_physiology_table_excludes_through_the_command_line(pilots, tmp_path, capsys):
     """--physio gives export and summary the per-trial validity: a session with too few valid
     trials is excluded by both; without the table the rule is listed as not judged."""
-    physio = tmp_path / "physio.csv"
+    # Laid out as `trialdeck physio` writes it: physio_trials.csv with a JSON sidecar.
+    physio = tmp_path / "physio_trials.csv"
     physio.write_text(
         "participant,session,trial,valid\nP01,1,1,1\nP01,1,2,1\nP02,1,1,0\nP02,1,2,1\nP02,1,3,0\n",
         encoding="utf-8",
     )
+    sidecar = {"valid": {"Description": "1 when the trial's physiology is valid"}}
+    physio.with_suffix(".json").write_text(json.dumps(sidecar), encoding="utf-8")
     root = str(pilots["alike"])
     for verb, out in (("export", tmp_path / "x"), ("summary", tmp_path / "s")):
         assert main([verb, root, "--out", str(out), "--physio", str(physio)]) == 0
