@@ -21,6 +21,11 @@ FLOOR_SHARE = 0.05
 CEILING_SHARE = 0.95
 
 
+def _count(n: int, word: str, many: str | None = None) -> str:
+    """``1 trial``, ``2 trials``: a count with its noun in the right number."""
+    return f"{n} {word if n == 1 else (many or word + 's')}"
+
+
 def _seconds(ms: float) -> str:
     return "–" if not math.isfinite(ms) else f"{ms / 1000:.2f}"
 
@@ -66,17 +71,36 @@ def build_report(
     rating_points: int,
 ) -> str:
     scope = (
-        f"All {len(data)} trials, practice included."
+        f"All {_count(len(data), 'trial')}, practice included."
         if include_practice
-        else f"Main-part trials only ({len(data)} trials); {n_practice} practice trials are left "
-        "out because practice is for learning the task, not for measuring it."
+        else f"Main-part trials only ({_count(len(data), 'trial')}); "
+        f"{_count(n_practice, 'practice trial')} "
+        f"{'is' if n_practice == 1 else 'are'} left out because practice is for learning the "
+        "task, not for measuring it."
     )
     dur = facts["duration_s"]
     tps = facts["trials_per_session"]
     overview = [
+        *([f"Study: {', '.join(facts['studies'])}."] if facts.get("studies") else []),
         scope,
-        f"{facts['n_sessions']} sessions from {facts['n_participants']} participants "
-        f"({facts['n_aborted']} aborted, {facts['n_pilot']} simulated pilots).",
+        f"{_count(facts['n_sessions'], 'session')} from "
+        f"{_count(facts['n_participants'], 'participant')} "
+        f"({facts['n_aborted']} aborted, {facts['n_pilot']} simulated "
+        f"{'pilot' if facts['n_pilot'] == 1 else 'pilots'}).",
+        *(
+            [
+                "Excluded by the protocol's pre-declared rules (left out of everything below; "
+                "see exclusions.csv): "
+                + "; ".join(
+                    f"participant {e['participant']} session {e['session']} "
+                    f"({', '.join(e['rules'])})"
+                    for e in facts["excluded"]
+                )
+                + "."
+            ]
+            if facts.get("excluded")
+            else []
+        ),
         "Session length: "
         + (
             f"{dur['min'] / 60:.1f} to {dur['max'] / 60:.1f} min (median {dur['median'] / 60:.1f})"
@@ -89,13 +113,13 @@ def build_report(
             if math.isfinite(tps["median"])
             else "not recorded."
         ),
-        f"{facts['n_timed_out']} trials timed out.",
+        f"{_count(facts['n_timed_out'], 'trial')} timed out.",
     ]
     if "sim_rt_error_ms" in facts and facts["sim_rt_error_ms"]["n"]:
         sim = facts["sim_rt_error_ms"]
         overview.append(
-            f"Simulated participant: measured minus intended response time over {sim['n']} "
-            f"answered trials, median {sim['median']:.2f} ms, largest {sim['max_abs']:.2f} ms."
+            "Simulated participant: measured minus intended response time over "
+            f"{_count(sim['n'], 'answered trial')}, median {sim['median']:.2f} ms, largest {sim['max_abs']:.2f} ms."
         )
     overview.append(
         "Long sessions tire participants: check the lengths above against the breaks you planned "
