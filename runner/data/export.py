@@ -6,7 +6,9 @@ header (design principle 1); nothing is read from the per-session ``trials.csv``
 * :mod:`runner.data.sessions`: reading sessions (:class:`ExportSession`);
 * :mod:`runner.data.pooled`: the pooled ``trials.csv`` and the sessions table;
 * :mod:`runner.data.bids_rows` and :mod:`runner.data.bids`: BIDS events rows, files, sidecars;
-* :mod:`runner.data.origins`: time zero of the events (session start or first EEG sample).
+* :mod:`runner.data.origins`: time zero of the events (session start or first EEG sample);
+* :mod:`runner.data.continuous`: with ``with_data``, the recording's EEG (BrainVision) and its
+  eye-tracking and ECG streams (physio files) on the same time axis.
 
 Both outputs are documented column by column in docs/analysis.md. This module runs the export
 (:func:`export_sessions`) and re-exports the parts' public names.
@@ -20,6 +22,8 @@ from pathlib import Path
 
 from runner.contract.outputs import prepare_output_folder
 from runner.data.bids import (
+    BIDS_DATASET_DESCRIPTION,
+    BIDS_VERSION,
     DATATYPES,
     DEFAULT_DATATYPE,
     POOLED_NAME,
@@ -40,6 +44,12 @@ from runner.data.bids_rows import (
     EventRow,
     EventRows,
     event_rows,
+)
+from runner.data.continuous import (
+    DATA_BIDS_VERSION,
+    DATA_DATATYPE,
+    ContinuousResult,
+    DataOptions,
 )
 from runner.data.origins import Origin, recording_origin, session_origin
 from runner.data.pooled import (
@@ -83,6 +93,8 @@ __all__ = [
     "EventRows",
     "ExportResult",
     "ExportSession",
+    "ContinuousResult",
+    "DataOptions",
     "Origin",
     "bids_events",
     "event_rows",
@@ -118,6 +130,8 @@ class ExportResult:
     sessions: list[ExportSession]
     n_trials: int
     other_files: list[Path] = field(default_factory=list)
+    # With ``with_data``: what was written from each session's recording, in session order.
+    data: list[ContinuousResult] = field(default_factory=list)
 
 
 def export_sessions(
@@ -125,11 +139,12 @@ def export_sessions(
     out: str | Path,
     *,
     task: str | None = None,
-    datatype: str = DEFAULT_DATATYPE,
+    datatype: str | None = None,
     recordings: Sequence[str | Path] | None = None,
     allow_truncated: bool = False,
     workers: int | None = None,
     force: bool = False,
+    with_data: DataOptions | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -142,8 +157,9 @@ def export_sessions(
         kept, and ``trials.csv`` is added to ``.bidsignore``).
     task : str, optional
         BIDS task label; default the study id with non-alphanumerics removed.
-    datatype : {"beh", "eeg"}
-        The datatype folder of the events files.
+    datatype : {"beh", "eeg"}, optional
+        The datatype folder of the events files; default ``beh``, or ``eeg`` with ``with_data``
+        (which needs ``eeg``).
     recordings : sequence of path, optional
         One XDF recording per session, in session order: onsets then count from the first
         sample of its EEG stream. Default: from the session start.
@@ -155,11 +171,16 @@ def export_sessions(
         :data:`runner.data.sessions.PARALLEL_MIN_SESSIONS`
         sessions on, else none (everything in this process). Workers are forked, so only where
         the platform forks and this process runs no other thread; otherwise everything runs
-        here. The files are the same either way.
+        here. The files are the same either way. With ``with_data`` everything runs here, one
+        session at a time (mne-bids updates the dataset's shared participants.tsv).
     force : bool
         Write into an existing folder that is neither empty nor an earlier export's (see
         :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
         holding sessions, is refused even so).
+    with_data : DataOptions, optional
+        Also write each recording's EEG as BrainVision and its eye-tracking and ECG streams as
+        physio files (:func:`runner.data.continuous.write_continuous`), on the events' time
+        axis; needs a recording per session.
 
     Returns
     -------
@@ -168,13 +189,25 @@ def export_sessions(
     Raises
     ------
     UsageError
-        Bad labels or datatype, or a recording count that differs from the session count.
+        Bad labels or datatype, a recording count that differs from the session count, or
+        ``with_data`` without recordings or with the ``beh`` datatype.
     OutputRefused
         The folder is not empty and not an earlier export's (without ``force``), is or holds a
         session folder, or has a link where a file goes.
     InputFileError, JournalError, RecordingError, StorageError
         See :func:`load_sessions`, :func:`recording_origin` and the writers.
     """
+    if datatype is None:
+        datatype = DATA_DATATYPE if with_data is not None else DEFAULT_DATATYPE
+    if with_data is not None and datatype != DATA_DATATYPE:
+        raise UsageError(
+            f"with the recording's data the events go into the {DATA_DATATYPE!r} folder next to "
+            f"the EEG; drop --datatype {datatype} or give --datatype {DATA_DATATYPE}."
+        )
+    if with_data is not None and not recordings:
+        raise UsageError(
+            "--with-data writes the recording's streams: give one --recording FILE.xdf per session."
+        )
     if datatype not in DATATYPES:
         raise UsageError(
             f"the datatype {datatype!r} is not supported; use one of {', '.join(DATATYPES)}."
@@ -187,27 +220,47 @@ def export_sessions(
             "one --recording per session, in the same order as the session folders."
         )
     target = prepare_output_folder(out, EXPORT_COMMAND, force=force, what="export")
+    # mne-bids writes a placeholder dataset_description.json when none exists; ours replaces it
+    # unless the folder already had one (which is kept, as without data).
+    had_description = (out / BIDS_DATASET_DESCRIPTION).exists()
     sessions: list[ExportSession] = []
     origins: list[Origin] = []
     events: list[tuple[Path, Path]] = []
+    data: list[ContinuousResult] = []
     seen: dict[tuple[str, str, str], Path] = {}
     jobs = [
-        _Job(folder, out, task, datatype, recordings[i] if recordings else None, allow_truncated)
+        _Job(
+            folder,
+            out,
+            task,
+            datatype,
+            recordings[i] if recordings else None,
+            allow_truncated,
+            with_data,
+        )
         for i, folder in enumerate(folders)
     ]
-    workers = worker_count(len(jobs), workers)
+    workers = 1 if with_data is not None else worker_count(len(jobs), workers)
     # Each session is read, its events written, then its journal lines let go, so memory stays
     # at one session's worth per process however many are exported.
-    for session, origin, written in _run_jobs(jobs, workers, seen):
+    for session, origin, written, continuous in _run_jobs(jobs, workers, seen):
         sessions.append(session)
         origins.append(origin)
         events.append(written)
+        if continuous is not None:
+            data.append(continuous)
     pooled = write_pooled_trials(sessions, out / POOLED_NAME)
     try:
-        others = dataset_files(out, sessions)
+        others = dataset_files(
+            out,
+            sessions,
+            replace_description=not had_description,
+            bids_version=BIDS_VERSION if with_data is None else DATA_BIDS_VERSION,
+        )
     except OSError as exc:
         raise StorageError(f"cannot write the dataset files in {out}: {exc.strerror}.") from None
-    target.finish([pooled, *others, *(p for pair in events for p in pair)])
+    data_files = [p for d in data for p in d.files()]
+    target.finish([pooled, *others, *(p for pair in events for p in pair), *data_files])
     return ExportResult(
         pooled=pooled,
         events=events,
@@ -215,6 +268,7 @@ def export_sessions(
         sessions=sessions,
         n_trials=sum(len(s.trials) for s in sessions),
         other_files=others,
+        data=data,
     )
 
 
@@ -228,6 +282,7 @@ class _Job:
     datatype: str
     recording: str | Path | None
     allow_truncated: bool = False
+    data: DataOptions | None = None
 
 
 def _load(job: _Job) -> ExportSession:
@@ -235,25 +290,49 @@ def _load(job: _Job) -> ExportSession:
     return load_session(job.folder, decode=None if job.recording is not None else EXPORT_EVENTS)
 
 
-def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
-    if job.recording is not None:
+_Done = tuple[ExportSession, Origin, tuple[Path, Path], ContinuousResult | None]
+
+
+def _write(job: _Job, session: ExportSession) -> _Done:
+    label = task_label(session.study, job.task)
+    continuous = None
+    if job.recording is not None and job.data is not None:
+        from runner.data.continuous import SessionLabels, write_continuous
+        from runner.recording import read_recording
+
+        # Read once: the same loaded file gives the origin and the samples.
+        rec = read_recording(job.recording, allow_truncated=job.allow_truncated)
+        origin = recording_origin(
+            session, job.recording, allow_truncated=job.allow_truncated, loaded=rec
+        )
+        screen = session.protocol.screen
+        # The data first: the events files written next are trialdeck's, whatever mne-bids did.
+        continuous = write_continuous(
+            rec,
+            origin,
+            job.out,
+            SessionLabels(session.participant, session.session, label),
+            options=job.data,
+            screen_known=screen.width_cm is not None and screen.distance_cm is not None,
+        )
+        del rec
+    elif job.recording is not None:
         origin = recording_origin(session, job.recording, allow_truncated=job.allow_truncated)
     else:
         origin = session_origin(session)
-    label = task_label(session.study, job.task)
     written = write_bids_events(session, job.out, task=label, datatype=job.datatype, origin=origin)
     session.release()
-    return session, origin, written
+    return session, origin, written, continuous
 
 
-def _export_one(job: _Job) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
+def _export_one(job: _Job) -> _Done:
     """Read one session and write its events files (in a worker process)."""
     return _write(job, _load(job))
 
 
 def _run_jobs(
     jobs: list[_Job], workers: int, seen: dict[tuple[str, str, str], Path]
-) -> Iterator[tuple[ExportSession, Origin, tuple[Path, Path]]]:
+) -> Iterator[_Done]:
     """Export each session, in order; two sessions with the same labels are refused."""
     if workers <= 1:
         for job in jobs:

@@ -12,13 +12,16 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from runner.data.sessions import ExportSession
 from runner.errors import RecordingError
 from runner.recording.clock import ClockModel
 from runner.recording.dejitter import dejitter
 from runner.recording.identity import compare_identity
+
+if TYPE_CHECKING:
+    from runner.recording.xdf import Recording
 
 __all__ = ["Origin", "recording_origin", "session_origin"]
 
@@ -76,14 +79,19 @@ def session_origin(session: ExportSession) -> Origin:
 
 
 def recording_origin(
-    session: ExportSession, recording: str | Path, *, allow_truncated: bool = False
+    session: ExportSession,
+    recording: str | Path,
+    *,
+    allow_truncated: bool = False,
+    loaded: Recording | None = None,
 ) -> Origin:
     """Origin at the first sample of the recording's first EEG-type stream.
 
     The recording's marker stream is matched with the journal's markers
     (:func:`runner.recording.check_recording`); their median time difference maps presenter
     times onto the recorder's clock. Time zero on the presenter clock is then the EEG stream's
-    first timestamp (after pyxdf's clock synchronisation) minus that offset.
+    first timestamp (after pyxdf's clock synchronisation) minus that offset. ``loaded`` is the
+    recording already read from ``recording`` (then it is not read again).
 
     Raises
     ------
@@ -93,7 +101,9 @@ def recording_origin(
     from runner.recording import check_recording, read_recording
     from runner.recording.check import sequence_mismatch
 
-    rec = read_recording(recording, allow_truncated=allow_truncated)
+    rec = loaded  # export --with-data reads the file once for the origin and the samples
+    if rec is None:
+        rec = read_recording(recording, allow_truncated=allow_truncated)
     eeg = [
         s
         for s in sorted(rec.streams, key=lambda x: x.stream_id)
@@ -157,6 +167,7 @@ def recording_origin(
         details={
             "recording": str(recording),
             "eeg_stream": stream.name,
+            "eeg_stream_id": stream.stream_id,
             "eeg_source_id": stream.source_id,
             "eeg_first_timestamp": first,
             "eeg_first_timestamp_raw": raw_first,
