@@ -63,7 +63,10 @@ ECG_TYPES = frozenset({"ecg"})
 EYES = ("left", "right", "cyclopean")
 #: Recording labels of the physio files: eye1/eye2 as in the BIDS eye-tracking examples.
 ECG_LABEL = "ecg"
+EYE_LABEL = "eye"
 PUPIL_LABEL = "pupil"
+#: Eye-tracking columns in the order of the BIDS rule (after ``timestamp``).
+EYE_COLUMNS = ("x_coordinate", "y_coordinate", "pupil_size")
 # Units of voltage channels as XDF stream headers write them, in volts. The XDF meta-data
 # convention for EEG streams gives "microvolts"; a header without units is read as that.
 VOLT_SCALES = {
@@ -260,9 +263,8 @@ def write_eeg(
 
     names, types, scales = _eeg_channels(signal)
     info = mne.create_info(names, signal.sfreq, ch_types=types, verbose=False)
-    raw = mne.io.RawArray(
-        (signal.data.astype(np.float64) * scales).T, info, first_samp=0, verbose=False
-    )
+    volts = np.multiply(signal.data, scales, dtype=np.float64)  # one float64 copy
+    raw = mne.io.RawArray(volts.T, info, first_samp=0, verbose=False)
     raw.info["line_freq"] = line_freq
     path = BIDSPath(
         subject=labels.participant,
@@ -272,7 +274,7 @@ def write_eeg(
         suffix=DATA_DATATYPE,
         root=out,
     )
-    before = _files(out)
+    before = _files(out, labels)
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
@@ -300,13 +302,16 @@ def write_eeg(
             fh.write(json.dumps(meta, indent=4, ensure_ascii=False) + "\n")
     except OSError as exc:
         raise StorageError(f"cannot update {sidecar}: {exc.strerror or exc}.") from None
-    return sorted(p for p, stamp in _files(out).items() if before.get(p) != stamp)
+    return sorted(p for p, stamp in _files(out, labels).items() if before.get(p) != stamp)
 
 
-def _files(root: Path) -> dict[Path, tuple[int, int]]:
-    if not root.is_dir():
-        return {}
-    return {p: (p.stat().st_mtime_ns, p.stat().st_size) for p in root.rglob("*") if p.is_file()}
+def _files(out: Path, labels: SessionLabels) -> dict[Path, tuple[int, int]]:
+    """Files where mne-bids writes for one session: the root's own files and the session folder."""
+    found = [p for p in out.iterdir() if p.is_file()] if out.is_dir() else []
+    ses = labels.folder(out).parent
+    if ses.is_dir():
+        found.extend(p for p in ses.rglob("*") if p.is_file())
+    return {p: (p.stat().st_mtime_ns, p.stat().st_size) for p in found}
 
 
 # Physio
@@ -322,12 +327,16 @@ class PhysioColumn:
     units: str = ""
 
 
-def eye_columns(signal: Signal, recorded_eye: str | None) -> dict[str, list[PhysioColumn]]:
+def eye_columns(
+    signal: Signal, recorded_eye: str | None, notes: list[str] | None = None
+) -> dict[str, list[PhysioColumn]]:
     """The physio columns of an eye-tracking stream per eye (``left``, ``right``, or the eye
     given for channels that name none), from the channel labels and types of its header.
 
     A channel is gaze x or y when its label or type says so (``x``, ``gaze_x``, ``screen_x``,
-    ``position_x``, ...), pupil size when it says ``pupil``; other channels are left out.
+    ``position_x``, ...), pupil size when it says ``pupil``; other channels are left out. When
+    several channels of one eye read as the same column, the first is used and the others are
+    named in ``notes``.
 
     Raises
     ------
@@ -365,18 +374,21 @@ def eye_columns(signal: Signal, recorded_eye: str | None) -> dict[str, list[Phys
                     "--recorded-eye."
                 )
             eye = recorded_eye
+        same = [c for c in found.get(eye, []) if c.name == column.name]
+        if same:
+            if notes is not None:
+                notes.append(
+                    f"{signal.stream.label()}: channel {label!r} also reads as the {eye} eye's "
+                    f"{column.name}; the first such channel, {labels[same[0].channel]!r}, is "
+                    "written."
+                )
+            continue
         found.setdefault(eye, []).append(column)
     if not found:
         raise RecordingError(
             f"{signal.stream.label()} has no channel labelled as gaze x, gaze y or pupil in its "
             "header (desc/channels), so its columns cannot be named; choose another stream."
         )
-    for eye, columns in found.items():
-        names = [c.name for c in columns]
-        if len(set(names)) != len(names):
-            raise RecordingError(
-                f"{signal.stream.label()} has more than one {names} channel for the {eye} eye."
-            )
     return found
 
 
@@ -510,21 +522,35 @@ def write_continuous(
     del eeg
     zero = origin.zero
     eye_ids = find_streams(rec, EYE_TYPES, options.eye_stream, "eye-tracking")
-    if len(eye_ids) > 1 and options.eye_stream is None:
+    if len(eye_ids) > 1:
         raise RecordingError(_several(rec, eye_ids, "eye-tracking", "--eye-stream"))
     for sid in eye_ids:
         signal = stream_signal(rec, sid)
-        per_eye = eye_columns(signal, options.recorded_eye)
-        for n, eye in enumerate(sorted(per_eye, key=EYES.index), start=1):
-            columns = sorted(
-                per_eye[eye],
-                key=lambda c: ("x_coordinate", "y_coordinate", "pupil_size").index(c.name),
-            )
-            result.physio.append(
-                _write_eye(signal, out, eye, n, columns, zero, screen_known, labels)
-            )
+        per_eye = eye_columns(signal, options.recorded_eye, result.notes)
+        gaze_files = pupil_files = 0
+        for eye in sorted(per_eye, key=EYES.index):
+            columns = sorted(per_eye[eye], key=lambda c: EYE_COLUMNS.index(c.name))
+            if {"x_coordinate", "y_coordinate"} <= {c.name for c in columns}:
+                gaze_files += 1
+                result.physio.append(
+                    _write_gaze(signal, out, eye, gaze_files, columns, zero, screen_known, labels)
+                )
+                continue
+            # Without both gaze coordinates it is not eye-tracking physio in BIDS terms (x and
+            # y are required): a pupil channel is written as generic physio, lone x or y is not.
+            pupil = [c for c in columns if c.name == "pupil_size"]
+            if len(pupil) < len(columns):
+                result.notes.append(
+                    f"{signal.stream.label()}: the {eye} eye has only one gaze coordinate; it "
+                    "is left out (BIDS eye-tracking files need both)."
+                )
+            if pupil:
+                pupil_files += 1
+                result.physio.append(
+                    _write_pupil(signal, out, eye, pupil_files, pupil, zero, labels)
+                )
     ecg_ids = find_streams(rec, ECG_TYPES, options.ecg_stream, "ECG")
-    if len(ecg_ids) > 1 and options.ecg_stream is None:
+    if len(ecg_ids) > 1:
         raise RecordingError(_several(rec, ecg_ids, "ECG", "--ecg-stream"))
     for sid in ecg_ids:
         signal = stream_signal(rec, sid)
@@ -553,7 +579,7 @@ def write_continuous(
     return result
 
 
-def _write_eye(
+def _write_gaze(
     signal: Signal,
     out: Path,
     eye: str,
@@ -563,29 +589,39 @@ def _write_eye(
     screen_known: bool,
     labels: SessionLabels,
 ) -> tuple[Path, Path]:
-    names = {c.name for c in columns}
-    if {"x_coordinate", "y_coordinate"} <= names:
-        units = {c.units for c in columns if c.name != "pupil_size"} - {""}
-        sidecar: dict[str, Any] = {
-            "PhysioType": "eyetrack",
-            "RecordedEye": eye,
-            **_stream_note(signal),
-        }
-        if screen_known:
-            sidecar["SampleCoordinateSystem"] = "gaze-on-screen"
-        else:
-            sidecar["SampleCoordinateSystem"] = "custom"
-            sidecar["SampleCoordinateSystemDescription"] = (
-                "Gaze coordinates as the eye tracker's stream gives them"
-                + (f" (units: {', '.join(sorted(units))})" if units else "")
-                + "; the protocol gives no screen size and distance, so they are not declared "
-                "gaze-on-screen."
-            )
-        return write_physio(
-            signal, out, labels, recording=f"eye{n}", columns=columns, zero=zero,
-            sidecar=sidecar, timestamp=True,
-        )  # fmt: skip
-    # Pupil size without gaze: not eye-tracking physio in BIDS terms (x and y are required).
+    """One eye's ``recording-eye<n>`` file: BIDS eye-tracking physio."""
+    units = {c.units for c in columns if c.name != "pupil_size"} - {""}
+    sidecar: dict[str, Any] = {
+        "PhysioType": "eyetrack",
+        "RecordedEye": eye,
+        **_stream_note(signal),
+    }
+    if screen_known:
+        sidecar["SampleCoordinateSystem"] = "gaze-on-screen"
+    else:
+        sidecar["SampleCoordinateSystem"] = "custom"
+        sidecar["SampleCoordinateSystemDescription"] = (
+            "Gaze coordinates as the eye tracker's stream gives them"
+            + (f" (units: {', '.join(sorted(units))})" if units else "")
+            + "; the protocol gives no screen size and distance, so they are not declared "
+            "gaze-on-screen."
+        )
+    return write_physio(
+        signal, out, labels, recording=f"{EYE_LABEL}{n}", columns=columns, zero=zero,
+        sidecar=sidecar, timestamp=True,
+    )  # fmt: skip
+
+
+def _write_pupil(
+    signal: Signal,
+    out: Path,
+    eye: str,
+    n: int,
+    columns: list[PhysioColumn],
+    zero: float,
+    labels: SessionLabels,
+) -> tuple[Path, Path]:
+    """One eye's pupil without gaze: ``recording-pupil`` (``pupil2``, ...), generic physio."""
     sidecar = {"PhysioType": "generic", **_stream_note(signal)}
     label = PUPIL_LABEL if n == 1 else f"{PUPIL_LABEL}{n}"
     columns = [replace(c, description=f"{c.description} Recorded eye: {eye}.") for c in columns]
@@ -612,5 +648,5 @@ def _several(rec: Recording, ids: list[int], what: str, option: str) -> str:
     names = ", ".join(rec.stream(i).label() for i in ids)
     return (
         f"{rec.path} has several {what} streams ({names}); choose one with {option} "
-        "(its name, source_id or type)."
+        "(its name or source_id)."
     )

@@ -259,7 +259,7 @@ def export_sessions(
         )
     except OSError as exc:
         raise StorageError(f"cannot write the dataset files in {out}: {exc.strerror}.") from None
-    data_files = [p for d in data for p in d.files()]
+    data_files = list(dict.fromkeys(p for d in data for p in d.files()))  # participants.tsv
     target.finish([pooled, *others, *(p for pair in events for p in pair), *data_files])
     return ExportResult(
         pooled=pooled,

@@ -97,13 +97,11 @@ def _recording(
     eye_first = first + EYE_LATE_S - EYE_OFFSET_S  # on the eye tracker's clock
     m = int((span - 1.0) * EYE_SRATE)
     eye = np.column_stack(
-        [
-            rng.uniform(0, 800, m),
-            rng.uniform(0, 600, m),
-            rng.normal(4.0, 0.3, m),
-        ][: len(eye_labels)]
+        [rng.normal(4.0, 0.3, m) if "pupil" in c else rng.uniform(0, 800, m) for c in eye_labels]
     ).astype(np.float32)
-    eye[m // 3 : m // 3 + 12, -1] = np.nan  # a blink: no pupil
+    for i, c in enumerate(eye_labels):
+        if "pupil" in c:
+            eye[m // 3 : m // 3 + 12, i] = np.nan  # a blink: no pupil
     streams.append(
         FixtureStream(
             3, "depot-eyes", "Gaze", "float32", EYE_SRATE, eye_first + np.arange(m) / EYE_SRATE,
@@ -393,6 +391,94 @@ def test_refusals_name_the_stream_or_option(pilots, tmp_path, capsys):
         export_sessions([folder], tmp_path / "f", with_data=DataOptions())
     assert main(["export", str(folder), "--out", str(tmp_path / "g"), "--line-freq", "50"]) == 2
     assert "--with-data" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    ("labels", "expected"),
+    [
+        (
+            ("left_x", "left_y", "right_x", "right_y", "right_pupil_area"),
+            {
+                "eye1": ("eyetrack", "left", ["timestamp", "x_coordinate", "y_coordinate"]),
+                "eye2": (
+                    "eyetrack",
+                    "right",
+                    ["timestamp", "x_coordinate", "y_coordinate", "pupil_size"],
+                ),
+            },
+        ),
+        (("left_pupil",), {"pupil": ("generic", None, ["pupil_size"])}),
+        (
+            ("ScreenX", "ScreenY", "gaze_x", "pupil"),
+            {
+                "eye1": (
+                    "eyetrack",
+                    "right",
+                    ["timestamp", "x_coordinate", "y_coordinate", "pupil_size"],
+                )
+            },
+        ),
+        (
+            ("left_x", "right_x", "right_y"),
+            {"eye1": ("eyetrack", "right", ["timestamp", "x_coordinate", "y_coordinate"])},
+        ),
+    ],
+)
+def test_eye_channels_are_named_from_the_header(pilots, tmp_path, labels, expected):
+    """Eye-tracking channels become BIDS columns by their header labels: one file per eye
+    (eye1 left, eye2 right), pupil without gaze as generic physio, the eye from --recorded-eye
+    when labels name none, and a second channel for the same column or a lone coordinate left
+    out with a note.
+
+    Source: BIDS schema via bidsschematools (rules.tabular_data.physio.PhysioEyeTracking,
+    objects.metadata.RecordedEye); pyxdf reads the fixture headers.
+    """
+    folder = find_session_folders([pilots])[0]
+    xdf = _recording(tmp_path / "rec.xdf", folder, eye_labels=labels)
+    eye = "right" if "ScreenX" in labels else None
+    result = export_sessions(
+        [folder], tmp_path / "b", recordings=[xdf], with_data=DataOptions(recorded_eye=eye)
+    )
+    found = {}
+    for tsv, side in result.data[0].physio:
+        if "_recording-ecg_" in tsv.name:
+            continue
+        label = re.search(r"_recording-(\w+?)_physio", tsv.name).group(1)
+        meta = json.loads(side.read_text("utf-8"))
+        found[label] = (meta["PhysioType"], meta.get("RecordedEye"), meta["Columns"])
+        _, table = _physio(tsv)
+        assert list(table.columns) == meta["Columns"]
+    assert found == expected
+    notes = " ".join(result.data[0].notes)
+    if "ScreenX" in labels:
+        assert "'gaze_x' also reads as the right eye's x_coordinate" in notes
+    if labels[:2] == ("left_x", "right_x"):
+        assert "the left eye has only one gaze coordinate" in notes
+
+
+def test_cli_exports_with_data_and_names_the_files(pilots, tmp_path, capsys):
+    """`trialdeck export --recording FILE --with-data --line-freq 60` exits 0 and names the
+    BrainVision and physio files it wrote.
+
+    Source: the CLI's documented output (docs/analysis.md); mne.io.read_raw_brainvision reads
+    the named header.
+    """
+    import mne
+
+    from runner.cli import main
+
+    folder = find_session_folders([pilots])[0]
+    xdf = _recording(tmp_path / "rec.xdf", folder)
+    out = tmp_path / "bids"
+    args = ["export", str(folder), "--out", str(out), "--recording", str(xdf), "--with-data"]
+    assert main([*args, "--line-freq", "60"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    (vhdr,) = [ln.split(": ", 1)[1] for ln in lines if ln.startswith("EEG (BrainVision): ")]
+    raw = mne.io.read_raw_brainvision(vhdr, verbose=False)
+    assert raw.ch_names == list(EEG_LABELS)
+    physio = [ln for ln in lines if ln.startswith("Physio: ")]
+    assert len(physio) == 2 and all(Path(ln.split(": ", 1)[1]).is_file() for ln in physio)
+    assert main([*args, "--datatype", "beh", "--force"]) == 2
 
 
 @pytest.fixture(scope="module")
