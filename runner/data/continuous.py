@@ -89,6 +89,8 @@ DEFAULT_EEG_UNIT = "microvolts"
 # Channel types of an XDF header mapped onto MNE's; anything else is "misc".
 MNE_TYPES = {"eeg": "eeg", "eog": "eog", "ecg": "ecg", "emg": "emg", "misc": "misc", "stim": "stim"}
 VOLTAGE_TYPES = frozenset({"eeg", "eog", "ecg", "emg"})
+# mne-bids warns that the raw data carry no events: by design, trialdeck writes the events.
+NO_EVENTS_WARNING = "No events found or provided"
 # Written precision of physio samples: 9 significant digits keep a float32 exactly, 17 a double.
 FLOAT32_FORMAT = "%.9g"
 FLOAT64_FORMAT = "%.17g"
@@ -291,7 +293,9 @@ def write_eeg(
         raise StorageError(
             f"cannot write the EEG data under {out}: {exc.strerror or exc}."
         ) from None
-    notes.extend(f"mne-bids: {w.message}" for w in caught)
+    notes.extend(
+        f"mne-bids: {w.message}" for w in caught if not str(w.message).startswith(NO_EVENTS_WARNING)
+    )
     # mne-bids names the maker of the file format's originator ("Brain Products" for
     # BrainVision), not of the amplifier, which the XDF header does not give here.
     sidecar = path.copy().update(suffix=DATA_DATATYPE, extension=".json").fpath

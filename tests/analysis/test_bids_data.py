@@ -481,6 +481,34 @@ def test_cli_exports_with_data_and_names_the_files(pilots, tmp_path, capsys):
     assert main([*args, "--datatype", "beh", "--force"]) == 2
 
 
+def test_official_validator_passes_the_dataset_with_data(pilots, tmp_path, capsys):
+    """The official bids-validator finds no error in an export with data and copied stimuli
+    (runs where the validator is installed: BIDS_VALIDATOR=path or bids-validator on PATH).
+
+    Source: bids-validator (the BIDS project's validator); its exit code is 0 without errors.
+    """
+    import os
+    import shutil
+    import subprocess
+
+    from runner.cli import main
+
+    tool = os.environ.get("BIDS_VALIDATOR") or shutil.which("bids-validator")
+    if not tool:
+        pytest.skip("bids-validator is not installed (set BIDS_VALIDATOR to its path)")
+    folders = find_session_folders([pilots])[:2]
+    args = ["export", *map(str, folders), "--out", str(tmp_path / "bids"), "--with-data"]
+    for i, folder in enumerate(folders):
+        args += ["--recording", str(_recording(tmp_path / f"rec{i}.xdf", folder))]
+    assert main([*args, "--line-freq", "50", "--copy-stimuli"]) == 0
+    capsys.readouterr()
+    done = subprocess.run(
+        [tool, str(tmp_path / "bids")], capture_output=True, text=True, timeout=600, check=False
+    )
+    assert done.returncode == 0, done.stdout[-3000:]
+    assert "[ERR]" not in done.stdout
+
+
 @pytest.fixture(scope="module")
 def bids_schema():
     return schema.load_schema()
