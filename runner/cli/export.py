@@ -145,12 +145,17 @@ def run(args: argparse.Namespace) -> int:
             print(f"  note: this session ended as {s.status!r}; its last rows may lack a duration.")
     if len(result.events) > listed:
         print(f"... and {len(result.events) - listed} more events files under {args.out}.")
-    for written in result.data:
-        for path in written.eeg:
-            if path.suffix == ".vhdr":
-                print(f"EEG (BrainVision): {path}")
-        for tsv, _side in written.physio:
-            print(f"Physio: {tsv}")
+    for i, written in enumerate(result.data):
+        if i < MAX_LISTED:
+            for path in written.eeg:
+                if path.suffix == ".vhdr":
+                    print(f"EEG (BrainVision): {path}")
+            for tsv, _side in written.physio:
+                print(f"Physio: {tsv}")
         for note in written.notes:
             print(f"  note: {note}")
+    if len(result.data) > MAX_LISTED:
+        print(
+            f"... and the data of {len(result.data) - MAX_LISTED} more session(s) under {args.out}."
+        )
     return EXIT_OK

@@ -289,6 +289,9 @@ def test_mne_bids_reads_the_dataset_with_our_event_codes(exported):
     raw, event_id = read_raw_bids(path, return_event_dict=True, verbose=False)
     events = pd.read_csv(result.events[0][0], sep="\t", na_values="n/a", keep_default_na=False)
     assert list(events.columns[:4]) == ["onset", "duration", "trial_type", "value"]
+    assert "sample" not in events.columns  # a column mne-bids writes; this file is trialdeck's
+    sidecar = json.loads(result.events[0][1].read_text("utf-8"))
+    assert sidecar["StimulusPresentation"]["SoftwareName"] == "trialdeck"
     assert list(raw.annotations.description) == list(events["trial_type"])
     np.testing.assert_allclose(raw.annotations.onset, events["onset"], atol=1e-6)
     _, ids = mne.events_from_annotations(raw, event_id=event_id, verbose=False)
