@@ -62,6 +62,7 @@ def _recording(
     eeg_gap: bool = False,
     ecg_streams: int = 1,
     eye_labels: tuple[str, ...] = ("left_x", "left_y", "left_pupil_diameter"),
+    eeg_unit: str | None = "microvolts",
 ) -> Path:
     """An XDF file: the session's markers, chunk-stamped EEG, an eye tracker on another clock
     (with a blink), and ECG, each with channel descriptions in its header."""
@@ -91,7 +92,9 @@ def _recording(
         FixtureStream(
             2, "depot-eeg", "EEG", "float32", EEG_SRATE, stamps, eeg, source_id="amp-01",
             clock_offsets=[(first, 0.0), (true_times[-1], 0.0)],
-            desc_xml=_channels_xml([(c, "microvolts", "EEG") for c in EEG_LABELS]),
+            desc_xml=""
+            if eeg_unit is None
+            else _channels_xml([(c, eeg_unit, "EEG") for c in EEG_LABELS]),
         )
     )  # fmt: skip
     eye_first = first + EYE_LATE_S - EYE_OFFSET_S  # on the eye tracker's clock
@@ -394,6 +397,31 @@ def test_refusals_name_the_stream_or_option(pilots, tmp_path, capsys):
         export_sessions([folder], tmp_path / "f", with_data=DataOptions())
     assert main(["export", str(folder), "--out", str(tmp_path / "g"), "--line-freq", "50"]) == 2
     assert "--with-data" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    ("unit", "volts", "names"),
+    [("mV", 1e-3, list(EEG_LABELS)), (None, 1e-6, ["EEG1", "EEG2", "EEG3"])],
+)
+def test_eeg_units_and_names_come_from_the_header_or_defaults(pilots, tmp_path, unit, volts, names):
+    """EEG in millivolts is scaled to volts by the header's unit; a header without channel
+    descriptions gives EEG1.. names in microvolts (the XDF meta-data default for EEG).
+
+    Source: mne.io.read_raw_brainvision as reader (data in volts); pyxdf.load_xdf as reference
+    for the stored samples; XDF meta-data conventions for EEG streams (unit microvolts).
+    """
+    import mne
+
+    folder = find_session_folders([pilots])[0]
+    xdf = _recording(tmp_path / "rec.xdf", folder, eeg_unit=unit)
+    export_sessions([folder], tmp_path / "b", recordings=[xdf], with_data=DataOptions())
+    raw = mne.io.read_raw_brainvision(
+        _one(tmp_path / "b", "*_eeg.vhdr"), preload=True, verbose=False
+    )
+    streams, _ = pyxdf.load_xdf(str(xdf))
+    stored = next(s for s in streams if s["info"]["type"][0] == "EEG")["time_series"]
+    assert raw.ch_names == names
+    np.testing.assert_allclose(raw.get_data().T, stored * volts, rtol=1e-6, atol=1e-12)
 
 
 @pytest.mark.parametrize(
