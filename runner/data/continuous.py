@@ -89,6 +89,11 @@ DEFAULT_EEG_UNIT = "microvolts"
 # Channel types of an XDF header mapped onto MNE's; anything else is "misc".
 MNE_TYPES = {"eeg": "eeg", "eog": "eog", "ecg": "ecg", "emg": "emg", "misc": "misc", "stim": "stim"}
 VOLTAGE_TYPES = frozenset({"eeg", "eog", "ecg", "emg"})
+# BrainVision as mne-bids writes it: float32 microvolts at a 0.1 resolution (exact for values
+# from 1e-7 microvolts on); samples are scaled and written in blocks of this many.
+BV_UNIT = "µV"
+BV_RESOLUTION = 0.1
+BV_BLOCK_SAMPLES = 100_000
 # mne-bids warns that the raw data carry no events: by design, trialdeck writes the events.
 NO_EVENTS_WARNING = "No events found or provided"
 # Physio samples are written as the shortest text that reads back to the same value (float32 as
@@ -248,28 +253,35 @@ def write_eeg(
     line_freq: float | None,
     notes: list[str],
 ) -> list[Path]:
-    """Write the EEG stream as BrainVision with mne-bids (``write_raw_bids``).
+    """Write the EEG stream as BrainVision into the dataset with mne-bids (``write_raw_bids``).
 
-    The data are an ``mne.io.RawArray`` whose first sample is time zero of the events and whose
-    rate is the stream's dejittered rate, so sample ``i`` lies at ``i / SamplingFrequency``
-    seconds on the events' time axis. Voltages are converted to volts from the header's units
-    (microvolts when it gives none); mne-bids writes them as float32 microvolts. The raw data
-    carry no annotations, so mne-bids writes no events file. Its warnings are added to
-    ``notes``.
+    The samples are written once, in blocks, as a BrainVision file set in a temporary folder
+    (float32 microvolts at a 0.1 resolution, pybv's and mne-bids' defaults; the header by pybv);
+    mne-bids then reads its header (``mne.io.read_raw_brainvision``, no samples loaded) and
+    copies it into the dataset with the ``_eeg.json``, ``_channels.tsv`` and scans entries.
+    Handing mne-bids the samples in memory instead would convert them to float64 three times
+    (about 8 GB for an hour of 64 channels at 1 kHz). Its first sample is time zero of the
+    events and its rate is the stream's dejittered rate, so sample ``i`` lies at
+    ``i / SamplingFrequency`` seconds on the events' time axis. Voltages are converted from the
+    header's units (microvolts when it gives none). The raw data carry no annotations, so
+    mne-bids writes no events file. Its warnings, and pybv's, are added to ``notes``.
 
     Returns
     -------
     list of Path
         Every file mne-bids wrote or updated.
     """
+    import shutil
+
     import mne
     from mne_bids import BIDSPath, write_raw_bids
+    from pybv import write_brainvision
 
     names, types, scales = _eeg_channels(signal)
-    info = mne.create_info(names, signal.sfreq, ch_types=types, verbose=False)
-    volts = np.multiply(signal.data, scales, dtype=np.float64)  # one float64 copy
-    raw = mne.io.RawArray(volts.T, info, first_samp=0, verbose=False)
-    raw.info["line_freq"] = line_freq
+    voltage = np.asarray([ch in VOLTAGE_TYPES for ch in types])
+    # Per channel: stored value -> the number written (microvolts / resolution, or as is).
+    factors = np.where(voltage, scales * 1e6, 1.0) / BV_RESOLUTION
+    units = [BV_UNIT if v else NA for v in voltage]
     path = BIDSPath(
         subject=labels.participant,
         session=labels.session,
@@ -278,23 +290,40 @@ def write_eeg(
         suffix=DATA_DATATYPE,
         root=out,
     )
+    temp = out / f".trialdeck-eeg-{labels.participant}-{labels.session}"
     before = _files(out, labels)
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
-            write_raw_bids(
-                raw,
-                path,
-                allow_preload=True,
-                format="BrainVision",
+            shutil.rmtree(temp, ignore_errors=True)
+            temp.mkdir(parents=True)
+            # pybv writes the header files (and a one-sample .eeg, replaced next).
+            write_brainvision(
+                data=(signal.data[:1].astype(np.float64) * scales).T,
+                sfreq=signal.sfreq,
+                ch_names=names,
+                fname_base=path.basename,
+                folder_out=temp,
+                resolution=BV_RESOLUTION,
+                unit=units,
+                fmt="binary_float32",
+                meas_date=None,
                 overwrite=True,
-                readme=False,
-                verbose=False,
             )
+            with open(temp / f"{path.basename}.eeg", "wb") as fh:
+                for start in range(0, len(signal.data), BV_BLOCK_SAMPLES):
+                    block = signal.data[start : start + BV_BLOCK_SAMPLES]
+                    np.multiply(block, factors, dtype=np.float64).astype("<f4").tofile(fh)
+            raw = mne.io.read_raw_brainvision(temp / f"{path.basename}.vhdr", verbose=False)
+            raw.set_channel_types(dict(zip(names, types, strict=True)), verbose=False)
+            raw.info["line_freq"] = line_freq
+            write_raw_bids(raw, path, overwrite=True, readme=False, verbose=False)
     except OSError as exc:
         raise StorageError(
             f"cannot write the EEG data under {out}: {exc.strerror or exc}."
         ) from None
+    finally:
+        shutil.rmtree(temp, ignore_errors=True)
     notes.extend(
         f"mne-bids: {w.message}" for w in caught if not str(w.message).startswith(NO_EVENTS_WARNING)
     )
