@@ -63,6 +63,7 @@ def _recording(
     ecg_streams: int = 1,
     eye_labels: tuple[str, ...] = ("left_x", "left_y", "left_pupil_diameter"),
     eeg_unit: str | None = "microvolts",
+    eeg_types: tuple[str, ...] = ("EEG",) * len(EEG_LABELS),
 ) -> Path:
     """An XDF file: the session's markers, chunk-stamped EEG, an eye tracker on another clock
     (with a blink), and ECG, each with channel descriptions in its header."""
@@ -94,7 +95,9 @@ def _recording(
             clock_offsets=[(first, 0.0), (true_times[-1], 0.0)],
             desc_xml=""
             if eeg_unit is None
-            else _channels_xml([(c, eeg_unit, "EEG") for c in EEG_LABELS]),
+            else _channels_xml(
+                [(c, eeg_unit, k) for c, k in zip(EEG_LABELS, eeg_types, strict=True)]
+            ),
         )
     )  # fmt: skip
     eye_first = first + EYE_LATE_S - EYE_OFFSET_S  # on the eye tracker's clock
@@ -422,6 +425,35 @@ def test_eeg_units_and_names_come_from_the_header_or_defaults(pilots, tmp_path, 
     stored = next(s for s in streams if s["info"]["type"][0] == "EEG")["time_series"]
     assert raw.ch_names == names
     np.testing.assert_allclose(raw.get_data().T, stored * volts, rtol=1e-6, atol=1e-12)
+
+
+def test_channel_types_come_from_the_header(pilots, tmp_path):
+    """EOG and MISC channels keep their types in the BrainVision file and channels.tsv, and a
+    MISC channel keeps its stored values (no voltage scaling).
+
+    Source: mne.io.read_raw_brainvision and mne_bids.read_raw_bids as readers; pyxdf.load_xdf as
+    reference for the stored samples.
+    """
+    from mne_bids import BIDSPath, read_raw_bids
+
+    folder = find_session_folders([pilots])[0]
+    xdf = _recording(tmp_path / "rec.xdf", folder, eeg_types=("EEG", "EOG", "MISC"))
+    out = tmp_path / "b"
+    result = export_sessions([folder], out, recordings=[xdf], with_data=DataOptions())
+    session = result.sessions[0]
+    path = BIDSPath(
+        subject=session.participant, session=session.session, task="minitest",
+        datatype="eeg", suffix="eeg", extension=".vhdr", root=out,
+    )  # fmt: skip
+    raw = read_raw_bids(path, verbose=False)
+    assert raw.get_channel_types() == ["eeg", "eog", "misc"]
+    channels = pd.read_csv(_one(out, "*_channels.tsv"), sep="\t")
+    assert list(channels["type"]) == ["EEG", "EOG", "MISC"]
+    streams, _ = pyxdf.load_xdf(str(xdf))
+    stored = next(s for s in streams if s["info"]["type"][0] == "EEG")["time_series"]
+    data = raw.get_data()
+    np.testing.assert_allclose(data[:2].T, stored[:, :2] * 1e-6, rtol=1e-6, atol=1e-12)
+    np.testing.assert_allclose(data[2], stored[:, 2], rtol=1e-6, atol=1e-6)
 
 
 @pytest.mark.parametrize(
