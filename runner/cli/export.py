@@ -11,9 +11,11 @@ from runner.cli.args import (
     add_pooling,
     check_photodiode,
     exclusion_lines,
+    positive_float,
     read_physio,
 )
-from runner.data.export import DATATYPES, DEFAULT_DATATYPE, export_sessions
+from runner.data.continuous import EYES
+from runner.data.export import DATATYPES, DEFAULT_DATATYPE, DataOptions, export_sessions
 from runner.errors import EXIT_OK, UsageError
 
 MAX_LISTED = 10  # events files named one by one; more are counted
@@ -53,8 +55,39 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--datatype",
         choices=DATATYPES,
-        default=DEFAULT_DATATYPE,
-        help=f"BIDS datatype folder of the events files (default {DEFAULT_DATATYPE})",
+        default=None,
+        help=f"BIDS datatype folder of the events files (default {DEFAULT_DATATYPE}; eeg with "
+        "--with-data)",
+    )
+    parser.add_argument(
+        "--with-data",
+        action="store_true",
+        help="with --recording: also write the EEG stream as BrainVision and the eye-tracking "
+        "and ECG streams as physio files, on the events' time axis",
+    )
+    parser.add_argument(
+        "--line-freq",
+        type=positive_float,
+        metavar="HZ",
+        help="with --with-data: the mains frequency where the EEG was recorded (50 or 60), for "
+        "the EEG sidecar's PowerLineFrequency (default n/a: not known)",
+    )
+    parser.add_argument(
+        "--eye-stream",
+        metavar="STREAM",
+        help="with --with-data: the eye-tracking stream (name, source_id or type) when several "
+        "streams of an eye-tracking type are recorded",
+    )
+    parser.add_argument(
+        "--ecg-stream",
+        metavar="STREAM",
+        help="with --with-data: the ECG stream (name, source_id or type) when several are recorded",
+    )
+    parser.add_argument(
+        "--recorded-eye",
+        choices=EYES,
+        help="with --with-data: the eye the eye tracker's channels record when their labels "
+        "do not say",
     )
     parser.add_argument(
         "--copy-stimuli",
@@ -89,6 +122,27 @@ def run(args: argparse.Namespace) -> int:
         raise UsageError(
             "--sample needs --recording FILE.xdf (the EEG stream is in the recording)."
         )
+    data = None
+    if args.with_data:
+        data = DataOptions(
+            line_freq=args.line_freq,
+            eye_stream=args.eye_stream,
+            ecg_stream=args.ecg_stream,
+            recorded_eye=args.recorded_eye,
+        )
+    else:
+        given = [
+            o
+            for o, v in (
+                ("--line-freq", args.line_freq),
+                ("--eye-stream", args.eye_stream),
+                ("--ecg-stream", args.ecg_stream),
+                ("--recorded-eye", args.recorded_eye),
+            )
+            if v is not None
+        ]
+        if given:
+            raise UsageError(f"{', '.join(given)} only apply with --with-data.")
     result = export_sessions(
         args.sessions,
         args.out,
@@ -101,6 +155,7 @@ def run(args: argparse.Namespace) -> int:
         photodiode=args.photodiode,
         pool_unlike=args.pool_unlike,
         physio=read_physio(args.physio),
+        with_data=data,
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     if args.copy_stimuli:
@@ -123,4 +178,17 @@ def run(args: argparse.Namespace) -> int:
             print(f"  note: this session ended as {s.status!r}; its last rows may lack a duration.")
     if len(result.events) > listed:
         print(f"... and {len(result.events) - listed} more events files under {args.out}.")
+    for i, written in enumerate(result.data):
+        if i < MAX_LISTED:
+            for path in written.eeg:
+                if path.suffix == ".vhdr":
+                    print(f"EEG (BrainVision): {path}")
+            for tsv, _side in written.physio:
+                print(f"Physio: {tsv}")
+        for note in written.notes:
+            print(f"  note: {note}")
+    if len(result.data) > MAX_LISTED:
+        print(
+            f"... and the data of {len(result.data) - MAX_LISTED} more session(s) under {args.out}."
+        )
     return EXIT_OK

@@ -367,11 +367,18 @@ def write_bids_events(
     return tsv, side
 
 
-def dataset_files(out: Path, sessions: Sequence[ExportSession]) -> list[Path]:
-    """A minimal dataset_description.json (only when absent) and a .bidsignore for trials.csv."""
+def dataset_files(
+    out: Path,
+    sessions: Sequence[ExportSession],
+    *,
+    replace_description: bool = False,
+    bids_version: str = BIDS_VERSION,
+) -> list[Path]:
+    """A minimal dataset_description.json (only when absent, or to ``replace_description`` one
+    written during this export) and a .bidsignore for trials.csv."""
     written: list[Path] = []
     desc = out / BIDS_DATASET_DESCRIPTION
-    if not desc.exists():
+    if replace_description or not desc.exists():
         studies = sorted({s.study for s in sessions})
         version = str(sessions[0].header.get("version", "")) if sessions else ""
         _write_text(
@@ -379,7 +386,7 @@ def dataset_files(out: Path, sessions: Sequence[ExportSession]) -> list[Path]:
             json.dumps(
                 {
                     "Name": ", ".join(studies) or "trialdeck export",
-                    "BIDSVersion": BIDS_VERSION,
+                    "BIDSVersion": bids_version,
                     "DatasetType": "raw",
                     "GeneratedBy": [{"Name": SOFTWARE_NAME, "Version": version}],
                 },

@@ -6,7 +6,9 @@ header (design principle 1); nothing is read from the per-session ``trials.csv``
 * :mod:`runner.data.sessions`: reading sessions (:class:`ExportSession`);
 * :mod:`runner.data.pooled`: the pooled ``trials.csv`` and the sessions table;
 * :mod:`runner.data.bids_rows` and :mod:`runner.data.bids`: BIDS events rows, files, sidecars;
-* :mod:`runner.data.origins`: time zero of the events (session start or first EEG sample).
+* :mod:`runner.data.origins`: time zero of the events (session start or first EEG sample);
+* :mod:`runner.data.continuous`: with ``with_data``, the recording's EEG (BrainVision) and its
+  eye-tracking and ECG streams (physio files) on the same time axis.
 
 Both outputs are documented column by column in docs/analysis.md. This module runs the export
 (:func:`export_sessions`) and re-exports the parts' public names.
@@ -22,7 +24,9 @@ import pandas as pd
 
 from runner.contract.outputs import prepare_output_folder, replace_file
 from runner.data.bids import (
+    BIDS_DATASET_DESCRIPTION,
     BIDS_IGNORE,
+    BIDS_VERSION,
     DATATYPES,
     DEFAULT_DATATYPE,
     POOLED_NAME,
@@ -43,6 +47,12 @@ from runner.data.bids_rows import (
     EventRow,
     EventRows,
     event_rows,
+)
+from runner.data.continuous import (
+    DATA_BIDS_VERSION,
+    DATA_DATATYPE,
+    ContinuousResult,
+    DataOptions,
 )
 from runner.data.exclusions import EXCLUSIONS_NAME, judge_sessions
 from runner.data.origins import Origin, recording_origin, session_origin
@@ -85,6 +95,8 @@ __all__ = [
     "ROW_KINDS",
     "SUMMARY_EVENTS",
     "TRIAL_COLUMNS",
+    "ContinuousResult",
+    "DataOptions",
     "EventRow",
     "EventRows",
     "ExportResult",
@@ -126,6 +138,8 @@ class ExportResult:
     other_files: list[Path] = field(default_factory=list)
     exclusions: Path | None = None
     excluded: dict[tuple[str, str], list[str]] = field(default_factory=dict)
+    # With ``with_data``: what was written from each session's recording, in session order.
+    data: list[ContinuousResult] = field(default_factory=list)
 
 
 def export_sessions(
@@ -133,7 +147,7 @@ def export_sessions(
     out: str | Path,
     *,
     task: str | None = None,
-    datatype: str = DEFAULT_DATATYPE,
+    datatype: str | None = None,
     recordings: Sequence[str | Path] | None = None,
     allow_truncated: bool = False,
     workers: int | None = None,
@@ -142,6 +156,7 @@ def export_sessions(
     photodiode: str | None = None,
     pool_unlike: bool = False,
     physio: pd.DataFrame | None = None,
+    with_data: DataOptions | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -154,8 +169,9 @@ def export_sessions(
         kept, and ``trials.csv`` is added to ``.bidsignore``).
     task : str, optional
         BIDS task label; default the study id with non-alphanumerics removed.
-    datatype : {"beh", "eeg"}
-        The datatype folder of the events files.
+    datatype : {"beh", "eeg"}, optional
+        The datatype folder of the events files; default ``beh``, or ``eeg`` with ``with_data``
+        (which needs ``eeg``).
     recordings : sequence of path, optional
         One XDF recording per session, in session order: onsets then count from the first
         sample of its EEG stream. Default: from the session start.
@@ -167,7 +183,8 @@ def export_sessions(
         :data:`runner.data.sessions.PARALLEL_MIN_SESSIONS`
         sessions on, else none (everything in this process). Workers are forked, so only where
         the platform forks and this process runs no other thread; otherwise everything runs
-        here. The files are the same either way.
+        here. The files are the same either way. With ``with_data`` everything runs here, one
+        session at a time (mne-bids updates the dataset's shared participants.tsv).
     sample : bool
         With recordings: add the ``sample`` column (nearest EEG sample of each onset).
     photodiode : str, optional
@@ -187,6 +204,10 @@ def export_sessions(
     the summary's) leave excluded sessions out of the pooled ``trials.csv``; their BIDS events
     are written all the same (each session's own record), and ``exclusions.csv`` lists every
     judged session with each rule's value.
+    with_data : DataOptions, optional
+        Also write each recording's EEG as BrainVision and its eye-tracking and ECG streams as
+        physio files (:func:`runner.data.continuous.write_continuous`), on the events' time
+        axis; needs a recording per session.
 
     Returns
     -------
@@ -195,7 +216,8 @@ def export_sessions(
     Raises
     ------
     UsageError
-        Bad labels or datatype, or a recording count that differs from the session count.
+        Bad labels or datatype, a recording count that differs from the session count, or
+        ``with_data`` without recordings or with the ``beh`` datatype.
     UnlikeSessionsError
         The sessions differ in speed, mode or protocol and ``pool_unlike`` is False.
     OutputRefused
@@ -204,6 +226,17 @@ def export_sessions(
     InputFileError, JournalError, RecordingError, StorageError
         See :func:`load_sessions`, :func:`recording_origin` and the writers.
     """
+    if datatype is None:
+        datatype = DATA_DATATYPE if with_data is not None else DEFAULT_DATATYPE
+    if with_data is not None and datatype != DATA_DATATYPE:
+        raise UsageError(
+            f"with the recording's data the events go into the {DATA_DATATYPE!r} folder next to "
+            f"the EEG; drop --datatype {datatype} or give --datatype {DATA_DATATYPE}."
+        )
+    if with_data is not None and not recordings:
+        raise UsageError(
+            "--with-data writes the recording's streams: give one --recording FILE.xdf per session."
+        )
     if datatype not in DATATYPES:
         raise UsageError(
             f"the datatype {datatype!r} is not supported; use one of {', '.join(DATATYPES)}."
@@ -233,9 +266,13 @@ def export_sessions(
     if not pool_unlike:
         check_alike([header_of(f) for f in folders], verb="export")
     target = prepare_output_folder(out, EXPORT_COMMAND, force=force, what="export")
+    # mne-bids writes a placeholder dataset_description.json when none exists; ours replaces it
+    # unless the folder already had one (which is kept, as without data).
+    had_description = (out / BIDS_DATASET_DESCRIPTION).exists()
     sessions: list[ExportSession] = []
     origins: list[Origin] = []
     events: list[tuple[Path, Path]] = []
+    data: list[ContinuousResult] = []
     seen: dict[tuple[str, str, str], Path] = {}
     jobs = [
         _Job(
@@ -247,30 +284,39 @@ def export_sessions(
             allow_truncated,
             sample,
             photodiode,
+            with_data,
         )
         for i, folder in enumerate(folders)
     ]
-    workers = worker_count(len(jobs), workers)
+    workers = 1 if with_data is not None else worker_count(len(jobs), workers)
     # Each session is read, its events written, then its journal lines let go, so memory stays
     # at one session's worth per process however many are exported.
-    for session, origin, written in _run_jobs(jobs, workers, seen):
+    for session, origin, written, continuous in _run_jobs(jobs, workers, seen):
         sessions.append(session)
         origins.append(origin)
         events.append(written)
+        if continuous is not None:
+            data.append(continuous)
     judged = judge_sessions(sessions, physio=physio)
     kept = [s for s in sessions if judged.keeps(s)]
     pooled = write_pooled_trials(kept, out / POOLED_NAME)
     exclusions: Path | None = None
     try:
-        others = dataset_files(out, sessions)
+        others = dataset_files(
+            out,
+            sessions,
+            replace_description=not had_description,
+            bids_version=BIDS_VERSION if with_data is None else DATA_BIDS_VERSION,
+        )
         if any(s.protocol.exclusions is not None for s in sessions):
             exclusions = out / EXCLUSIONS_NAME
             write_table(judged.table, exclusions)
             others += _bids_ignore(out, EXCLUSIONS_NAME)
     except OSError as exc:
         raise StorageError(f"cannot write the dataset files in {out}: {exc.strerror}.") from None
+    data_files = list(dict.fromkeys(p for d in data for p in d.files()))  # participants.tsv
     done = [pooled, *([exclusions] if exclusions else []), *others]
-    target.finish([*done, *(p for pair in events for p in pair)])
+    target.finish([*done, *(p for pair in events for p in pair), *data_files])
     return ExportResult(
         pooled=pooled,
         events=events,
@@ -280,6 +326,7 @@ def export_sessions(
         other_files=others,
         exclusions=exclusions,
         excluded=judged.reasons(),
+        data=data,
     )
 
 
@@ -306,6 +353,7 @@ class _Job:
     allow_truncated: bool = False
     sample: bool = False
     photodiode: str | None = None
+    data: DataOptions | None = None
 
 
 def _load(job: _Job) -> ExportSession:
@@ -313,8 +361,38 @@ def _load(job: _Job) -> ExportSession:
     return load_session(job.folder, decode=None if job.recording is not None else EXPORT_EVENTS)
 
 
-def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
-    if job.recording is not None:
+_Done = tuple[ExportSession, Origin, tuple[Path, Path], ContinuousResult | None]
+
+
+def _write(job: _Job, session: ExportSession) -> _Done:
+    label = task_label(session.study, job.task)
+    continuous = None
+    if job.recording is not None and job.data is not None:
+        from runner.data.continuous import SessionLabels, write_continuous
+        from runner.recording import read_recording
+
+        # Read once: the same loaded file gives the origin and the samples.
+        rec = read_recording(job.recording, allow_truncated=job.allow_truncated)
+        origin = recording_origin(
+            session,
+            job.recording,
+            allow_truncated=job.allow_truncated,
+            sample=job.sample,
+            photodiode=job.photodiode,
+            loaded=rec,
+        )
+        screen = session.protocol.screen
+        # The data first: the events files written next are trialdeck's, whatever mne-bids did.
+        continuous = write_continuous(
+            rec,
+            origin,
+            job.out,
+            SessionLabels(session.participant, session.session, label),
+            options=job.data,
+            screen_known=screen.width_cm is not None and screen.distance_cm is not None,
+        )
+        del rec
+    elif job.recording is not None:
         origin = recording_origin(
             session,
             job.recording,
@@ -324,20 +402,19 @@ def _write(job: _Job, session: ExportSession) -> tuple[ExportSession, Origin, tu
         )
     else:
         origin = session_origin(session)
-    label = task_label(session.study, job.task)
     written = write_bids_events(session, job.out, task=label, datatype=job.datatype, origin=origin)
     session.release()
-    return session, origin.without_samples(), written
+    return session, origin.without_samples(), written, continuous
 
 
-def _export_one(job: _Job) -> tuple[ExportSession, Origin, tuple[Path, Path]]:
+def _export_one(job: _Job) -> _Done:
     """Read one session and write its events files (in a worker process)."""
     return _write(job, _load(job))
 
 
 def _run_jobs(
     jobs: list[_Job], workers: int, seen: dict[tuple[str, str, str], Path]
-) -> Iterator[tuple[ExportSession, Origin, tuple[Path, Path]]]:
+) -> Iterator[_Done]:
     """Export each session, in order; two sessions with the same labels are refused."""
     if workers <= 1:
         for job in jobs:

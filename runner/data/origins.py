@@ -152,13 +152,15 @@ def recording_origin(
     allow_truncated: bool = False,
     sample: bool = False,
     photodiode: str | None = None,
+    loaded: Recording | None = None,
 ) -> Origin:
     """Origin at the first sample of the recording's first EEG-type stream.
 
     The recording's marker stream is matched with the journal's markers
     (:func:`runner.recording.check_recording`); their median time difference maps presenter
     times onto the recorder's clock. Time zero on the presenter clock is then the EEG stream's
-    first timestamp (after pyxdf's clock synchronisation) minus that offset.
+    first timestamp (after pyxdf's clock synchronisation) minus that offset. ``loaded`` is the
+    recording already read from ``recording`` (then it is not read again).
 
     With ``sample`` the origin also gives each event's nearest EEG sample (the ``sample``
     column); with ``photodiode`` (``STREAM[:CHANNEL]``, as for ``audit --photodiode``) the light
@@ -177,8 +179,11 @@ def recording_origin(
     from runner.recording.photodiode import recording_values
 
     # Timestamps of every stream, sample values of the marker streams (and the photodiode) only.
-    values = recording_values(photodiode)
-    rec = read_recording(recording, allow_truncated=allow_truncated, values=values)
+    # export --with-data reads the file once (every channel) for the origin and the samples.
+    rec = loaded
+    if rec is None:
+        values = recording_values(photodiode)
+        rec = read_recording(recording, allow_truncated=allow_truncated, values=values)
     eeg = [
         s
         for s in sorted(rec.streams, key=lambda x: x.stream_id)
@@ -246,6 +251,7 @@ def recording_origin(
         details={
             "recording": str(recording),
             "eeg_stream": stream.name,
+            "eeg_stream_id": stream.stream_id,
             "eeg_source_id": stream.source_id,
             "eeg_first_timestamp": first,
             "eeg_first_timestamp_raw": raw_first,

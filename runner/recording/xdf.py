@@ -54,6 +54,9 @@ class RecordedStream:
     # What the stream's header says about the session that sent it (trialdeck's marker streams
     # carry study, participant, session, protocol_hash and mode in desc/session); empty otherwise.
     identity: dict[str, str] = field(default_factory=dict)
+    # The header's desc/channels/channel entries (label, unit, type, ... as text), one per
+    # channel in order; empty when the header describes no channels.
+    channels: tuple[dict[str, str], ...] = ()
 
     @property
     def created_at_value(self) -> float:
@@ -199,6 +202,26 @@ def stream_identity(info: dict[str, Any]) -> dict[str, str]:
     return out
 
 
+def stream_channels(info: dict[str, Any]) -> tuple[dict[str, str], ...]:
+    """The ``desc/channels/channel`` entries of a stream header as read by pyxdf (text values)."""
+    desc = info.get("desc")
+    node = desc[0] if isinstance(desc, list) and desc else None
+    channels = node.get("channels") if isinstance(node, dict) else None
+    entry = channels[0] if isinstance(channels, list) and channels else None
+    items = entry.get("channel") if isinstance(entry, dict) else None
+    if not isinstance(items, list):
+        return ()
+    out: list[dict[str, str]] = []
+    for item in items:
+        fields: dict[str, str] = {}
+        if isinstance(item, dict):
+            for key, value in item.items():
+                if isinstance(value, list) and value and isinstance(value[0], str):
+                    fields[key] = value[0]
+        out.append(fields)
+    return tuple(out)
+
+
 def _first(info: dict[str, Any], key: str, default: str = "") -> str:
     value = info.get(key)
     if isinstance(value, list) and value:
@@ -312,6 +335,7 @@ def read_recording(
                 clock_offset_count=len(offsets),
                 has_footer=entry.footer is not None,
                 identity=stream_identity(info),
+                channels=stream_channels(info),
             )
         )
         if not len(offsets) and len(ts):
