@@ -1,55 +1,578 @@
-"""The summary's report.html text: tables shown in seconds and percent, and the report body.
+"""The summary's report.html, written like the results section of a paper.
 
-Split from :mod:`runner.data.summary`, which computes the tables and writes the files.
+Split from :mod:`runner.data.summary`, which computes the tables and writes the files. This module
+turns those tables into text: who was included, numbered tables with 95% intervals, each figure
+with a one-sentence reading generated from its numbers, a methods paragraph with citations, and
+the cautions a pilot report owes its reader. :mod:`runner.data.report` lays the page out.
+
+Sections whose inputs are missing (no physiology recorded, too few stimuli for a score) say so in
+one sentence instead of showing an empty heading.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
+from runner import __version__
 from runner.data import report
-from runner.data.stats import DifficultyResult
+from runner.data.report import MISSING_CELL, Image, Paragraph, Section, Table
+from runner.data.stats import DEFAULT_CONFIDENCE, DifficultyResult, mean_ci
 
 OUTCOMES = ("correct", "wrong", "unsure", "unanswered")
 # Floor and ceiling: a level where almost nobody (or almost everybody) is correct tells little
 # about difficulty. 5% and 95% are common pilot thresholds (common practice, no published source).
 FLOOR_SHARE = 0.05
 CEILING_SHARE = 0.95
+#: Heading over the report when no study name is known, and its kicker otherwise.
+DEFAULT_KICKER = "Pilot summary"
+
+# Irregular plurals of the nouns the report counts.
+_PLURALS = {"stimulus": "stimuli", "is": "are", "was": "were"}
+_MINUS = "\u2212"
+# A level between the first and last is called a peak (or low) in a figure's reading when it lies
+# beyond both ends by more than this share of the whole range of values.
+PEAK_SHARE_OF_RANGE = 0.1
 
 
-def _seconds(ms: float) -> str:
-    return "–" if not math.isfinite(ms) else f"{ms / 1000:.2f}"
+# --------------------------------------------------------------------------------------------
+# Words and numbers
+# --------------------------------------------------------------------------------------------
 
 
-def _percent(share: float) -> str:
-    return "–" if not math.isfinite(share) else f"{100 * share:.0f}%"
+def plural(word: str, n: int) -> str:
+    """``word`` in the singular for n == 1, else its plural (``trial`` -> ``trials``)."""
+    if n == 1:
+        return word
+    return _PLURALS.get(word, word + "s")
 
 
-def _display_levels(table: pd.DataFrame, by: str) -> pd.DataFrame:
+def count(n: int, word: str) -> str:
+    """``n`` and the noun in the right number: ``1 trial``, ``2 trials``, ``0 stimuli``."""
+    return f"{n} {plural(word, n)}"
+
+
+def number(value: float, digits: int) -> str:
+    """A number at ``digits`` decimals with a true minus sign; the missing marker when NaN."""
+    if value is None or not math.isfinite(value):
+        return MISSING_CELL
+    text = f"{value:.{digits}f}"
+    if text.lstrip("-").strip("0.") == "":  # -0.00 shows as 0.00
+        text = text.lstrip("-")
+    return text.replace("-", _MINUS)
+
+
+def percent(share: float) -> str:
+    """A share as a whole percentage (``0.953`` -> ``95%``)."""
+    return MISSING_CELL if not math.isfinite(share) else f"{100 * share:.0f}%"
+
+
+def interval(low: float, high: float, digits: int, *, scale: float = 1.0) -> str:
+    """A 95% interval as ``[low, high]``, at the same precision as its estimate."""
+    if not (math.isfinite(low) and math.isfinite(high)):
+        return MISSING_CELL
+    return f"[{number(low * scale, digits)}, {number(high * scale, digits)}]"
+
+
+def with_interval(estimate: str, low: float, high: float, digits: int, scale: float = 1.0) -> str:
+    """An estimate followed by its interval, or the estimate alone when there is none."""
+    if estimate == MISSING_CELL:
+        return MISSING_CELL
+    shown = interval(low, high, digits, scale=scale)
+    return estimate if shown == MISSING_CELL else f"{estimate} {shown}"
+
+
+def wilson_interval(
+    successes: int, n: int, confidence: float = DEFAULT_CONFIDENCE
+) -> tuple[float, float]:
+    """Wilson score interval of a proportion (Wilson 1927), NaN for n == 0.
+
+    Unlike the normal-approximation interval it stays inside [0, 1] and does not collapse to a
+    point at 0% or 100%, which pilots with few trials per level often reach.
+    """
+    if n <= 0:
+        return (math.nan, math.nan)
+    from scipy.special import ndtri  # the standard normal quantile
+
+    z = float(ndtri((1.0 + confidence) / 2.0))
+    p = successes / n
+    denom = 1.0 + z * z / n
+    centre = (p + z * z / (2 * n)) / denom
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
+    return (max(0.0, centre - half), min(1.0, centre + half))
+
+
+def _level_name(factor: str, level: Any) -> str:
+    return f"{factor} {level}"
+
+
+@dataclass(frozen=True)
+class _Point:
+    label: str
+    value: float
+    shown: str
+
+
+def trend_sentence(
+    subject: str, points: Sequence[tuple[str, float, str]], *, suffix: str = ""
+) -> str:
+    """One sentence on how a quantity changes over ordered levels, from the numbers shown.
+
+    ``points`` are ``(level label, value, value as shown)``; levels without a value are skipped.
+    The sentence compares the first and last level and names a peak or trough in between when
+    it differs from both ends as shown: "Accuracy fell from 95% at nodes 20 to 40% at nodes 140."
+    """
+    pts = [_Point(lbl, v, s) for lbl, v, s in points if v is not None and math.isfinite(v)]
+    if not pts:
+        return ""
+    tail = f" {suffix}" if suffix else ""
+    if len(pts) == 1:
+        return f"{subject} was {pts[0].shown} at {pts[0].label}{tail}."
+    first, last = pts[0], pts[-1]
+    if first.shown == last.shown:
+        core = f"{subject} was {first.shown} at both {first.label} and {last.label}"
+    else:
+        verb = "rose" if last.value > first.value else "fell"
+        core = (
+            f"{subject} {verb} from {first.shown} at {first.label} to {last.shown} at {last.label}"
+        )
+    inner = pts[1:-1]
+    extras = []
+    if inner:
+        # A level in between is named when it lies beyond both ends by more than a tenth of the
+        # whole range, so that a wobble does not read as a peak.
+        values = [p.value for p in pts]
+        margin = PEAK_SHARE_OF_RANGE * (max(values) - min(values))
+        top = max(inner, key=lambda p: p.value)
+        low = min(inner, key=lambda p: p.value)
+        if top.value - max(first.value, last.value) > margin and top.shown not in (
+            first.shown,
+            last.shown,
+        ):
+            extras.append(f"a peak of {top.shown} at {top.label}")
+        if min(first.value, last.value) - low.value > margin and low.shown not in (
+            first.shown,
+            last.shown,
+        ):
+            extras.append(f"a low of {low.shown} at {low.label}")
+    if extras:
+        core += ", with " + " and ".join(extras)
+    return core + tail + "."
+
+
+# --------------------------------------------------------------------------------------------
+# Tables
+# --------------------------------------------------------------------------------------------
+
+TABLE_NOTE = (
+    "Shares are over scored trials. Brackets: 95% intervals (Wilson score interval for shares; "
+    "t interval of the mean over trials for response times and ratings). RT = response time of "
+    f"trials answered with a number. {MISSING_CELL} = no data."
+)
+
+
+def _rating_ci(row: pd.Series, rating_points: int) -> tuple[float, float, float]:
+    counts = [int(row.get(f"rating_{k}", 0) or 0) for k in range(1, rating_points + 1)]
+    values = np.repeat(np.arange(1, rating_points + 1, dtype=float), counts)
+    return mean_ci(values)
+
+
+def display_levels(table: pd.DataFrame, by: str, rating_points: int) -> pd.DataFrame:
     """A compact view of a level or participant table for the report (counts stay in the CSV)."""
     view = pd.DataFrame({by: table[by].astype(str)})
-    if "n_sessions" in table.columns:
+    if "n_sessions" in table.columns and (table["n_sessions"] != 1).any():
         view["sessions"] = table["n_sessions"]
     view["trials"] = table["n_trials"]
-    for name in OUTCOMES:
-        view[name] = table[f"share_{name}"].map(_percent)
-    view["RT n"] = table["rt_n"]
-    view["RT mean (s)"] = table["rt_mean_ms"].map(_seconds)
-    view["95% CI (s)"] = [
-        "–"
-        if not (math.isfinite(lo) and math.isfinite(hi))
-        else f"{lo / 1000:.2f} – {hi / 1000:.2f}"
-        for lo, hi in zip(table["rt_ci_low_ms"], table["rt_ci_high_ms"], strict=True)
+    correct = []
+    for n_ok, n_scored, share in zip(
+        table["n_correct"], table["n_scored"], table["share_correct"], strict=True
+    ):
+        low, high = wilson_interval(int(n_ok), int(n_scored))
+        correct.append(with_interval(percent(share), low, high, 0, scale=100))
+    view["correct, %\n[95% CI]"] = correct
+    for name in OUTCOMES[1:]:
+        view[f"{name},\n%"] = table[f"share_{name}"].map(lambda v: number(100 * v, 0))
+    view["RT mean, s\n[95% CI]"] = [
+        with_interval(number(m / 1000, 2), lo / 1000, hi / 1000, 2)
+        for m, lo, hi in zip(
+            table["rt_mean_ms"], table["rt_ci_low_ms"], table["rt_ci_high_ms"], strict=True
+        )
     ]
-    view["RT median (s)"] = table["rt_median_ms"].map(_seconds)
-    view["rating mean"] = table["rating_mean"].map(
-        lambda v: "–" if not math.isfinite(v) else f"{v:.1f}"
-    )
+    view["RT median,\ns"] = [number(v / 1000, 2) for v in table["rt_median_ms"]]
+    ratings = []
+    for _, row in table.iterrows():
+        mean, low, high = _rating_ci(row, rating_points)
+        ratings.append(with_interval(number(mean, 1), low, high, 1))
+    view["rating\n[95% CI]"] = ratings
     return view
+
+
+# --------------------------------------------------------------------------------------------
+# Citations
+# --------------------------------------------------------------------------------------------
+
+#: Full references, keyed by the short citation the text uses.
+REFERENCES = {
+    "Harman, 1976": "Harman, H. H. (1976). Modern factor analysis (3rd ed.). University of "
+    "Chicago Press.",
+    "Student, 1908": "Student. (1908). The probable error of a mean. Biometrika, 6(1), 1-25.",
+    "Wilson, 1927": "Wilson, E. B. (1927). Probable inference, the law of succession, and "
+    "statistical inference. Journal of the American Statistical Association, 22(158), 209-212.",
+    "McDonald, 1999": "McDonald, R. P. (1999). Test theory: A unified treatment. Lawrence Erlbaum.",
+    "Hurvich & Tsai, 1989": "Hurvich, C. M., & Tsai, C.-L. (1989). Regression and time series "
+    "model selection in small samples. Biometrika, 76(2), 297-307.",
+    "Simonsohn, 2018": "Simonsohn, U. (2018). Two lines: A valid alternative to the invalid "
+    "testing of U-shaped relationships with quadratic regressions. Advances in Methods and "
+    "Practices in Psychological Science, 1(4), 538-555.",
+    "Mathôt et al., 2018": "Mathôt, S., Fabius, J., Van Heusden, E., & Van der Stigchel, S. "
+    "(2018). Safe and sensible preprocessing and baseline correction of pupil-size data. "
+    "Behavior Research Methods, 50(1), 94-106.",
+    "Task Force, 1996": "Task Force of the European Society of Cardiology and the North American "
+    "Society of Pacing and Electrophysiology. (1996). Heart rate variability: Standards of "
+    "measurement, physiological interpretation, and clinical use. Circulation, 93(5), "
+    "1043-1065.",
+}
+
+
+class _Citations:
+    """Collects the works a report cites, so only those are listed under References."""
+
+    def __init__(self) -> None:
+        self.keys: list[str] = []
+
+    def __call__(self, *keys: str) -> str:
+        for key in keys:
+            if key not in REFERENCES:
+                raise KeyError(key)
+            if key not in self.keys:
+                self.keys.append(key)
+        return "(" + "; ".join(keys) + ")"
+
+    def references(self) -> list[str]:
+        return sorted((REFERENCES[k] for k in self.keys), key=str.lower)
+
+
+# --------------------------------------------------------------------------------------------
+# The report
+# --------------------------------------------------------------------------------------------
+
+
+def _study_names(facts: dict[str, Any], data: pd.DataFrame) -> list[str]:
+    names = [str(s.get("study")) for s in facts.get("sessions", []) if s.get("study")]
+    if not names and "study" in data.columns:
+        names = [str(v) for v in data["study"].dropna()]
+    return sorted(set(names))
+
+
+def _dates(facts: dict[str, Any]) -> tuple[str, str] | None:
+    days = sorted(
+        str(s.get("started_wall"))[:10]
+        for s in facts.get("sessions", [])
+        if s.get("started_wall") and len(str(s.get("started_wall"))) >= 10
+    )
+    return (days[0], days[-1]) if days else None
+
+
+def _participants_section(
+    data: pd.DataFrame,
+    facts: dict[str, Any],
+    *,
+    include_practice: bool,
+    n_practice: int,
+) -> Section:
+    n_sess, n_people = facts["n_sessions"], facts["n_participants"]
+    n_trials = len(data)
+    kind = "trial" if include_practice else "main-part trial"
+    lead = (
+        f"The analysis includes {count(n_trials, kind)} from {count(n_sess, 'session')} of "
+        f"{count(n_people, 'participant')}."
+    )
+    n_pilot = facts["n_pilot"]
+    if n_pilot:
+        lead += (
+            f" {'All' if n_pilot == n_sess else n_pilot} of the {count(n_sess, 'session')} "
+            f"{plural('was', n_pilot)} run by the simulated participant (pilot mode), so "
+            "their numbers test the procedure, not people."
+            if n_sess > 1
+            else " The session was run by the simulated participant (pilot mode), so its "
+            "numbers test the procedure, not people."
+        )
+    blocks: list[report.Block] = [Paragraph(lead, "lead")]
+    who = []
+    if include_practice:
+        who.append(f"All {count(n_trials, 'trial')} are summarised, practice included.")
+    elif n_practice:
+        who.append(
+            f"Main-part trials only ({count(n_trials, 'trial')}); {count(n_practice, 'practice trial')}"
+            f" {plural('is', n_practice)} left out because practice is for learning the task, "
+            "not for measuring it."
+        )
+    else:
+        who.append(f"Main-part trials only ({count(n_trials, 'trial')}); there was no practice.")
+    aborted = facts["n_aborted"]
+    who.append(
+        "Every session ran to its end."
+        if not aborted
+        else f"{count(aborted, 'session')} ended early; the trials completed before the end "
+        "are included."
+    )
+    who.append("No participant or session was excluded.")
+    timed = facts["n_timed_out"]
+    if timed:
+        who.append(f"{count(timed, 'trial')} ({percent(timed / n_trials)}) reached the time limit.")
+    blocks.append(Paragraph(" ".join(who)))
+    dur, tps = facts["duration_s"], facts["trials_per_session"]
+    length = "Sessions lasted " + (
+        f"{number(dur['min'] / 60, 1)} to {number(dur['max'] / 60, 1)} min (median "
+        f"{number(dur['median'] / 60, 1)} min)"
+        if math.isfinite(dur["median"])
+        else "an unrecorded time"
+    )
+    if math.isfinite(tps["median"]):
+        length += (
+            f" and held {tps['min']:.0f} to {tps['max']:.0f} completed trials (median "
+            f"{tps['median']:.0f})."
+            if tps["min"] != tps["max"]
+            else f" and held {count(int(tps['min']), 'completed trial')} each."
+        )
+    else:
+        length += "."
+    sim = facts.get("sim_rt_error_ms")
+    if sim and sim.get("n"):
+        length += (
+            f" The simulated participant's measured response times differed from the intended "
+            f"ones by a median of {number(sim['median'], 2)} ms (largest "
+            f"{number(sim['max_abs'], 2)} ms) over {count(sim['n'], 'answered trial')}."
+        )
+    blocks.append(Paragraph(length))
+    return Section("Participants and data", blocks=blocks, anchor="participants")
+
+
+def _factor_section(
+    factor: str,
+    table: pd.DataFrame,
+    figs: Sequence[Path],
+    *,
+    rating_points: int,
+    facts: dict[str, Any],
+) -> Section:
+    levels = list(table[factor])
+    names = [_level_name(factor, lvl) for lvl in levels]
+    acc = trend_sentence(
+        "Accuracy",
+        [(n, s, percent(s)) for n, s in zip(names, table["share_correct"], strict=True)],
+    )
+    rt = trend_sentence(
+        "Mean response time",
+        [
+            (n, m / 1000, number(m / 1000, 2) + " s")
+            for n, m in zip(names, table["rt_mean_ms"], strict=True)
+        ],
+    )
+    rating = trend_sentence(
+        "The mean rating",
+        [(n, m, number(m, 1)) for n, m in zip(names, table["rating_mean"], strict=True)],
+        suffix=f"on the 1 to {rating_points} scale",
+    )
+    readings = [acc, rt, rating]
+    captions = [
+        f"Answers per {factor} level, as shares of scored trials.",
+        f"Response time per {factor} level: mean with 95% t interval (bars) and median (open "
+        "circle).",
+        f"Ratings per {factor} level: number of trials at each point of the scale, shaded by "
+        "share.",
+    ]
+    alts = [
+        f"Stacked bars of correct, wrong, unsure and unanswered shares for each {factor} level.",
+        f"Mean response time with 95% interval and median for each {factor} level.",
+        f"Grid of rating counts, one row per {factor} level, one column per scale point.",
+    ]
+    intro = [s for s in (acc, rt) if s]
+    limits = [
+        f"{_level_name(i['factor'], i['level'])} is at {kind} ({percent(i['share_correct'])} "
+        f"correct of {count(i['n_scored'], 'scored trial')})"
+        for kind in ("floor", "ceiling")
+        for i in facts[kind]
+        if i["factor"] == factor
+    ]
+    if limits:
+        intro.append("; ".join(limits).capitalize() + ".")
+    blocks: list[report.Block] = [Paragraph(" ".join(intro))] if intro else []
+    blocks.append(
+        Table(
+            f"Answers, response times and ratings by {factor}.",
+            display_levels(table, factor, rating_points),
+            note=TABLE_NOTE,
+        )
+    )
+    for path, caption, alt, reading in zip(figs[:3], captions, alts, readings, strict=False):
+        blocks.append(Image(path.read_bytes(), alt=alt, caption=caption, reading=reading))
+    return Section(f"By {factor}", blocks=blocks)
+
+
+def _difficulty_figure(
+    factor: str, levels: Sequence[Any], path: Path, difficulty: DifficultyResult
+) -> Image:
+    scored = difficulty.scores.dropna(subset=["score"])
+    means = scored.groupby(factor, sort=False)["score"].mean()
+    points = []
+    for lvl in levels:
+        mean = float(means.get(lvl, math.nan))
+        points.append((_level_name(factor, lvl), mean, number(mean, 2)))
+    return Image(
+        path.read_bytes(),
+        alt=f"Difficulty score of each stimulus, grouped by {factor} level.",
+        caption=f"Difficulty score of each stimulus by {factor} level; the horizontal line "
+        "marks the level mean.",
+        reading=trend_sentence("The mean difficulty score", points),
+    )
+
+
+def _floor_ceiling_section(facts: dict[str, Any]) -> Section:
+    def limits(kind: str) -> str:
+        items = facts[kind]
+        if not items:
+            return "none"
+        return "; ".join(
+            f"{_level_name(i['factor'], i['level'])} ({percent(i['share_correct'])} of "
+            f"{count(i['n_scored'], 'scored trial')})"
+            for i in items
+        )
+
+    floor = f"floor (under {100 * FLOOR_SHARE:.0f}% correct)"
+    ceiling = f"ceiling (over {100 * CEILING_SHARE:.0f}% correct)"
+    if not facts["floor"] and not facts["ceiling"]:
+        text = f"No level was at {floor} or at {ceiling}."
+    else:
+        text = (
+            f"Levels at {floor}: {limits('floor')}. Levels at {ceiling}: {limits('ceiling')}. "
+            "A level at floor or ceiling tells little about difficulty; consider changing its "
+            "stimuli before the main study."
+        )
+    return Section("Floor and ceiling", blocks=[Paragraph(text)])
+
+
+_VARIABLE_NAMES = {
+    "error_share": "error share",
+    "rt_ms": "mean response time",
+    "rating": "mean rating",
+}
+
+
+def _difficulty_section(
+    difficulty: DifficultyResult,
+    cite: _Citations,
+    figures: Sequence[tuple[str, Sequence[Any], Path]] = (),
+) -> Section:
+    if not difficulty.available:
+        return Section("Difficulty score", blocks=[Paragraph(difficulty.reason)])
+    load = difficulty.loadings
+    scored = difficulty.scores.dropna(subset=["score"])
+    strongest = load.abs().idxmax()
+    text = (
+        f"One difficulty score was computed for each of {count(len(scored), 'stimulus')}. "
+        f"The {_VARIABLE_NAMES.get(str(strongest), str(strongest))} loaded most strongly on it "
+        f"({number(float(load[strongest]), 2)})."
+    )
+    if (load < 0).any():
+        text += " Some loadings are negative, so these measures disagree; read the score with care."
+    blocks: list[report.Block] = [Paragraph(text)]
+    blocks.extend(Paragraph(note) for note in difficulty.notes)
+    blocks.append(
+        Table(
+            "Loadings of the per-stimulus measures on the difficulty factor.",
+            pd.DataFrame(
+                {
+                    "measure": [_VARIABLE_NAMES.get(str(k), str(k)) for k in load.index],
+                    "loading": [number(float(v), 2) for v in load],
+                    "communality": [
+                        number(float(difficulty.communalities.get(k, math.nan)), 2)
+                        for k in load.index
+                    ],
+                }
+            ),
+            note="Principal axis factoring of the z-standardised measures, one factor "
+            + cite("Harman, 1976")
+            + ".",
+        )
+    )
+    for factor, levels, path in figures:
+        blocks.append(_difficulty_figure(factor, levels, path, difficulty))
+    hardest = scored.sort_values("score", ascending=False).head(5)
+    blocks.append(
+        Table(
+            f"The {count(len(hardest), 'hardest stimulus') if len(hardest) == 1 else str(len(hardest)) + ' hardest'} "
+            f"of {count(len(scored), 'stimulus')}.",
+            pd.DataFrame(
+                {
+                    "stimulus": hardest.index.astype(str),
+                    "score": [number(float(v), 2) for v in hardest["score"]],
+                    "error share": hardest["error_share"].map(percent),
+                    "RT mean, s": [number(float(v) / 1000, 2) for v in hardest["rt_ms"]],
+                    "rating mean": [number(float(v), 1) for v in hardest["rating"]],
+                    "trials": hardest["n_trials"],
+                }
+            ),
+            note="Higher scores mean harder stimuli (z units).",
+        )
+    )
+    return Section("Difficulty score", blocks=blocks, anchor="difficulty")
+
+
+def _methods_section(
+    difficulty: DifficultyResult, *, include_practice: bool, cite: _Citations
+) -> Section:
+    parts = [
+        "Outcome shares are counted over scored trials (correct, wrong, unsure, unanswered); "
+        "trials without an expected answer are counted apart."
+        + ("" if include_practice else " Practice trials are not analysed."),
+        "The 95% interval of a share is the Wilson score interval " + cite("Wilson, 1927") + ".",
+        "Response times are those of trials answered with a number (correct or wrong). The 95% "
+        "interval of a mean response time or rating is the Student t interval "
+        + cite("Student, 1908")
+        + " over trials pooled across participants; it ignores that trials of one person are "
+        "related and is therefore narrower than a by-participant interval.",
+    ]
+    if difficulty.available:
+        parts.append(
+            "The difficulty score is the first factor of a principal axis factoring "
+            + cite("Harman, 1976")
+            + " of three per-stimulus measures (error share, mean response time and mean "
+            "rating, each averaged over participants and z-standardised); scores are "
+            "regression-method factor scores, signed so that a higher score means a harder "
+            "stimulus when all loadings are positive."
+        )
+    return Section("Methods", blocks=[Paragraph(" ".join(parts))], anchor="methods")
+
+
+def _cautions_section(facts: dict[str, Any]) -> Section:
+    notes = [
+        "This is a pilot summary: intervals describe these trials, not a population, and the "
+        "numbers guide the design of the main study rather than answer its questions.",
+        "Physiological measures, wherever this tool reports them, are research measures of "
+        "responses to the task; they are not diagnoses and say nothing about anyone's health.",
+        "Long sessions tire participants: check the session lengths above against the breaks "
+        "you planned and the duration your ethics board approved. Participants may stop at any "
+        "time.",
+    ]
+    if facts["n_pilot"]:
+        notes.insert(
+            1,
+            "Sessions run by the simulated participant produce answers from a model, so their "
+            "accuracy and response times say how the procedure runs, not how hard the task is "
+            "for people.",
+        )
+    return Section(
+        "Interpretation and cautions",
+        blocks=[Paragraph(n, "note") for n in notes],
+        anchor="cautions",
+    )
 
 
 def build_report(
@@ -65,133 +588,75 @@ def build_report(
     n_practice: int,
     rating_points: int,
 ) -> str:
-    scope = (
-        f"All {len(data)} trials, practice included."
-        if include_practice
-        else f"Main-part trials only ({len(data)} trials); {n_practice} practice trials are left "
-        "out because practice is for learning the task, not for measuring it."
-    )
-    dur = facts["duration_s"]
-    tps = facts["trials_per_session"]
-    overview = [
-        scope,
-        f"{facts['n_sessions']} sessions from {facts['n_participants']} participants "
-        f"({facts['n_aborted']} aborted, {facts['n_pilot']} simulated pilots).",
-        "Session length: "
-        + (
-            f"{dur['min'] / 60:.1f} to {dur['max'] / 60:.1f} min (median {dur['median'] / 60:.1f})"
-            if math.isfinite(dur["median"])
-            else "not recorded"
-        )
-        + "; trials per session: "
-        + (
-            f"{tps['min']:.0f} to {tps['max']:.0f} (median {tps['median']:.0f})."
-            if math.isfinite(tps["median"])
-            else "not recorded."
-        ),
-        f"{facts['n_timed_out']} trials timed out.",
-    ]
-    if "sim_rt_error_ms" in facts and facts["sim_rt_error_ms"]["n"]:
-        sim = facts["sim_rt_error_ms"]
-        overview.append(
-            f"Simulated participant: measured minus intended response time over {sim['n']} "
-            f"answered trials, median {sim['median']:.2f} ms, largest {sim['max_abs']:.2f} ms."
-        )
-    overview.append(
-        "Long sessions tire participants: check the lengths above against the breaks you planned "
-        "and the duration your ethics board approved. Participants may stop at any time."
-    )
+    """The report.html text of a summary (see :mod:`runner.data.summary` for the inputs).
 
-    def limits(kind: str) -> str:
-        items = facts[kind]
-        if not items:
-            return "none"
-        return "; ".join(
-            f"{i['factor']} = {i['level']} ({100 * i['share_correct']:.0f}% of {i['n_scored']})"
-            for i in items
+    The heading is the study name the sessions' protocols give, with ``title`` above it; when
+    no study is named, ``title`` is the heading.
+    """
+    cite = _Citations()
+    studies = _study_names(facts, data)
+    heading = " / ".join(studies) if studies else title
+    kicker = title if studies else ""
+    by = [
+        count(facts["n_participants"], "participant"),
+        count(facts["n_sessions"], "session"),
+        count(len(data), "trial" if include_practice else "main-part trial"),
+    ]
+    dates = _dates(facts)
+    if dates:
+        by.append(
+            f"recorded {dates[0]}" if dates[0] == dates[1] else f"recorded {dates[0]} to {dates[1]}"
+        )
+    if facts["n_pilot"]:
+        by.append(
+            "simulated participant"
+            if facts["n_pilot"] == facts["n_sessions"]
+            else f"{count(facts['n_pilot'], 'simulated session')}"
         )
 
-    checks = [
-        f"Floor (under {100 * FLOOR_SHARE:.0f}% correct): {limits('floor')}.",
-        f"Ceiling (over {100 * CEILING_SHARE:.0f}% correct): {limits('ceiling')}.",
-        "A level at floor or ceiling tells little about difficulty; consider changing its "
-        "stimuli before the main study.",
+    results = [
+        _factor_section(
+            factor,
+            table,
+            figures.get(factor, []),
+            rating_points=rating_points,
+            facts=facts,
+        )
+        for factor, table in level_tables.items()
     ]
-    method = [
-        "Shares are counted over scored trials (correct, wrong, unsure, unanswered); trials "
-        "without an expected answer are counted apart.",
-        "Response times use trials answered with a number (correct or wrong). The 95% interval "
-        "is the t-based interval of the mean over those trials, pooled across participants, so "
-        "it ignores that trials of one person are related and is narrower than a "
-        "by-participant interval.",
+    results.append(_floor_ceiling_section(facts))
+    difficulty_figures = [
+        (factor, list(table[factor]), figures[factor][3])
+        for factor, table in level_tables.items()
+        if len(figures.get(factor, [])) > 3 and factor in difficulty.scores.columns
     ]
+    results.append(_difficulty_section(difficulty, cite, difficulty_figures))
     sections = [
-        report.Section("Overview", paragraphs=overview),
-        report.Section("Floor and ceiling", paragraphs=checks),
+        _participants_section(
+            data, facts, include_practice=include_practice, n_practice=n_practice
+        ),
+        Section("Results", subsections=results, anchor="results"),
+        _methods_section(difficulty, include_practice=include_practice, cite=cite),
+        _cautions_section(facts),
+        Section(
+            "Appendix: participants",
+            blocks=[
+                Table(
+                    "Answers, response times and ratings by participant.",
+                    display_levels(people, "participant", rating_points),
+                    note=TABLE_NOTE,
+                )
+            ],
+            anchor="appendix-participants",
+        ),
     ]
-    for factor, table in level_tables.items():
-        figs = figures[factor]
-        captions = [
-            f"Answers per {factor} level, as shares of scored trials.",
-            f"Response time per {factor} level: mean with 95% t interval (bars), median (open "
-            "circle).",
-            f"Ratings per {factor} level: count of trials at each point, shaded by share.",
-            f"Difficulty score of each stimulus, by {factor} level; the line marks the level mean.",
-        ]
-        sections.append(
-            report.Section(
-                f"By {factor}",
-                tables=[(f"Per {factor} level", _display_levels(table, factor))],
-                figures=[
-                    report.Image(path.read_bytes(), alt=caption, caption=caption)
-                    for path, caption in zip(figs, captions, strict=False)
-                ],
-            )
-        )
-    sections.append(
-        report.Section(
-            "By participant",
-            tables=[("Per participant", _display_levels(people, "participant"))],
-        )
+    return report.render_report(
+        heading,
+        sections,
+        kicker=kicker,
+        byline=" · ".join(by),
+        references=cite.references(),
+        numbered=True,
+        footer=f"Written by trialdeck {__version__} from the session journals. The tables are "
+        "also in the CSV files next to this report.",
     )
-    if difficulty.available:
-        load = difficulty.loadings
-        diff_par = [
-            "Difficulty score: the first principal-axis factor of error share, mean response "
-            "time and mean rating, each computed per stimulus over participants and "
-            "z-standardised; regression-method factor scores. Loadings are signed so their sum is "
-            "positive: with all loadings positive, a higher score means a harder stimulus.",
-            "Loadings: "
-            + ", ".join(f"{name} {value:.2f}" for name, value in load.items())
-            + ". Communalities: "
-            + ", ".join(f"{name} {value:.2f}" for name, value in difficulty.communalities.items())
-            + ".",
-            *difficulty.notes,
-        ]
-        if (load < 0).any():
-            diff_par.append(
-                "Some loadings are negative, so these measures disagree; read the score with care."
-            )
-        scored = difficulty.scores.dropna(subset=["score"])
-        hardest = scored.sort_values("score", ascending=False).head(5)
-        hard_view = pd.DataFrame(
-            {
-                "stimulus": hardest.index.astype(str),
-                "score": hardest["score"].map(lambda v: f"{v:.2f}"),
-                "error share": hardest["error_share"].map(_percent),
-                "RT mean (s)": hardest["rt_ms"].map(_seconds),
-                "rating mean": hardest["rating"].map(lambda v: f"{v:.1f}"),
-                "trials": hardest["n_trials"],
-            }
-        )
-        sections.append(
-            report.Section(
-                "Difficulty score",
-                paragraphs=diff_par,
-                tables=[(f"Five hardest of {len(scored)} stimuli", hard_view)],
-            )
-        )
-    else:
-        sections.append(report.Section("Difficulty score", paragraphs=[difficulty.reason]))
-    sections.append(report.Section("Method", paragraphs=method))
-    return report.render_report(title, sections)
