@@ -194,7 +194,7 @@ def display_levels(table: pd.DataFrame, by: str, rating_points: int) -> pd.DataF
         table["n_correct"], table["n_scored"], table["share_correct"], strict=True
     ):
         low, high = wilson_interval(int(n_ok), int(n_scored))
-        correct.append(with_interval(percent(share), low, high, 0, scale=100))
+        correct.append(with_interval(number(100 * share, 0), low, high, 0, scale=100))
     view["correct, %\n[95% CI]"] = correct
     for name in OUTCOMES[1:]:
         view[f"{name},\n%"] = table[f"share_{name}"].map(lambda v: number(100 * v, 0))
@@ -295,13 +295,16 @@ def _participants_section(
     )
     n_pilot = facts["n_pilot"]
     if n_pilot:
+        if n_sess == 1:
+            which = "The session was"
+        elif n_pilot == n_sess:
+            which = f"All {n_sess} sessions were"
+        else:
+            which = f"{n_pilot} of the {n_sess} sessions {plural('was', n_pilot)}"
         lead += (
-            f" {'All' if n_pilot == n_sess else n_pilot} of the {count(n_sess, 'session')} "
-            f"{plural('was', n_pilot)} run by the simulated participant (pilot mode), so "
-            "their numbers test the procedure, not people."
-            if n_sess > 1
-            else " The session was run by the simulated participant (pilot mode), so its "
-            "numbers test the procedure, not people."
+            f" {which} run by the simulated participant (pilot mode), so "
+            f"{'its' if n_pilot == 1 else 'their'} numbers test the "
+            "procedure, not people."
         )
     blocks: list[report.Block] = [Paragraph(lead, "lead")]
     who = []
@@ -309,12 +312,11 @@ def _participants_section(
         who.append(f"All {count(n_trials, 'trial')} are summarised, practice included.")
     elif n_practice:
         who.append(
-            f"Main-part trials only ({count(n_trials, 'trial')}); {count(n_practice, 'practice trial')}"
-            f" {plural('is', n_practice)} left out because practice is for learning the task, "
-            "not for measuring it."
+            f"{count(n_practice, 'practice trial')} {plural('is', n_practice)} left out "
+            "because practice is for learning the task, not for measuring it."
         )
     else:
-        who.append(f"Main-part trials only ({count(n_trials, 'trial')}); there was no practice.")
+        who.append("There was no practice part.")
     aborted = facts["n_aborted"]
     who.append(
         "Every session ran to its end."

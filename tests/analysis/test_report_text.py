@@ -1,0 +1,219 @@
+"""Tests of the report's words and numbers: counts, intervals and the figures' readings."""
+
+from __future__ import annotations
+
+import re
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from statsmodels.stats.proportion import proportion_confint
+from synthetic import make_pool
+
+from runner.data.summary import write_summary
+from runner.data.summary_report import (
+    count,
+    display_levels,
+    number,
+    trend_sentence,
+    wilson_interval,
+)
+
+
+class _Cells(HTMLParser):
+    """The text of every table cell and of the first heading, in document order."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: list[list[list[str]]] = []
+        self.h1 = ""
+        self.kicker = ""
+        self._cell: list[str] | None = None
+        self._in: str = ""
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        if tag == "table":
+            self.tables.append([])
+        elif tag == "tr":
+            self.tables[-1].append([])
+        elif tag in ("td", "th"):
+            self._cell = []
+        elif tag == "h1" or (tag == "p" and ("class", "kicker") in attrs):
+            self._in = tag
+            self._cell = []
+
+    def handle_data(self, data: str) -> None:
+        if self._cell is not None:
+            self._cell.append(data)
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag in ("td", "th") and self._cell is not None:
+            self.tables[-1][-1].append("".join(self._cell))
+            self._cell = None
+        elif tag in ("h1", "p") and self._in == tag and self._cell is not None:
+            if tag == "h1":
+                self.h1 = "".join(self._cell)
+            else:
+                self.kicker = "".join(self._cell)
+            self._in = ""
+            self._cell = None
+
+
+def _cells(html: str) -> _Cells:
+    parser = _Cells()
+    parser.feed(html)
+    return parser
+
+
+def test_count_uses_the_singular_for_one() -> None:
+    """Counts read "1 trial", "2 trials", "1 stimulus", "0 stimuli" (English number agreement).
+
+    Source: English grammar (singular noun after "one"; "stimuli" is the plural of "stimulus").
+    """
+    assert count(1, "trial") == "1 trial"
+    assert count(2, "trial") == "2 trials"
+    assert count(1, "stimulus") == "1 stimulus"
+    assert count(0, "stimulus") == "0 stimuli"
+    assert count(1, "main-part trial") == "1 main-part trial"
+
+
+def test_number_uses_a_true_minus_and_no_negative_zero() -> None:
+    """Negative numbers show U+2212 MINUS SIGN; a value that rounds to zero shows no sign.
+
+    Source: Unicode 15.0, U+2212 MINUS SIGN; round-half-even formatting of Python's format spec.
+    """
+    assert number(-0.731, 2) == "\u22120.73"
+    assert number(-0.001, 2) == "0.00"
+    assert number(1.005, 1) == "1.0"
+    assert number(float("nan"), 2) == "–"
+
+
+@pytest.mark.parametrize(
+    ("successes", "n", "low", "high"),
+    [
+        (81, 263, 0.2553, 0.3662),
+        (15, 148, 0.0624, 0.1605),
+        (0, 20, 0.0, 0.1611),
+        (1, 29, 0.0061, 0.1718),
+    ],
+)
+def test_wilson_interval_matches_published_values(successes, n, low, high) -> None:
+    """The Wilson score interval matches the published worked examples to 4 decimals.
+
+    Source: Newcombe, R. G. (1998). Two-sided confidence intervals for the single proportion:
+    comparison of seven methods. Statistics in Medicine, 17, 857-872, Table I (method 3).
+    """
+    got = wilson_interval(successes, n)
+    assert got == pytest.approx((low, high), abs=5e-5)
+
+
+def test_wilson_interval_matches_statsmodels() -> None:
+    """The Wilson interval agrees with statsmodels' proportion_confint(method="wilson").
+
+    Source: statsmodels.stats.proportion.proportion_confint.
+    """
+    for successes, n in [(0, 1), (1, 1), (3, 7), (40, 41), (500, 1000)]:
+        expected = proportion_confint(successes, n, alpha=0.05, method="wilson")
+        assert wilson_interval(successes, n) == pytest.approx(expected, abs=1e-12)
+
+
+def test_trend_sentence_reads_first_last_and_a_real_peak() -> None:
+    """The reading names the first and last level, and a level beyond both ends by more than a
+    tenth of the range; a wobble is not called a peak.
+
+    Source: the numbers are given in the test; the sentences are the report's documented wording
+    (docs/analysis-summary.md, "The report").
+    """
+    falling = [(f"level {k}", v / 100, f"{v}%") for k, v in enumerate([95, 96, 70, 55, 41, 40], 1)]
+    assert trend_sentence("Accuracy", falling) == (
+        "Accuracy fell from 95% at level 1 to 40% at level 6."
+    )
+    hump = [("load 1", 2.0, "2.0"), ("load 2", 5.0, "5.0"), ("load 3", 2.5, "2.5")]
+    assert trend_sentence("The mean rating", hump) == (
+        "The mean rating rose from 2.0 at load 1 to 2.5 at load 3, with a peak of 5.0 at load 2."
+    )
+    flat = [("a", 0.5, "50%"), ("b", float("nan"), "–"), ("c", 0.501, "50%")]
+    assert trend_sentence("Accuracy", flat) == "Accuracy was 50% at both a and c."
+    assert trend_sentence("Accuracy", [("a", 1.0, "100%")]) == "Accuracy was 100% at a."
+    assert trend_sentence("Accuracy", []) == ""
+
+
+def test_level_table_intervals_match_outside_references(pilot_summary) -> None:
+    """The report's per-level intervals are the Wilson interval of the share correct and the
+    t intervals of the mean response time and mean rating, at the shown precision.
+
+    Source: statsmodels proportion_confint (Wilson) and scipy.stats.t.interval on the same trials.
+    """
+    out, _ = pilot_summary
+    trials, _ = make_pool(3, 30)
+    main = trials[trials["part"] == "main"]
+    levels = pd.read_csv(out / "levels_nodes.csv")
+    tables = _cells((out / "report.html").read_text(encoding="utf-8")).tables
+    by_nodes = tables[0]
+    assert by_nodes[0][0] == "nodes"
+    for row in by_nodes[1:]:
+        level = int(row[0])
+        rec = levels[levels["nodes"] == level].iloc[0]
+        low, high = proportion_confint(rec["n_correct"], rec["n_scored"], method="wilson")
+        assert row[2] == (f"{100 * rec['share_correct']:.0f} [{100 * low:.0f}, {100 * high:.0f}]")
+        at = main[main["nodes"] == level]
+        rt = at.loc[at["outcome"].isin(["correct", "wrong"]), "rt_ms"].dropna() / 1000
+        lo, hi = stats.t.interval(0.95, len(rt) - 1, loc=rt.mean(), scale=stats.sem(rt))
+        assert row[6] == f"{rt.mean():.2f} [{lo:.2f}, {hi:.2f}]"
+        ratings = at["rating"].dropna().astype(float)
+        lo, hi = stats.t.interval(
+            0.95, len(ratings) - 1, loc=ratings.mean(), scale=stats.sem(ratings)
+        )
+        assert row[8] == f"{ratings.mean():.1f} [{lo:.1f}, {hi:.1f}]"
+
+
+def test_display_levels_shows_missing_values_with_the_marker() -> None:
+    """A level with no answered trial shows the missing marker, not "nan", in its RT cells.
+
+    Source: docs/analysis-summary.md (the report's missing-value marker).
+    """
+    table = pd.DataFrame(
+        {
+            "nodes": [20],
+            "n_trials": [2],
+            "n_scored": [2],
+            "n_correct": [0],
+            "share_correct": [0.0],
+            "share_wrong": [0.0],
+            "share_unsure": [0.0],
+            "share_unanswered": [1.0],
+            "rt_mean_ms": [np.nan],
+            "rt_ci_low_ms": [np.nan],
+            "rt_ci_high_ms": [np.nan],
+            "rt_median_ms": [np.nan],
+            **{f"rating_{k}": [0] for k in range(1, 10)},
+        }
+    )
+    view = display_levels(table, "nodes", 9)
+    row = view.iloc[0].tolist()
+    assert row[2] == "0 [0, 66]"
+    assert row[6:] == ["–", "–", "–"]
+
+
+def test_report_of_one_person_uses_the_singular(tmp_path: Path) -> None:
+    """A summary of one participant's one session never writes "1 participants" or "1 trials",
+    and its heading is the study's name with the report title above it.
+
+    Source: English grammar (singular noun after "one").
+    """
+    trials, sessions = make_pool(1, 24)
+    sessions["study"] = "courier-hops"
+    sessions["aborted"] = True
+    write_summary(trials, sessions, tmp_path, factors=["nodes", "density"])
+    html = (tmp_path / "report.html").read_text(encoding="utf-8")
+    text = re.sub(r"<[^>]+>", " ", html)
+    assert re.search(r"\b1 (participants|sessions|trials|stimuli|main-part trials)\b", text) is None
+    assert "1 participant" in text and "1 session" in text
+    assert "The session was run by the simulated participant" in text
+    assert "1 session ended early" in text
+    parsed = _cells(html)
+    assert parsed.h1 == "courier-hops"
+    assert parsed.kicker == "Pilot summary"
