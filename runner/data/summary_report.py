@@ -6,6 +6,7 @@ Split from :mod:`runner.data.summary`, which computes the tables and writes the 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -64,6 +65,7 @@ def build_report(
     include_practice: bool,
     n_practice: int,
     rating_points: int,
+    extra_sections: Sequence[report.Section] = (),
 ) -> str:
     scope = (
         f"All {len(data)} trials, practice included."
@@ -193,5 +195,6 @@ def build_report(
         )
     else:
         sections.append(report.Section("Difficulty score", paragraphs=[difficulty.reason]))
+    sections.extend(extra_sections)
     sections.append(report.Section("Method", paragraphs=method))
     return report.render_report(title, sections)

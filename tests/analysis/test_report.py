@@ -34,7 +34,8 @@ def test_report_has_no_external_references(pilot_summary) -> None:
     html = (out / "report.html").read_text(encoding="utf-8")
     # Base64 text can hold "//" by chance; the data URIs themselves are checked separately.
     text = DATA_URI.sub("data-uri", html)
-    assert text.count("data-uri") == 8
+    # 8 level plots (2 factors x 4) + load curves of response time and accuracy.
+    assert text.count("data-uri") == 10
     assert EXTERNAL.search(text) is None, EXTERNAL.search(text)
 
 
@@ -50,7 +51,7 @@ def test_report_embeds_every_plot(pilot_summary) -> None:
     assert all(src.startswith(prefix) for src in parser.sources)
     embedded = sorted(base64.b64decode(src[len(prefix) :]) for src in parser.sources)
     written = sorted(p.read_bytes() for p in paths if p.suffix == ".png")
-    assert len(written) == 8
+    assert len(written) == 10
     assert embedded == written
 
 
@@ -60,7 +61,8 @@ def test_report_holds_tables_and_sections(pilot_summary) -> None:
     html = (out / "report.html").read_text(encoding="utf-8")
     parser = _Images()
     parser.feed(html)
-    assert parser.tags.count("table") == 4  # two factors, participants, hardest stimuli
+    # two factors, participants, hardest stimuli, best difficulty models
+    assert parser.tags.count("table") == 5
     for heading in ("Overview", "Floor and ceiling", "By nodes", "By density", "Difficulty score"):
         assert f"<h2>{heading}</h2>" in html
     assert "Participants may stop at any time" in html
