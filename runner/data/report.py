@@ -59,6 +59,7 @@ th, td { padding: 0.22rem 0 0.22rem 0.8rem; text-align: right; white-space: nowr
          font-variant-numeric: tabular-nums lining-nums; }
 thead th { font-weight: 600; vertical-align: bottom;
            border-bottom: 1px solid var(--rule); }
+td.text, th.text { text-align: left; }
 td:first-child, th:first-child { text-align: left; padding-left: 0; }
 tbody tr + tr td { border-top: 0.5px solid #ebe7df; }
 .table-note { font-family: "Helvetica Neue", Arial, "Liberation Sans", "DejaVu Sans", sans-serif;
@@ -160,6 +161,8 @@ def png_data_uri(png: bytes) -> str:
 
 
 _ANCHOR = re.compile(r"[^a-z0-9]+")
+_LETTER = re.compile(r"[A-Za-z]")
+_TEXT = ' class="text"'
 
 
 def _anchor(section: Section, used: set[str]) -> str:
@@ -183,18 +186,35 @@ class _Renderer:
         esc = html.escape
         self.n_tables += 1
         frame = table.frame
-        # A line break in a column name breaks the header cell there.
-        head = "".join(
-            '<th scope="col">' + "<br>".join(esc(part) for part in str(c).split("\n")) + "</th>"
-            for c in frame.columns
-        )
-        rows = []
-        for values in frame.itertuples(index=False, name=None):
-            cells = [
+        body = [
+            [
                 MISSING_CELL if v is None or (isinstance(v, float) and v != v) else str(v)
                 for v in values
             ]
-            rows.append("<tr>" + "".join(f"<td>{esc(c)}</td>" for c in cells) + "</tr>")
+            for values in frame.itertuples(index=False, name=None)
+        ]
+        # Words sit on the left, numbers on the right: a column is text when most cells hold a
+        # letter. The first column is always on the left.
+        text_cols = [
+            k == 0 or 2 * sum(bool(_LETTER.search(row[k])) for row in body) > len(body)
+            for k in range(len(frame.columns))
+        ]
+        # A line break in a column name breaks the header cell there.
+        head = "".join(
+            f'<th scope="col"{_TEXT if text else ""}>'
+            + "<br>".join(esc(part) for part in str(c).split("\n"))
+            + "</th>"
+            for c, text in zip(frame.columns, text_cols, strict=True)
+        )
+        rows = [
+            "<tr>"
+            + "".join(
+                f"<td{_TEXT if text else ''}>{esc(c)}</td>"
+                for c, text in zip(cells, text_cols, strict=True)
+            )
+            + "</tr>"
+            for cells in body
+        ]
         self.parts.append(
             '<div class="table-block"><div class="scroll"><table>'
             f'<caption><span class="label">Table {self.n_tables}.</span> '

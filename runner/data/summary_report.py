@@ -12,10 +12,10 @@ one sentence instead of showing an empty heading.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -24,6 +24,9 @@ from runner import __version__
 from runner.data import report
 from runner.data.report import MISSING_CELL, Image, Paragraph, Section, Table
 from runner.data.stats import DEFAULT_CONFIDENCE, DifficultyResult, mean_ci
+
+if TYPE_CHECKING:
+    from runner.data.summary_models import SummaryModels
 
 OUTCOMES = ("correct", "wrong", "unsure", "unanswered")
 # Floor and ceiling: a level where almost nobody (or almost everybody) is correct tells little
@@ -230,6 +233,14 @@ REFERENCES = {
     "Simonsohn, 2018": "Simonsohn, U. (2018). Two lines: A valid alternative to the invalid "
     "testing of U-shaped relationships with quadratic regressions. Advances in Methods and "
     "Practices in Psychological Science, 1(4), 538-555.",
+    "Burnham & Anderson, 2002": "Burnham, K. P., & Anderson, D. R. (2002). Model selection and "
+    "multimodel inference: A practical information-theoretic approach (2nd ed.). Springer.",
+    "MacKinnon & White, 1985": "MacKinnon, J. G., & White, H. (1985). Some "
+    "heteroskedasticity-consistent covariance matrix estimators with improved finite sample "
+    "properties. Journal of Econometrics, 29(3), 305-325.",
+    "Seabold & Perktold, 2010": "Seabold, S., & Perktold, J. (2010). Statsmodels: Econometric "
+    "and statistical modeling with Python. Proceedings of the 9th Python in Science Conference, "
+    "92-96.",
     "Mathôt et al., 2018": "Mathôt, S., Fabius, J., Van Heusden, E., & Van der Stigchel, S. "
     "(2018). Safe and sensible preprocessing and baseline correction of pupil-size data. "
     "Behavior Research Methods, 50(1), 94-106.",
@@ -485,6 +496,7 @@ def _difficulty_section(
     if (load < 0).any():
         text += " Some loadings are negative, so these measures disagree; read the score with care."
     blocks: list[report.Block] = [Paragraph(text)]
+    blocks.extend(_score_method_blocks(difficulty, cite))
     blocks.extend(Paragraph(note) for note in difficulty.notes)
     blocks.append(
         Table(
@@ -527,8 +539,259 @@ def _difficulty_section(
     return Section("Difficulty score", blocks=blocks, anchor="difficulty")
 
 
+_MEASURE_NAMES = {"rt_ms": "response time", "accuracy": "accuracy"}
+#: Physiological measures whose names hold these words cite the matching method paper.
+PUPIL_WORDS = ("pupil",)
+HEART_WORDS = ("hrv", "rmssd", "sdnn", "heart", "ibi", "hr_", "lf_hf", "pnn50")
+
+
+def p_value(p: float) -> str:
+    """A p value as journals print it: ``p < .001`` or ``p = .032``."""
+    if p is None or not math.isfinite(p):
+        return f"p = {MISSING_CELL}"
+    if p < 0.001:
+        return "p < .001"
+    return "p = " + f"{p:.3f}".lstrip("0")
+
+
+def significant(value: float, digits: int = 3) -> str:
+    """A number at ``digits`` significant digits, without exponent for everyday sizes."""
+    if value is None or not math.isfinite(value):
+        return MISSING_CELL
+    if value == 0:
+        return "0"
+    exponent = math.floor(math.log10(abs(value)))
+    if -4 <= exponent < 6:
+        return number(value, max(0, digits - 1 - exponent))
+    return f"{value:.{digits - 1}e}".replace("-", _MINUS)
+
+
+def _measure_name(name: str) -> str:
+    return _MEASURE_NAMES.get(name, name.replace("_", " "))
+
+
+def _physio_measures(models: SummaryModels) -> list[str]:
+    return [m for m in models.load.results if m not in _MEASURE_NAMES]
+
+
+def _score_method_blocks(d: Any, cite: _Citations) -> list[report.Block]:
+    """Method, scaling and reliability of a robust difficulty score, when the summary has one."""
+    method = getattr(d, "method", "")
+    if not method:
+        return []
+    if method == "principal_axis":
+        text = (
+            "The score is the regression-method factor score of the principal-axis solution "
+            + cite("Harman, 1976")
+            + "."
+        )
+    else:
+        text = (
+            "The principal-axis solution was improper (a communality of 1 or more, a Heywood "
+            "case), so the score is the unit-weighted mean of the z-standardised measures "
+            "instead."
+        )
+    text += " Every standard deviation is the sample one (divisor n \u2212 1)."
+    omega = getattr(d, "omega_total", None)
+    if omega is not None and math.isfinite(omega):
+        text += (
+            f" The reliability of the three measures as one score, McDonald's omega total, was "
+            f"{number(omega, 2)} " + cite("McDonald, 1999") + "."
+        )
+    return [Paragraph(text)]
+
+
+def _drivers_section(models: SummaryModels, cite: _Citations) -> Section:
+    dr = models.drivers
+    title = "What drives difficulty"
+    if not dr.available:
+        return Section(title, blocks=[Paragraph(dr.reason or "No model of the score was fitted.")])
+    table = dr.models
+    best = table.iloc[0]
+    n_models = len(table)
+    on = (
+        f"the stimulus feature {dr.features[0]}"
+        if len(dr.features) == 1
+        else f"one to three of the stimulus features ({', '.join(dr.features)})"
+    )
+    fit = (
+        f"adjusted R\u00b2 = {number(float(best['adj_r2']), 2)}, leave-one-out RMSE "
+        f"{number(float(best['cv_rmse']), 2)} score units"
+    )
+    if n_models == 1:
+        lead = (
+            f"One linear model of the difficulty score on {on} was fitted over "
+            f"{count(dr.n_stimuli, 'stimulus')} ({fit})."
+        )
+    else:
+        lead = (
+            f"Of {n_models} linear models of the difficulty score on {on} over "
+            f"{count(dr.n_stimuli, 'stimulus')}, the best by AICc used {best['predictors']} "
+            f"({fit})."
+        )
+    close = table[(table["delta_aicc"] <= 2.0) & (table["rank"] != best["rank"])]
+    if len(close):
+        lead += (
+            f" {count(len(close), 'other model')} came within 2 AICc of it: "
+            + "; ".join(str(v) for v in close["predictors"].head(3))
+            + ("; ..." if len(close) > 3 else "")
+            + "."
+        )
+    blocks: list[report.Block] = [Paragraph(lead)]
+    top = table.head(10)
+    blocks.append(
+        Table(
+            f"The {'best model' if len(top) == 1 else f'{len(top)} best models'} of the "
+            "difficulty score, ranked by AICc.",
+            pd.DataFrame(
+                {
+                    "rank": top["rank"].astype(int),
+                    "features": top["predictors"].astype(str),
+                    "adj. R\u00b2": [number(float(v), 2) for v in top["adj_r2"]],
+                    "AICc": [number(float(v), 1) for v in top["aicc"]],
+                    "\u0394AICc": [number(float(v), 1) for v in top["delta_aicc"]],
+                    "weight": [number(float(v), 2) for v in top["weight_aicc"]],
+                    "LOO RMSE": [number(float(v), 2) for v in top["cv_rmse"]],
+                }
+            ),
+            note="Ordinary least squares; AICc = small-sample Akaike information criterion; "
+            "weight = Akaike weight; LOO RMSE = leave-one-out cross-validated root mean square "
+            "error, in score units.",
+        )
+    )
+    blocks.append(Paragraph(dr.caution, "note"))
+    blocks.extend(Paragraph(n) for n in dr.notes)
+    mixed = dr.mixed
+    if mixed.available:
+        coef = mixed.coefficients
+        terms = coef[coef["term"].astype(str) != "const"]
+        blocks.append(
+            Paragraph(
+                f"A mixed model of log response time over {count(mixed.n_trials, 'answered trial')}"
+                f", with a random intercept for each of {count(mixed.n_participants, 'participant')}"
+                ", gave "
+                + "; ".join(
+                    f"{t} {significant(float(e))} [{significant(float(lo))}, "
+                    f"{significant(float(hi))}] per SD of the feature ({p_value(float(p))})"
+                    for t, e, lo, hi, p in zip(
+                        terms["term"],
+                        terms["estimate"],
+                        terms["ci_low"],
+                        terms["ci_high"],
+                        terms["p"],
+                        strict=True,
+                    )
+                )
+                + "."
+            )
+        )
+    else:
+        blocks.append(Paragraph(f"No mixed model was fitted: {mixed.reason}"))
+    return Section(title, blocks=blocks, anchor="drivers")
+
+
+def _slope_words(line: Any, name: str, unit: str) -> str:
+    verb = "rose" if line.slope > 0 else "fell"
+    per = f" {unit}" if unit and unit != "share correct" else ""
+    return f"{name} {verb} (b = {significant(line.slope)}{per} per score unit, {p_value(line.p)})"
+
+
+def load_reading(name: str, unit: str, res: Any) -> str:
+    """One sentence on a two-lines test: the break, both slopes and what they show."""
+    if not res.available or res.line1 is None or res.line2 is None:
+        return res.reason or f"The two-lines test could not be run for {name}."
+    shape = "an inverted U" if res.shape == "inverted_u" else "a U"
+    verdict = (
+        f"so the relation is {shape}"
+        if res.significant
+        else f"so {shape} is not shown (that needs both slopes significant with opposite signs)"
+    )
+    below = _slope_words(res.line1, name.capitalize(), unit)
+    above = _slope_words(res.line2, "it", unit)
+    return (
+        f"{below} below the break at a difficulty score of {number(res.break_point, 2)} and "
+        f"{above} above it, {verdict}."
+    )
+
+
+def _load_section(models: SummaryModels, figures: Mapping[str, Path], cite: _Citations) -> Section:
+    title = "Where load gives way"
+    ld = models.load
+    if not ld.available:
+        return Section(title, blocks=[Paragraph(ld.reason)])
+    physio = _physio_measures(models)
+    lead = (
+        "Each measure was related to the difficulty score of the trial's stimulus: its mean in "
+        "bins of the score with 95% intervals, and the two-lines test for an inverted U "
+        + cite("Simonsohn, 2018")
+        + "."
+    )
+    if not physio:
+        lead += (
+            " No physiological measures were given, so only response time and accuracy are shown."
+        )
+    blocks: list[report.Block] = [Paragraph(lead)]
+    blocks.extend(Paragraph(n) for n in ld.notes)
+    rows = []
+    for name, res in ld.results.items():
+        unit = ld.units.get(name, "")
+        shown = _measure_name(name)
+        rows.append(
+            {
+                "measure": shown + (f", {unit}" if unit else ""),
+                "n": res.n,
+                "break": number(res.break_point, 2),
+                "slope below (p)": (
+                    f"{significant(res.line1.slope)} ({p_value(res.line1.p)[2:].strip()})"
+                    if res.line1 is not None
+                    else MISSING_CELL
+                ),
+                "slope above (p)": (
+                    f"{significant(res.line2.slope)} ({p_value(res.line2.p)[2:].strip()})"
+                    if res.line2 is not None
+                    else MISSING_CELL
+                ),
+                "shape shown": (
+                    ("inverted U" if res.shape == "inverted_u" else "U")
+                    if res.available and res.significant
+                    else "none"
+                    if res.available
+                    else MISSING_CELL
+                ),
+            }
+        )
+    blocks.append(
+        Table(
+            "Two-lines tests of each measure against the difficulty score.",
+            pd.DataFrame(rows),
+            note="Break = difficulty score where the two lines meet; slopes per score unit "
+            "with heteroskedasticity-robust (HC3) p values. A U or inverted U is shown only when "
+            "both slopes are significant with opposite signs.",
+        )
+    )
+    for name, res in ld.results.items():
+        if name not in figures:
+            continue
+        shown = _measure_name(name)
+        blocks.append(
+            Image(
+                figures[name].read_bytes(),
+                alt=f"Mean {shown} in bins of the difficulty score with 95% intervals, a "
+                "smooth fit and the two lines of the test.",
+                caption=f"{shown.capitalize()} against the difficulty score: bin means with 95% "
+                "intervals, a flexible fit, and the two lines meeting at the break.",
+                reading=load_reading(shown, ld.units.get(name, ""), res),
+            )
+        )
+    return Section(title, blocks=blocks, anchor="load")
+
+
 def _methods_section(
-    difficulty: DifficultyResult, *, include_practice: bool, cite: _Citations
+    difficulty: DifficultyResult,
+    *,
+    include_practice: bool,
+    cite: _Citations,
+    models: SummaryModels | None = None,
 ) -> Section:
     parts = [
         "Outcome shares are counted over scored trials (correct, wrong, unsure, unanswered); "
@@ -550,7 +813,56 @@ def _methods_section(
             "regression-method factor scores, signed so that a higher score means a harder "
             "stimulus when all loadings are positive."
         )
-    return Section("Methods", blocks=[Paragraph(" ".join(parts))], anchor="methods")
+    paragraphs = [Paragraph(" ".join(parts))]
+    if models is not None:
+        more = []
+        omega = getattr(models.difficulty, "omega_total", None)
+        if omega is not None and math.isfinite(omega):
+            more.append(
+                "The reliability of the score is McDonald's omega total "
+                + cite("McDonald, 1999")
+                + " of the one-factor solution."
+            )
+        if models.drivers.available:
+            more.append(
+                "Every ordinary least-squares model of the per-stimulus score on one, two or "
+                "three stimulus features was fitted with statsmodels "
+                + cite("Seabold & Perktold, 2010")
+                + " and ranked by the small-sample Akaike information criterion, AICc "
+                + cite("Hurvich & Tsai, 1989", "Burnham & Anderson, 2002")
+                + ", with adjusted R\u00b2 and leave-one-out cross-validated error beside it."
+            )
+            if models.drivers.mixed.available:
+                more.append(
+                    "The best model's features entered a linear mixed model of log response "
+                    "time with a random intercept per participant."
+                )
+        if models.load.available:
+            more.append(
+                "Where load gives way was tested with the two-lines test "
+                + cite("Simonsohn, 2018")
+                + ": a flexible fit locates the highest (or lowest) region, the Robin Hood "
+                "algorithm sets the break point, and two lines are fitted on either side with "
+                "heteroskedasticity-robust HC3 standard errors "
+                + cite("MacKinnon & White, 1985")
+                + "; a U or inverted U needs both slopes significant with opposite signs."
+            )
+            physio = _physio_measures(models)
+            if any(w in m.lower() for m in physio for w in PUPIL_WORDS):
+                more.append(
+                    "Pupil size was preprocessed as recommended by "
+                    + cite("Mathôt et al., 2018")[1:-1]
+                    + " (blink reconstruction, subtractive baseline correction)."
+                )
+            if any(w in m.lower() for m in physio for w in HEART_WORDS):
+                more.append(
+                    "Heart-rate measures follow the definitions of the "
+                    + cite("Task Force, 1996")[1:-1]
+                    + " standards."
+                )
+        if more:
+            paragraphs.append(Paragraph(" ".join(more)))
+    return Section("Methods", blocks=paragraphs, anchor="methods")
 
 
 def _cautions_section(facts: dict[str, Any]) -> Section:
@@ -589,6 +901,9 @@ def build_report(
     include_practice: bool,
     n_practice: int,
     rating_points: int,
+    models: SummaryModels | None = None,
+    model_figures: Mapping[str, Path] | None = None,
+    extra_sections: Sequence[Section] = (),
 ) -> str:
     """The report.html text of a summary (see :mod:`runner.data.summary` for the inputs).
 
@@ -633,12 +948,16 @@ def build_report(
         if len(figures.get(factor, [])) > 3 and factor in difficulty.scores.columns
     ]
     results.append(_difficulty_section(difficulty, cite, difficulty_figures))
+    if models is not None:
+        results.append(_drivers_section(models, cite))
+        results.append(_load_section(models, model_figures or {}, cite))
+    results.extend(extra_sections)
     sections = [
         _participants_section(
             data, facts, include_practice=include_practice, n_practice=n_practice
         ),
         Section("Results", subsections=results, anchor="results"),
-        _methods_section(difficulty, include_practice=include_practice, cite=cite),
+        _methods_section(difficulty, include_practice=include_practice, cite=cite, models=models),
         _cautions_section(facts),
         Section(
             "Appendix: participants",

@@ -69,7 +69,8 @@ def test_report_has_no_external_references(pilot_summary) -> None:
     html = (out / "report.html").read_text(encoding="utf-8")
     # Base64 text can hold "//" by chance; the data URIs themselves are checked separately.
     text = DATA_URI.sub("data-uri", html)
-    assert text.count("data-uri") == 8
+    # 8 level plots (2 factors x 4) + load curves of response time and accuracy.
+    assert text.count("data-uri") == 10
     assert EXTERNAL.search(text) is None, EXTERNAL.search(text)
 
 
@@ -85,7 +86,7 @@ def test_report_embeds_every_plot(pilot_summary) -> None:
     assert all(src.startswith(prefix) for src in parser.sources)
     embedded = sorted(base64.b64decode(src[len(prefix) :]) for src in parser.sources)
     written = sorted(p.read_bytes() for p in paths if p.suffix == ".png")
-    assert len(written) == 8
+    assert len(written) == 10
     assert embedded == written
 
 
@@ -93,8 +94,9 @@ def test_report_holds_tables_and_sections(pilot_summary) -> None:
     """The report has its tables and the sections of a results write-up, numbered."""
     out, _ = pilot_summary
     parser = _parse((out / "report.html").read_text(encoding="utf-8"))
-    # two factors, the loadings, the hardest stimuli, the participants
-    assert parser.tags.count("table") == 5
+    # two factors, the loadings, the hardest stimuli, the difficulty models, the two-lines
+    # tests, the participants
+    assert parser.tags.count("table") == 7
     assert parser.headings["h2"] == [
         "1Participants and data",
         "2Results",
@@ -108,9 +110,11 @@ def test_report_holds_tables_and_sections(pilot_summary) -> None:
         "2.2By density",
         "2.3Floor and ceiling",
         "2.4Difficulty score",
+        "2.5What drives difficulty",
+        "2.6Where load gives way",
     ]
     assert [c.split(".")[0] for c in parser.captions if c.startswith("Table")] == [
-        f"Table {k}" for k in range(1, 6)
+        f"Table {k}" for k in range(1, 8)
     ]
 
 
@@ -123,8 +127,15 @@ def test_report_links_only_to_itself_and_describes_every_image(pilot_summary) ->
     assert parser.sources and all(s.startswith("data:image/png;base64,") for s in parser.sources)
     assert all(alt and alt.strip() for alt in parser.alts)
     figures = [c for c in parser.captions if c.startswith("Figure")]
-    assert len(figures) == len(parser.sources) == 8
-    readings = ("Accuracy ", "Mean response time ", "The mean rating ", "The mean difficulty")
+    assert len(figures) == len(parser.sources) == 10
+    readings = (
+        "Accuracy ",
+        "Mean response time ",
+        "The mean rating ",
+        "The mean difficulty",
+        "Response time rose",
+        "Accuracy fell",
+    )
     for caption in figures:
         assert any(r in caption for r in readings), caption
 
