@@ -62,6 +62,7 @@ PROBLEM_CODES: dict[str, str] = {
     "image-too-large": "a stimulus has more pixels than trialdeck shows (50 megapixels)",
     "empty-factor-cell": "a row used by blocks has no value in the blocking factor (blocks.by)",
     "answer-covers-stimulus": "the answer box shown over the stimulus has no room beside it",
+    "non-numeric-column": "a setting weighs a trial-table column that holds text, not numbers",
     # The trial table.
     "bad-csv": "the trial table is not valid CSV",
     "stray-quote": "a quoted field runs over several lines (a stray quote swallows rows)",
@@ -174,6 +175,10 @@ PROBLEM_CODES: dict[str, str] = {
     "markers-unrecorded": "markers were sent while no recorder was connected to the stream",
     "changed-stimuli-accepted": "a resume went on with changed stimuli (--accept-changed-stimuli)",
     "clock-restarted": "an attempt ran on a restarted clock; the wall clock placed its times",
+    # Pooling sessions (`trialdeck export` and `summary`).
+    "unlike-sessions": (
+        "the sessions differ in speed, mode or protocol and are not pooled without --pool-unlike"
+    ),
 }
 
 

@@ -10,7 +10,8 @@ import math
 import os
 import sys
 import tempfile
-from typing import NoReturn
+from pathlib import Path
+from typing import Any, NoReturn
 
 from runner.errors import EXIT_USAGE
 
@@ -102,3 +103,42 @@ def add_allow_truncated(parser: argparse.ArgumentParser) -> None:
         action="store_true",
         help="read the intact part of a truncated recording instead of refusing it",
     )
+
+
+def add_pooling(parser: argparse.ArgumentParser) -> None:
+    """``--pool-unlike`` and ``--physio``: what export and summary share about pooling."""
+    parser.add_argument(
+        "--pool-unlike",
+        action="store_true",
+        help="pool sessions that differ in speed, mode (pilot or live) or protocol version; "
+        "refused by default",
+    )
+    parser.add_argument(
+        "--physio",
+        metavar="FILE.csv",
+        type=Path,
+        help="per-trial physiology table (participant, session, valid) for the protocol's "
+        "exclusions.physio_valid_share_below rule",
+    )
+
+
+def read_physio(path: Path | None) -> Any:
+    """The ``--physio`` table as a DataFrame with labels kept as text, or None."""
+    if path is None:
+        return None
+    import pandas as pd
+
+    from runner.errors import InputFileError
+
+    try:
+        return pd.read_csv(path, dtype={"participant": str, "session": str})
+    except (OSError, ValueError) as exc:
+        raise InputFileError(f"cannot read the physiology table {path}: {exc}.") from None
+
+
+def exclusion_lines(reasons: dict[tuple[str, str], list[str]]) -> list[str]:
+    """One printed line per excluded session, with the rules it met."""
+    return [
+        f"Excluded participant {p} session {s} by the protocol's rule(s): {', '.join(rules)}."
+        for (p, s), rules in sorted(reasons.items())
+    ]

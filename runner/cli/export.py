@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from runner.cli.args import add_allow_truncated
+from runner.cli.args import add_allow_truncated, add_pooling, exclusion_lines, read_physio
 from runner.data.export import DATATYPES, DEFAULT_DATATYPE, export_sessions
 from runner.errors import EXIT_OK
 
@@ -61,6 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         metavar="LABEL",
         help="BIDS task label, letters and digits (default: the study id without other characters)",
     )
+    add_pooling(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -73,6 +74,8 @@ def run(args: argparse.Namespace) -> int:
         recordings=args.recording,
         allow_truncated=args.allow_truncated,
         force=args.force,
+        pool_unlike=args.pool_unlike,
+        physio=read_physio(args.physio),
     )
     print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
     if args.copy_stimuli:
@@ -81,6 +84,10 @@ def run(args: argparse.Namespace) -> int:
         copied = copy_stimuli(result.sessions, Path(args.out), stimuli_dir=args.stimuli_dir)
         print(f"Copied {len(copied)} stimulus file(s) into {Path(args.out) / 'stimuli'}.")
     print(f"Pooled trials table: {result.pooled}")
+    for line in exclusion_lines(result.excluded):
+        print(line)
+    if result.exclusions is not None:
+        print(f"Exclusions table: {result.exclusions}")
     listed = 0
     for (tsv, _side), origin, s in zip(result.events, result.origins, result.sessions, strict=True):
         where = "session start" if origin.kind == "session_start" else "first EEG sample"

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from runner.cli.args import add_pooling, exclusion_lines, read_physio
 from runner.errors import EXIT_OK
 
 SUMMARY_TITLE = "Pilot summary"
@@ -32,7 +33,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="write into an existing folder that is not empty and not an earlier summary's "
         "(never into or above a session folder)",
     )
-    parser.add_argument("--title", default=SUMMARY_TITLE, help="heading of the report")
+    parser.add_argument(
+        "--title",
+        default=SUMMARY_TITLE,
+        help="heading of the report (default: 'Pilot summary: ' and the study's name)",
+    )
+    add_pooling(parser)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -45,7 +51,11 @@ def run(args: argparse.Namespace) -> int:
         include_practice=args.include_practice,
         title=args.title,
         force=args.force,
+        pool_unlike=args.pool_unlike,
+        physio=read_physio(args.physio),
     )
+    for line in exclusion_lines(done.excluded):
+        print(line)
     print(
         f"Summarised {done.n_sessions} session(s), {done.n_trials} trial(s), by "
         + (", ".join(done.factors) if done.factors else "no factor")

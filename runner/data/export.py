@@ -18,8 +18,11 @@ from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from runner.contract.outputs import prepare_output_folder
+import pandas as pd
+
+from runner.contract.outputs import prepare_output_folder, replace_file
 from runner.data.bids import (
+    BIDS_IGNORE,
     DATATYPES,
     DEFAULT_DATATYPE,
     POOLED_NAME,
@@ -41,6 +44,7 @@ from runner.data.bids_rows import (
     EventRows,
     event_rows,
 )
+from runner.data.exclusions import EXCLUSIONS_NAME, judge_sessions
 from runner.data.origins import Origin, recording_origin, session_origin
 from runner.data.pooled import (
     factor_union,
@@ -52,6 +56,7 @@ from runner.data.pooled import (
     sessions_table,
     write_pooled_trials,
 )
+from runner.data.pooling import check_alike, header_of
 from runner.data.sessions import (
     EXPORT_EVENTS,
     SUMMARY_EVENTS,
@@ -63,6 +68,7 @@ from runner.data.sessions import (
     load_sessions,
     worker_count,
 )
+from runner.data.tables import write_table
 from runner.errors import StorageError, UsageError
 
 #: The command an export folder's marker names.
@@ -118,6 +124,8 @@ class ExportResult:
     sessions: list[ExportSession]
     n_trials: int
     other_files: list[Path] = field(default_factory=list)
+    exclusions: Path | None = None
+    excluded: dict[tuple[str, str], list[str]] = field(default_factory=dict)
 
 
 def export_sessions(
@@ -130,6 +138,8 @@ def export_sessions(
     allow_truncated: bool = False,
     workers: int | None = None,
     force: bool = False,
+    pool_unlike: bool = False,
+    physio: pd.DataFrame | None = None,
 ) -> ExportResult:
     """Export sessions: the pooled ``trials.csv`` and BIDS events of each session under ``out``.
 
@@ -160,6 +170,16 @@ def export_sessions(
         Write into an existing folder that is neither empty nor an earlier export's (see
         :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
         holding sessions, is refused even so).
+    pool_unlike : bool
+        Pool sessions that differ in speed, mode or protocol (refused by default, before
+        anything is written: :func:`runner.data.pooling.check_alike`).
+    physio : pd.DataFrame, optional
+        Per-trial physiology for the protocol's ``physio_valid_share_below`` exclusion rule.
+
+    The protocols' exclusion rules (:func:`runner.data.exclusions.judge_sessions`, the same as
+    the summary's) leave excluded sessions out of the pooled ``trials.csv``; their BIDS events
+    are written all the same (each session's own record), and ``exclusions.csv`` lists every
+    judged session with each rule's value.
 
     Returns
     -------
@@ -169,6 +189,8 @@ def export_sessions(
     ------
     UsageError
         Bad labels or datatype, or a recording count that differs from the session count.
+    UnlikeSessionsError
+        The sessions differ in speed, mode or protocol and ``pool_unlike`` is False.
     OutputRefused
         The folder is not empty and not an earlier export's (without ``force``), is or holds a
         session folder, or has a link where a file goes.
@@ -186,6 +208,8 @@ def export_sessions(
             f"{len(recordings)} recording(s) were given for {len(folders)} session(s); give "
             "one --recording per session, in the same order as the session folders."
         )
+    if not pool_unlike:
+        check_alike([header_of(f) for f in folders], verb="export")
     target = prepare_output_folder(out, EXPORT_COMMAND, force=force, what="export")
     sessions: list[ExportSession] = []
     origins: list[Origin] = []
@@ -202,20 +226,41 @@ def export_sessions(
         sessions.append(session)
         origins.append(origin)
         events.append(written)
-    pooled = write_pooled_trials(sessions, out / POOLED_NAME)
+    judged = judge_sessions(sessions, physio=physio)
+    kept = [s for s in sessions if judged.keeps(s)]
+    pooled = write_pooled_trials(kept, out / POOLED_NAME)
+    exclusions: Path | None = None
     try:
         others = dataset_files(out, sessions)
+        if any(s.protocol.exclusions is not None for s in sessions):
+            exclusions = out / EXCLUSIONS_NAME
+            write_table(judged.table, exclusions)
+            others += _bids_ignore(out, EXCLUSIONS_NAME)
     except OSError as exc:
         raise StorageError(f"cannot write the dataset files in {out}: {exc.strerror}.") from None
-    target.finish([pooled, *others, *(p for pair in events for p in pair)])
+    done = [pooled, *([exclusions] if exclusions else []), *others]
+    target.finish([*done, *(p for pair in events for p in pair)])
     return ExportResult(
         pooled=pooled,
         events=events,
         origins=origins,
         sessions=sessions,
-        n_trials=sum(len(s.trials) for s in sessions),
+        n_trials=sum(len(s.trials) for s in kept),
         other_files=others,
+        exclusions=exclusions,
+        excluded=judged.reasons(),
     )
+
+
+def _bids_ignore(out: Path, name: str) -> list[Path]:
+    """Add ``name`` to the dataset's ``.bidsignore`` (trialdeck's own tables are not BIDS)."""
+    ignore = out / BIDS_IGNORE
+    lines = ignore.read_text(encoding="utf-8").splitlines() if ignore.is_file() else []
+    if name in lines:
+        return []
+    with replace_file(ignore) as fh:
+        fh.write("\n".join([*lines, name]) + "\n")
+    return [ignore]
 
 
 @dataclass(frozen=True)

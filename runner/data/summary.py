@@ -28,8 +28,10 @@ import pandas as pd
 from runner.contract.columns import CONTRACT_COLUMNS, PILOT_COLUMNS
 from runner.contract.outputs import prepare_output_folder, replace_file
 from runner.data import plots
+from runner.data.exclusions import EXCLUSIONS_NAME
 from runner.data.stats import mean_ci
 from runner.data.summary_report import CEILING_SHARE, FLOOR_SHARE, OUTCOMES, build_report
+from runner.data.tables import round_facts, write_table
 from runner.errors import InputFileError, StorageError
 
 if TYPE_CHECKING:
@@ -374,8 +376,8 @@ def _file_stem(factor: str) -> str:
 
 
 def _write_csv(table: pd.DataFrame, path: Path, written: list[Path], **kwargs: Any) -> None:
-    with replace_file(path) as fh:
-        table.to_csv(fh, na_rep="n/a", lineterminator="\n", **kwargs)
+    # The table convention (runner.data.tables): empty cell for missing, numbers rounded by kind.
+    write_table(table, path, index=bool(kwargs.get("index", True)))
     written.append(path)
 
 
@@ -398,6 +400,8 @@ def write_summary(
     force: bool = False,
     physio: PhysioTable | None = None,
     features: Sequence[str] | None = None,
+    exclusions: pd.DataFrame | None = None,
+    context: Mapping[str, Any] | None = None,
 ) -> list[Path]:
     """Write summary CSV tables, PNG plots and one self-contained ``report.html``.
 
@@ -433,6 +437,12 @@ def write_summary(
         Level order per factor, for example ``{"density": ["sparse", "medium", "dense"]}``.
     title : str, optional
         Heading of the report.
+    exclusions : pd.DataFrame, optional
+        The exclusions table (:func:`runner.data.exclusions.judge_sessions`), written as
+        ``exclusions.csv``; ``trials`` and ``sessions`` already leave the excluded sessions out.
+    context : mapping, optional
+        Facts about the pooled sessions added to ``facts.json`` as they are (``studies``,
+        ``pooling``, ``excluded``).
     force : bool, optional
         Write into an existing folder that is neither empty nor an earlier summary's (see
         :func:`runner.contract.outputs.prepare_output_folder`; a session folder, or a folder
@@ -485,6 +495,8 @@ def write_summary(
             written=written,
             physio=physio,
             features=features,
+            exclusions=exclusions,
+            context=dict(context or {}),
         )
     except OSError as exc:
         raise StorageError(
@@ -510,9 +522,13 @@ def _write_all(
     written: list[Path],
     physio: PhysioTable | None = None,
     features: Sequence[str] | None = None,
+    exclusions: pd.DataFrame | None = None,
+    context: dict[str, Any] | None = None,
 ) -> list[Path]:
     from runner.data import summary_models
 
+    if exclusions is not None:
+        _write_csv(exclusions, out_dir / EXCLUSIONS_NAME, written, index=False)
     n_participants = int(data["participant"].astype(str).nunique())
     level_tables: dict[str, pd.DataFrame] = {}
     for factor in factors:
@@ -540,9 +556,11 @@ def _write_all(
     facts.update(summary_models.models_facts(models))
     for name, table in summary_models.model_tables(models).items():
         _write_csv(table, out_dir / name, written, index=False)
+    facts.update(context or {})
     _write_text(
         out_dir / "facts.json",
-        json.dumps(facts, indent=2, sort_keys=True, default=_plain, allow_nan=False) + "\n",
+        json.dumps(round_facts(facts), indent=2, sort_keys=True, default=_plain, allow_nan=False)
+        + "\n",
         written,
     )
 
@@ -591,6 +609,7 @@ def _write_all(
         rating_points=rating_points,
         models=models,
         model_figures=model_figures,
+        exclusions=exclusions,
     )
     _write_text(out_dir / "report.html", html, written)
     return written

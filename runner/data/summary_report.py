@@ -275,7 +275,9 @@ class _Citations:
 
 
 def _study_names(facts: dict[str, Any], data: pd.DataFrame) -> list[str]:
-    names = [str(s.get("study")) for s in facts.get("sessions", []) if s.get("study")]
+    names = [str(v) for v in facts.get("studies") or [] if v]
+    if not names:
+        names = [str(s.get("study")) for s in facts.get("sessions", []) if s.get("study")]
     if not names and "study" in data.columns:
         names = [str(v) for v in data["study"].dropna()]
     return sorted(set(names))
@@ -290,12 +292,92 @@ def _dates(facts: dict[str, Any]) -> tuple[str, str] | None:
     return (days[0], days[-1]) if days else None
 
 
+_RULE_NAMES = {
+    "practice_accuracy_below": "practice accuracy below",
+    "timed_out_share_above": "share of timed-out trials above",
+    "unsure_share_above": "share of unsure answers above",
+    "physio_valid_share_below": "share of valid physiology below",
+}
+
+
+def _rule_name(rule: str) -> str:
+    return _RULE_NAMES.get(rule, rule.replace("_", " "))
+
+
+def _exclusion_sentence(facts: dict[str, Any], exclusions: pd.DataFrame | None) -> str:
+    excluded = facts.get("excluded") or []
+    if exclusions is None and not excluded:
+        return (
+            "The protocol declares no exclusion rules, so no participant or session was excluded."
+        )
+    rules = []
+    if exclusions is not None and "rule" in exclusions.columns:
+        rules = [_rule_name(str(r)) for r in pd.unique(exclusions["rule"].astype(str))]
+    declared = (
+        f"The protocol's pre-declared exclusion rules ({'; '.join(rules)})"
+        if rules
+        else "The protocol's pre-declared exclusion rules"
+    )
+    if not excluded:
+        return f"{declared} excluded no session."
+    n_people = len({str(e["participant"]) for e in excluded})
+    return (
+        f"{declared} excluded {count(len(excluded), 'session')} of "
+        f"{count(n_people, 'participant')}, left out of everything below (Table 1)."
+    )
+
+
+def _exclusions_table(facts: dict[str, Any], exclusions: pd.DataFrame | None) -> Table | None:
+    excluded = facts.get("excluded") or []
+    if not excluded or exclusions is None or "excluded" not in exclusions.columns:
+        return None
+    met = exclusions[pd.to_numeric(exclusions["excluded"], errors="coerce").fillna(0) != 0]
+    if met.empty:
+        return None
+
+    def share(v: Any) -> str:
+        value = pd.to_numeric(pd.Series([v]), errors="coerce").iloc[0]
+        return MISSING_CELL if pd.isna(value) else f"{100 * float(value):.0f}%"
+
+    return Table(
+        "Sessions excluded by the protocol's pre-declared rules.",
+        pd.DataFrame(
+            {
+                "participant": met["participant"].astype(str),
+                "session": met["session"].astype(str),
+                "rule": [_rule_name(str(r)) for r in met["rule"]],
+                "value": [share(v) for v in met["value"]],
+                "threshold": [share(v) for v in met["threshold"]],
+            }
+        ),
+        note="One row per rule a session met; exclusions.csv lists every rule's value for "
+        "every session.",
+    )
+
+
+def _pooling_sentence(facts: dict[str, Any]) -> str:
+    pooling = facts.get("pooling") or {}
+    if not pooling:
+        return ""
+    names = {"speed": "speed", "mode": "mode", "protocol": "protocol"}
+    differ = {k: v for k, v in pooling.items() if len(v) > 1}
+    if differ:
+        return (
+            "Sessions that differ were pooled on request: "
+            + "; ".join(f"{names.get(k, k)} {' and '.join(map(str, v))}" for k, v in differ.items())
+            + ". Read the pooled numbers with that in mind."
+        )
+    same = [f"{names.get(k, k)} {v[0]}" for k, v in pooling.items() if v]
+    return "All sessions share one " + ", one ".join(same) + "." if same else ""
+
+
 def _participants_section(
     data: pd.DataFrame,
     facts: dict[str, Any],
     *,
     include_practice: bool,
     n_practice: int,
+    exclusions: pd.DataFrame | None = None,
 ) -> Section:
     n_sess, n_people = facts["n_sessions"], facts["n_participants"]
     n_trials = len(data)
@@ -335,11 +417,17 @@ def _participants_section(
         else f"{count(aborted, 'session')} ended early; the trials completed before the end "
         "are included."
     )
-    who.append("No participant or session was excluded.")
+    who.append(_exclusion_sentence(facts, exclusions))
     timed = facts["n_timed_out"]
     if timed:
         who.append(f"{count(timed, 'trial')} ({percent(timed / n_trials)}) reached the time limit.")
+    pooled = _pooling_sentence(facts)
+    if pooled:
+        who.append(pooled)
     blocks.append(Paragraph(" ".join(who)))
+    excluded_table = _exclusions_table(facts, exclusions)
+    if excluded_table is not None:
+        blocks.append(excluded_table)
     dur, tps = facts["duration_s"], facts["trials_per_session"]
     length = "Sessions lasted " + (
         f"{number(dur['min'] / 60, 1)} to {number(dur['max'] / 60, 1)} min (median "
@@ -904,6 +992,7 @@ def build_report(
     models: SummaryModels | None = None,
     model_figures: Mapping[str, Path] | None = None,
     extra_sections: Sequence[Section] = (),
+    exclusions: pd.DataFrame | None = None,
 ) -> str:
     """The report.html text of a summary (see :mod:`runner.data.summary` for the inputs).
 
@@ -913,7 +1002,8 @@ def build_report(
     cite = _Citations()
     studies = _study_names(facts, data)
     heading = " / ".join(studies) if studies else title
-    kicker = title if studies else ""
+    # The summary's default title may already name the study ("Pilot summary: courier-hops").
+    kicker = title.removesuffix(": " + ", ".join(studies)) if studies else ""
     by = [
         count(facts["n_participants"], "participant"),
         count(facts["n_sessions"], "session"),
@@ -954,7 +1044,11 @@ def build_report(
     results.extend(extra_sections)
     sections = [
         _participants_section(
-            data, facts, include_practice=include_practice, n_practice=n_practice
+            data,
+            facts,
+            include_practice=include_practice,
+            n_practice=n_practice,
+            exclusions=exclusions,
         ),
         Section("Results", subsections=results, anchor="results"),
         _methods_section(difficulty, include_practice=include_practice, cite=cite, models=models),

@@ -7,6 +7,7 @@ Every problem found is collected (not just the first) and raised together as one
 from __future__ import annotations
 
 import hashlib
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -199,6 +200,20 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
         need_column(("answer", "prompt_column"), model.answer.prompt_column, "column")
     if model.rating.question_column:
         need_column(("rating", "question_column"), model.rating.question_column, "column")
+    for col in model.pilot.difficulty:
+        loc = ("pilot", "difficulty", col)
+        if col not in columns:
+            need_column(loc, col, "the pilot's difficulty column")
+            continue
+        texts = [r.value(col) for r in table.rows if r.value(col).strip()]
+        bad = next((t for t in texts if not _is_number(t)), None)
+        if bad is not None:
+            at(
+                loc,
+                f"the pilot's difficulty column {col!r} holds {bad!r}, not a number; weigh"
+                " columns of numbers only",
+                code="non-numeric-column",
+            )
 
     pages: dict[int, str] = {}
     for i, step in enumerate(model.sequence):
@@ -364,3 +379,11 @@ def load_protocol(path: str | Path, *, check_stimuli: bool = True) -> LoadedProt
         content_hash=digest.hexdigest(),
         pages=pages,
     )
+
+
+def _is_number(text: str) -> bool:
+    """Whether a table cell reads as a finite number."""
+    try:
+        return math.isfinite(float(text))
+    except ValueError:
+        return False

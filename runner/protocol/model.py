@@ -532,6 +532,96 @@ class Texts(Strict):
         return _check_text(str(info.field_name))(v)
 
 
+class Exclusions(Strict):
+    """Pre-declared exclusion rules: a session meeting any rule is left out of pooled analyses.
+
+    Written before the data are seen; `export` and `summary` apply them identically
+    (:mod:`runner.data.exclusions`) and list every session with each rule's value in
+    exclusions.csv. A rule left out is not applied. Shares are fractions from 0 to 1.
+    """
+
+    practice_accuracy_below: float | None = Field(
+        None,
+        ge=0,
+        le=1,
+        description="Exclude a session whose share of correct practice answers (over scored"
+        " practice trials) is below this.",
+    )
+    timed_out_share_above: float | None = Field(
+        None,
+        ge=0,
+        le=1,
+        description="Exclude a session whose share of timed-out main trials is above this.",
+    )
+    unsure_share_above: float | None = Field(
+        None,
+        ge=0,
+        le=1,
+        description="Exclude a session whose share of 'unsure' answers among scored main trials"
+        " is above this.",
+    )
+    physio_valid_share_below: float | None = Field(
+        None,
+        ge=0,
+        le=1,
+        description="Exclude a session whose share of trials with valid physiology is below this"
+        " (judged only when a physiology table is given; otherwise listed as not judged).",
+    )
+
+
+class PilotSettings(Strict):
+    """The simulated participant of `trialdeck pilot` and `demo` (invented numbers, seeded).
+
+    A trial's difficulty d is the weighted sum of trial-table columns (``difficulty``). The
+    response time is ex-Gaussian: ``rt_base_s + rt_per_difficulty_s * d`` plus a normal part
+    (sd ``rt_sd_s``) plus an exponential tail (mean ``rt_tau_s + rt_tau_per_difficulty_s * d``).
+    Accuracy, the unsure rate and the rating follow d linearly (clipped); from
+    ``give_up_difficulty`` on, the participant gives up (``give_up``: unsure or timeout).
+    """
+
+    difficulty: dict[str, float] = Field(
+        default_factory=lambda: {"expected": 1.0},
+        min_length=1,
+        description="Weights of numeric trial-table columns (or 'expected'): difficulty is the"
+        " sum of weight x value.",
+    )
+    rt_base_s: float = Field(1.4, ge=0, le=600, description="Response time at difficulty 0.")
+    rt_per_difficulty_s: float = Field(
+        0.55, ge=0, le=600, description="Added response time per unit of difficulty."
+    )
+    rt_sd_s: float = Field(0.3, ge=0, le=600, description="SD of the normal part.")
+    rt_tau_s: float = Field(0.3, ge=0, le=600, description="Mean of the exponential tail.")
+    rt_tau_per_difficulty_s: float = Field(
+        0.05, ge=0, le=600, description="Added tail mean per unit of difficulty."
+    )
+    rt_min_s: float = Field(0.25, ge=0, le=60, description="Shortest response time.")
+    correct_at_zero: float = Field(0.98, ge=0, le=1, description="P(correct) at difficulty 0.")
+    correct_per_difficulty: float = Field(
+        0.05, ge=0, le=1, description="Drop of P(correct) per unit of difficulty."
+    )
+    correct_min: float = Field(0.3, ge=0, le=1, description="Lowest P(correct).")
+    unsure_at_zero: float = Field(0.01, ge=0, le=1, description="P(unsure) at difficulty 0.")
+    unsure_per_difficulty: float = Field(
+        0.02, ge=0, le=1, description="Rise of P(unsure) per unit of difficulty."
+    )
+    unsure_max: float = Field(0.3, ge=0, le=1, description="Highest P(unsure).")
+    rating_per_difficulty: float = Field(
+        1 / 12,
+        ge=0,
+        le=10,
+        description="Share of the rating scale climbed per unit of difficulty.",
+    )
+    rating_sd: float = Field(0.12, ge=0, le=10, description="SD of the rating, as a scale share.")
+    give_up_difficulty: float | None = Field(
+        None, description="From this difficulty on the participant gives up; none: never."
+    )
+    give_up: Literal["unsure", "timeout"] = Field(
+        "unsure",
+        description="How the participant gives up: press the unsure key, or answer nothing and"
+        " let the time limit end the trial (unsure when no limit applies).",
+    )
+
+
 class Protocol(Strict):
     """A whole study protocol."""
 
@@ -549,6 +639,8 @@ class Protocol(Strict):
     checks: Checks = Field(default_factory=Checks)
     triggers: Triggers | None = None
     texts: Texts = Field(default_factory=Texts)
+    exclusions: Exclusions | None = None
+    pilot: PilotSettings = Field(default_factory=PilotSettings)
 
     @field_validator("study")
     @classmethod
@@ -573,6 +665,20 @@ class Protocol(Strict):
             raise ValueError("a size in degrees needs screen.width_cm and screen.distance_cm")
         if (v.width_cm is not None or v.height_cm is not None) and screen.width_cm is None:
             raise ValueError("a size in cm needs screen.width_cm")
+        return v
+
+    @field_validator("exclusions")
+    @classmethod
+    def _practice_rule_needs_practice(
+        cls, v: Exclusions | None, info: ValidationInfo
+    ) -> Exclusions | None:
+        sequence = info.data.get("sequence")
+        if v is None or v.practice_accuracy_below is None or sequence is None:
+            return v
+        if not any(isinstance(s, PracticeStep) for s in sequence):
+            raise ValueError(
+                "exclusions.practice_accuracy_below needs a practice step in the sequence"
+            )
         return v
 
     @field_validator("sequence")

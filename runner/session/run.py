@@ -572,6 +572,9 @@ def _run_locked(
                 pause_at=opts.pause_at,
                 pause_key=opts.pause_key or "p",
                 rating_input=loaded.model.rating.input,
+                settings=loaded.model.pilot,
+                stimulus_limited=loaded.model.timing.stimulus_limit_s is not None,
+                answer_limited=loaded.model.timing.answer_limit_s is not None,
             )
             sim.start()
             all_observers.insert(0, sim)

@@ -2,9 +2,21 @@
 
 It watches the screens the engine shows and, for each, schedules key presses on a helper thread
 that posts them through the presenter's real input path at the planned instants. Its behaviour
-is seeded per trial, so a pilot is reproducible: it answers correctly with a probability that
-falls as the expected count grows, sometimes chooses "unsure", takes longer on longer routes, and
-rates harder trials higher.
+is seeded per trial, so a pilot is reproducible, and follows the trial's difficulty: a weighted
+sum of the trial table's columns (the protocol's ``pilot`` settings,
+:class:`runner.protocol.model.PilotSettings`; by default the expected count). With difficulty d:
+
+* response time is ex-Gaussian (a normal part plus an exponential tail, the shape response
+  times take: Ratcliff 1979, Psychological Bulletin 86(3); Luce 1986, *Response Times*):
+  ``rt_base_s + rt_per_difficulty_s * d + Normal(0, rt_sd_s) + Exponential(rt_tau_s +
+  rt_tau_per_difficulty_s * d)``, at least ``rt_min_s``;
+* P(correct) = ``correct_at_zero - correct_per_difficulty * d``, at least ``correct_min``; a
+  wrong count is off by 1 or 2;
+* P(unsure) = ``unsure_at_zero + unsure_per_difficulty * d``, at most ``unsure_max``;
+* the rating climbs ``rating_per_difficulty`` of the scale per unit of d, plus normal noise
+  (sd ``rating_sd``), and a little more after "unsure";
+* from ``give_up_difficulty`` on it gives up: presses "unsure", or (``give_up: timeout``)
+  answers nothing and lets the time limit end the trial (unsure when no limit applies).
 
 The model's numbers are invented for piloting the software; they are not a model of people.
 """
@@ -20,6 +32,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from runner.protocol.model import PilotSettings
 from runner.protocol.schedule import ScheduledTrial
 from runner.session.views import BreakView, PageView, View
 
@@ -33,9 +46,6 @@ KEY_GAP_S = 0.16  # between typed digits
 CONFIRM_GAP_S = 0.22
 RATING_RT_S = 0.75
 SPIN_S = 0.0015
-BASE_RT_S = 1.4
-RT_PER_COUNT_S = 0.55
-RT_SIGMA = 0.3
 
 
 @dataclass(frozen=True)
@@ -46,28 +56,67 @@ class TrialPlan:
     unsure: bool
     answer: int | None
     rating: int
+    difficulty: float = 0.0
+    timeout: bool = False  # give up by answering nothing until the time limit
 
 
-def plan_trial(seed: int, trial: ScheduledTrial, *, points: int, max_answer: int) -> TrialPlan:
+def _number(text: object) -> float:
+    try:
+        value = float(str(text))
+    except ValueError:
+        return 0.0
+    return value if math.isfinite(value) else 0.0
+
+
+def trial_difficulty(trial: ScheduledTrial, settings: PilotSettings) -> float:
+    """The pilot's difficulty of a trial: the weighted sum of its table columns (a missing or
+    empty value counts 0; ``expected`` is the expected count)."""
+    total = 0.0
+    for column, weight in settings.difficulty.items():
+        raw = trial.expected if column == "expected" else trial.values.get(column)
+        total += weight * (0.0 if raw is None else _number(raw))
+    return total
+
+
+def plan_trial(
+    seed: int,
+    trial: ScheduledTrial,
+    *,
+    points: int,
+    max_answer: int,
+    settings: PilotSettings | None = None,
+    can_time_out: bool = True,
+) -> TrialPlan:
     """The seeded plan of one trial (pure: the same inputs give the same plan)."""
+    p = settings if settings is not None else PilotSettings()
     rng = random.Random(f"{seed}:{trial.trial}")
-    difficulty = trial.expected if trial.expected is not None else 5
-    p_unsure = min(0.3, 0.01 + 0.02 * difficulty)
-    p_correct = max(0.3, 0.98 - 0.05 * difficulty)
-    rt = (BASE_RT_S + RT_PER_COUNT_S * difficulty) * math.exp(rng.gauss(0.0, RT_SIGMA))
-    unsure = rng.random() < p_unsure
+    d = trial_difficulty(trial, p)
+    p_unsure = min(p.unsure_max, max(0.0, p.unsure_at_zero + p.unsure_per_difficulty * d))
+    p_correct = min(1.0, max(p.correct_min, p.correct_at_zero - p.correct_per_difficulty * d))
+    tau = p.rt_tau_s + p.rt_tau_per_difficulty_s * d
+    rt = p.rt_base_s + p.rt_per_difficulty_s * d + rng.gauss(0.0, p.rt_sd_s)
+    rt += rng.expovariate(1.0 / tau) if tau > 0 else 0.0
+    rt = max(p.rt_min_s, rt)
+    # Every draw is made whatever the outcome, so one setting never shifts the others' draws.
+    u_unsure, u_correct, u_wrong, u_free = rng.random(), rng.random(), rng.random(), rng.random()
+    noise = rng.gauss(0.0, p.rating_sd)
+    gives_up = p.give_up_difficulty is not None and d >= p.give_up_difficulty
+    timeout = gives_up and p.give_up == "timeout" and can_time_out
+    unsure = (gives_up and not timeout) or (not gives_up and u_unsure < p_unsure)
     answer: int | None = None
-    if not unsure:
-        if trial.expected is None or rng.random() < p_correct:
-            answer = (
-                trial.expected if trial.expected is not None else rng.randint(0, min(9, max_answer))
-            )
+    if not unsure and not timeout:
+        if trial.expected is None:
+            answer = int(u_free * (min(9, max_answer) + 1))
+        elif u_correct < p_correct:
+            answer = trial.expected
         else:
-            answer = max(0, trial.expected + rng.choice([-2, -1, 1, 2]))
+            answer = max(0, trial.expected + (-2, -1, 1, 2)[int(u_wrong * 4)])
         answer = min(answer, max_answer)
-    level = difficulty / 12.0 + rng.gauss(0.0, 0.12) + (0.15 if unsure else 0.0)
+    level = p.rating_per_difficulty * d + noise + (0.15 if unsure or timeout else 0.0)
     rating = int(min(points, max(1, round(1 + (points - 1) * level))))
-    return TrialPlan(rt_s=rt, unsure=unsure, answer=answer, rating=rating)
+    return TrialPlan(
+        rt_s=rt, unsure=unsure, answer=answer, rating=rating, difficulty=d, timeout=timeout
+    )
 
 
 class KeyScheduler:
@@ -149,6 +198,9 @@ class SimulatedParticipant:
         rating_input: str = "keys",
         pause_key: str = "p",
         pause_s: float = 2.0,
+        settings: PilotSettings | None = None,
+        stimulus_limited: bool = False,
+        answer_limited: bool = False,
     ):
         self.seed = seed
         self.points = points
@@ -162,6 +214,9 @@ class SimulatedParticipant:
         self.pause_at = pause_at
         self.pause_key = pause_key
         self.pause_s = pause_s
+        self.settings = settings if settings is not None else PilotSettings()
+        self.stimulus_limited = stimulus_limited
+        self.answer_limited = answer_limited
         self.keys = KeyScheduler(post, clock)
         self.plans: dict[int, TrialPlan] = {}
         self.intended_rt_ms: dict[int, float] = {}
@@ -217,23 +272,41 @@ class SimulatedParticipant:
         elif kind == "pause":
             self.keys.at(t + self._s(self.pause_s), self.pause_key)
         elif kind == "stimulus" and trial is not None:
-            plan = plan_trial(self.seed, trial, points=self.points, max_answer=self.max_answer)
+            plan = plan_trial(
+                self.seed,
+                trial,
+                points=self.points,
+                max_answer=self.max_answer,
+                settings=self.settings,
+                # 'after' mode gives up on the answer screen, which needs its limit; 'over' mode
+                # types over the stimulus, ended by the viewing limit or else the answer limit.
+                can_time_out=self.answer_limited
+                if self.mode == "after"
+                else self.stimulus_limited or self.answer_limited,
+            )
             self.plans[trial.trial] = plan
             rt = self._s(plan.rt_s)
-            self.intended_rt_ms[trial.trial] = rt * 1000.0
+            if not plan.timeout:
+                self.intended_rt_ms[trial.trial] = rt * 1000.0
             if self.abort_at == trial.trial:
                 self.keys.at(t + rt / 2, "escape")
                 self.keys.at(t + rt / 2 + self._s(0.3), "y")
                 return
             if self.pause_at == trial.trial:
                 self.keys.at(t + rt / 2, self.pause_key)
+            if plan.timeout:
+                # Giving up by silence: in 'after' mode end viewing, then type nothing until the
+                # answer screen's limit runs out; in 'over' mode press nothing at all.
+                if self.mode == "after":
+                    self.keys.at(t + rt, self.decision_key)
+                return
             if self.mode == "after":
                 self.keys.at(t + rt, self.unsure_key if plan.unsure else self.decision_key)
             else:
                 self._type(t + rt, plan)
         elif kind == "answer" and trial is not None:
             planned = self.plans.get(trial.trial)
-            if planned is not None:
+            if planned is not None and not planned.timeout:
                 self._type(t + self._s(0.5), planned)
         elif kind == "rating" and trial is not None:
             planned = self.plans.get(trial.trial)
