@@ -610,6 +610,7 @@ def _write_all(
         models=models,
         model_figures=model_figures,
         exclusions=exclusions,
+        level_order=level_order,
     )
     _write_text(out_dir / "report.html", html, written)
     return written

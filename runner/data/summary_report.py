@@ -12,7 +12,8 @@ one sentence instead of showing an empty heading.
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
+import re
+from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -123,13 +124,18 @@ class _Point:
 
 
 def trend_sentence(
-    subject: str, points: Sequence[tuple[str, float, str]], *, suffix: str = ""
+    subject: str,
+    points: Sequence[tuple[str, float, str]],
+    *,
+    suffix: str = "",
+    ordered: bool = True,
 ) -> str:
     """One sentence on how a quantity changes over ordered levels, from the numbers shown.
 
     ``points`` are ``(level label, value, value as shown)``; levels without a value are skipped.
     The sentence compares the first and last level and names a peak or trough in between when
     it differs from both ends as shown: "Accuracy fell from 95% at nodes 20 to 40% at nodes 140."
+    Levels that have no order (``ordered=False``) get the highest and the lowest instead.
     """
     pts = [_Point(lbl, v, s) for lbl, v, s in points if v is not None and math.isfinite(v)]
     if not pts:
@@ -137,6 +143,16 @@ def trend_sentence(
     tail = f" {suffix}" if suffix else ""
     if len(pts) == 1:
         return f"{subject} was {pts[0].shown} at {pts[0].label}{tail}."
+    if not ordered:
+        # Levels without an order: name the highest and lowest, never "rose" or "fell".
+        top = max(pts, key=lambda p: p.value)
+        low = min(pts, key=lambda p: p.value)
+        if top.shown == low.shown:
+            return f"{subject} was {top.shown} at every level{tail}."
+        return (
+            f"{subject} was highest at {top.label} ({top.shown}) and lowest at {low.label} "
+            f"({low.shown}){tail}."
+        )
     first, last = pts[0], pts[-1]
     if first.shown == last.shown:
         core = f"{subject} was {first.shown} at both {first.label} and {last.label}"
@@ -233,6 +249,9 @@ REFERENCES = {
     "Simonsohn, 2018": "Simonsohn, U. (2018). Two lines: A valid alternative to the invalid "
     "testing of U-shaped relationships with quadratic regressions. Advances in Methods and "
     "Practices in Psychological Science, 1(4), 538-555.",
+    "Bolker et al., 2009": "Bolker, B. M., Brooks, M. E., Clark, C. J., Geange, S. W., Poulsen, "
+    "J. R., Stevens, M. H. H., & White, J.-S. S. (2009). Generalized linear mixed models: A "
+    "practical guide for ecology and evolution. Trends in Ecology & Evolution, 24(3), 127-135.",
     "Burnham & Anderson, 2002": "Burnham, K. P., & Anderson, D. R. (2002). Model selection and "
     "multimodel inference: A practical information-theoretic approach (2nd ed.). Springer.",
     "MacKinnon & White, 1985": "MacKinnon, J. G., & White, H. (1985). Some "
@@ -304,6 +323,11 @@ def _rule_name(rule: str) -> str:
     return _RULE_NAMES.get(rule, rule.replace("_", " "))
 
 
+def _share_text(value: Any) -> str:
+    number_ = pd.to_numeric(pd.Series([value]), errors="coerce").iloc[0]
+    return MISSING_CELL if pd.isna(number_) else f"{100 * float(number_):.0f}%"
+
+
 def _exclusion_sentence(facts: dict[str, Any], exclusions: pd.DataFrame | None) -> str:
     excluded = facts.get("excluded") or []
     if exclusions is None and not excluded:
@@ -311,8 +335,12 @@ def _exclusion_sentence(facts: dict[str, Any], exclusions: pd.DataFrame | None) 
             "The protocol declares no exclusion rules, so no participant or session was excluded."
         )
     rules = []
-    if exclusions is not None and "rule" in exclusions.columns:
-        rules = [_rule_name(str(r)) for r in pd.unique(exclusions["rule"].astype(str))]
+    if exclusions is not None and {"rule", "threshold"} <= set(exclusions.columns):
+        first = exclusions.drop_duplicates("rule")
+        rules = [
+            f"{_rule_name(str(r))} {_share_text(t)}"
+            for r, t in zip(first["rule"], first["threshold"], strict=True)
+        ]
     declared = (
         f"The protocol's pre-declared exclusion rules ({'; '.join(rules)})"
         if rules
@@ -335,10 +363,6 @@ def _exclusions_table(facts: dict[str, Any], exclusions: pd.DataFrame | None) ->
     if met.empty:
         return None
 
-    def share(v: Any) -> str:
-        value = pd.to_numeric(pd.Series([v]), errors="coerce").iloc[0]
-        return MISSING_CELL if pd.isna(value) else f"{100 * float(value):.0f}%"
-
     return Table(
         "Sessions excluded by the protocol's pre-declared rules.",
         pd.DataFrame(
@@ -346,8 +370,8 @@ def _exclusions_table(facts: dict[str, Any], exclusions: pd.DataFrame | None) ->
                 "participant": met["participant"].astype(str),
                 "session": met["session"].astype(str),
                 "rule": [_rule_name(str(r)) for r in met["rule"]],
-                "value": [share(v) for v in met["value"]],
-                "threshold": [share(v) for v in met["threshold"]],
+                "value": [_share_text(v) for v in met["value"]],
+                "threshold": [_share_text(v) for v in met["threshold"]],
             }
         ),
         note="One row per rule a session met; exclusions.csv lists every rule's value for "
@@ -359,16 +383,28 @@ def _pooling_sentence(facts: dict[str, Any]) -> str:
     pooling = facts.get("pooling") or {}
     if not pooling:
         return ""
-    names = {"speed": "speed", "mode": "mode", "protocol": "protocol"}
     differ = {k: v for k, v in pooling.items() if len(v) > 1}
     if differ:
         return (
             "Sessions that differ were pooled on request: "
-            + "; ".join(f"{names.get(k, k)} {' and '.join(map(str, v))}" for k, v in differ.items())
+            + "; ".join(f"{k} {' and '.join(map(str, v))}" for k, v in differ.items())
             + ". Read the pooled numbers with that in mind."
         )
-    same = [f"{names.get(k, k)} {v[0]}" for k, v in pooling.items() if v]
-    return "All sessions share one " + ", one ".join(same) + "." if same else ""
+    speed = (pooling.get("speed") or [""])[0]
+    mode = (pooling.get("mode") or [""])[0]
+    protocol = (pooling.get("protocol") or [""])[0]
+    text = (
+        f"All sessions ran at {speed} speed"
+        + (f" in {mode} mode" if mode else "")
+        + (f" under one protocol ({protocol})" if protocol else "")
+        + "."
+    )
+    if speed and speed != "1x":
+        text += (
+            f" At {speed} every wait and simulated response time is divided by "
+            f"{speed.removesuffix('x')}, so times here are not those of a real session."
+        )
+    return text
 
 
 def _participants_section(
@@ -462,12 +498,14 @@ def _factor_section(
     *,
     rating_points: int,
     facts: dict[str, Any],
+    ordered: bool = True,
 ) -> Section:
     levels = list(table[factor])
     names = [_level_name(factor, lvl) for lvl in levels]
     acc = trend_sentence(
         "Accuracy",
         [(n, s, percent(s)) for n, s in zip(names, table["share_correct"], strict=True)],
+        ordered=ordered,
     )
     rt = trend_sentence(
         "Mean response time",
@@ -475,11 +513,13 @@ def _factor_section(
             (n, m / 1000, number(m / 1000, 2) + " s")
             for n, m in zip(names, table["rt_mean_ms"], strict=True)
         ],
+        ordered=ordered,
     )
     rating = trend_sentence(
         "The mean rating",
         [(n, m, number(m, 1)) for n, m in zip(names, table["rating_mean"], strict=True)],
         suffix=f"on the 1 to {rating_points} scale",
+        ordered=ordered,
     )
     readings = [acc, rt, rating]
     captions = [
@@ -518,7 +558,11 @@ def _factor_section(
 
 
 def _difficulty_figure(
-    factor: str, levels: Sequence[Any], path: Path, difficulty: DifficultyResult
+    factor: str,
+    levels: Sequence[Any],
+    path: Path,
+    difficulty: DifficultyResult,
+    ordered: bool = True,
 ) -> Image:
     scored = difficulty.scores.dropna(subset=["score"])
     means = scored.groupby(factor, sort=False)["score"].mean()
@@ -531,7 +575,7 @@ def _difficulty_figure(
         alt=f"Difficulty score of each stimulus, grouped by {factor} level.",
         caption=f"Difficulty score of each stimulus by {factor} level; the horizontal line "
         "marks the level mean.",
-        reading=trend_sentence("The mean difficulty score", points),
+        reading=trend_sentence("The mean difficulty score", points, ordered=ordered),
     )
 
 
@@ -570,6 +614,7 @@ def _difficulty_section(
     difficulty: DifficultyResult,
     cite: _Citations,
     figures: Sequence[tuple[str, Sequence[Any], Path]] = (),
+    ordered: Collection[str] | None = None,
 ) -> Section:
     if not difficulty.available:
         return Section("Difficulty score", blocks=[Paragraph(difficulty.reason)])
@@ -605,7 +650,11 @@ def _difficulty_section(
         )
     )
     for factor, levels, path in figures:
-        blocks.append(_difficulty_figure(factor, levels, path, difficulty))
+        blocks.append(
+            _difficulty_figure(
+                factor, levels, path, difficulty, ordered=ordered is None or factor in ordered
+            )
+        )
     hardest = scored.sort_values("score", ascending=False).head(5)
     blocks.append(
         Table(
@@ -640,6 +689,10 @@ def p_value(p: float) -> str:
     if p < 0.001:
         return "p < .001"
     return "p = " + f"{p:.3f}".lstrip("0")
+
+
+def _bare_p(p: float) -> str:
+    return p_value(p).removeprefix("p ").removeprefix("= ")
 
 
 def significant(value: float, digits: int = 3) -> str:
@@ -748,6 +801,8 @@ def _drivers_section(models: SummaryModels, cite: _Citations) -> Section:
         )
     )
     blocks.append(Paragraph(dr.caution, "note"))
+    if "Burnham" in dr.caution:
+        cite("Burnham & Anderson, 2002")
     blocks.extend(Paragraph(n) for n in dr.notes)
     mixed = dr.mixed
     if mixed.available:
@@ -774,7 +829,16 @@ def _drivers_section(models: SummaryModels, cite: _Citations) -> Section:
             )
         )
     else:
-        blocks.append(Paragraph(f"No mixed model was fitted: {mixed.reason}"))
+        reason = re.sub(
+            r"(\d+) participant\(s\)",
+            lambda m: count(int(m.group(1)), "participant"),
+            str(mixed.reason).removeprefix("Not fitted: "),
+        )
+        if "Bolker" in reason:
+            cite("Bolker et al., 2009")
+        blocks.append(
+            Paragraph(f"No mixed model with a participant random effect was fitted: {reason}")
+        )
     return Section(title, blocks=blocks, anchor="drivers")
 
 
@@ -830,12 +894,12 @@ def _load_section(models: SummaryModels, figures: Mapping[str, Path], cite: _Cit
                 "n": res.n,
                 "break": number(res.break_point, 2),
                 "slope below (p)": (
-                    f"{significant(res.line1.slope)} ({p_value(res.line1.p)[2:].strip()})"
+                    f"{significant(res.line1.slope)} ({_bare_p(res.line1.p)})"
                     if res.line1 is not None
                     else MISSING_CELL
                 ),
                 "slope above (p)": (
-                    f"{significant(res.line2.slope)} ({p_value(res.line2.p)[2:].strip()})"
+                    f"{significant(res.line2.slope)} ({_bare_p(res.line2.p)})"
                     if res.line2 is not None
                     else MISSING_CELL
                 ),
@@ -993,6 +1057,7 @@ def build_report(
     model_figures: Mapping[str, Path] | None = None,
     extra_sections: Sequence[Section] = (),
     exclusions: pd.DataFrame | None = None,
+    level_order: Mapping[str, Sequence[Any]] | None = None,
 ) -> str:
     """The report.html text of a summary (see :mod:`runner.data.summary` for the inputs).
 
@@ -1021,6 +1086,12 @@ def build_report(
             else f"{count(facts['n_pilot'], 'simulated session')}"
         )
 
+    # Numbers and levels given an order have one; other levels are only sorted for display.
+    ordered = {
+        factor
+        for factor, table in level_tables.items()
+        if pd.api.types.is_numeric_dtype(table[factor]) or factor in (level_order or {})
+    }
     results = [
         _factor_section(
             factor,
@@ -1028,6 +1099,7 @@ def build_report(
             figures.get(factor, []),
             rating_points=rating_points,
             facts=facts,
+            ordered=factor in ordered,
         )
         for factor, table in level_tables.items()
     ]
@@ -1037,7 +1109,7 @@ def build_report(
         for factor, table in level_tables.items()
         if len(figures.get(factor, [])) > 3 and factor in difficulty.scores.columns
     ]
-    results.append(_difficulty_section(difficulty, cite, difficulty_figures))
+    results.append(_difficulty_section(difficulty, cite, difficulty_figures, ordered))
     if models is not None:
         results.append(_drivers_section(models, cite))
         results.append(_load_section(models, model_figures or {}, cite))
