@@ -696,7 +696,9 @@ def _bare_p(p: float) -> str:
 
 
 def significant(value: float, digits: int = 3) -> str:
-    """A number at ``digits`` significant digits, without exponent for everyday sizes."""
+    """A number with ``digits`` significant digits but whole units never rounded away
+    (``4722.3`` -> ``4722``, ``0.06813`` -> ``0.0681``); an exponent only beyond a million or
+    below 0.0001."""
     if value is None or not math.isfinite(value):
         return MISSING_CELL
     if value == 0:

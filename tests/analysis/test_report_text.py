@@ -17,7 +17,10 @@ from runner.data.summary import write_summary
 from runner.data.summary_report import (
     count,
     display_levels,
+    load_reading,
     number,
+    p_value,
+    significant,
     trend_sentence,
     wilson_interval,
 )
@@ -217,3 +220,116 @@ def test_report_of_one_person_uses_the_singular(tmp_path: Path) -> None:
     parsed = _cells(html)
     assert parsed.h1 == "courier-hops"
     assert parsed.kicker == "Pilot summary"
+
+
+def test_trend_sentence_without_an_order_names_highest_and_lowest() -> None:
+    """Levels without an order read as highest and lowest, never "rose" or "fell".
+
+    Source: the numbers are given in the test; the wording is documented in
+    docs/analysis-summary.md ("The report").
+    """
+    points = [
+        ("density dense", 0.45, "45%"),
+        ("density medium", 0.35, "35%"),
+        ("density sparse", 0.6, "60%"),
+    ]
+    assert trend_sentence("Accuracy", points, ordered=False) == (
+        "Accuracy was highest at density sparse (60%) and lowest at density medium (35%)."
+    )
+    same = [("a", 0.5, "50%"), ("b", 0.5004, "50%")]
+    assert trend_sentence("Accuracy", same, ordered=False) == "Accuracy was 50% at every level."
+
+
+def test_p_values_and_significant_digits_print_as_journals_do() -> None:
+    """p values print as "p < .001" or "p = .032" (no leading zero); slopes at 3 significant
+    digits (whole units kept), switching to an exponent only for very large or small values.
+
+    Source: APA Publication Manual, 7th ed., section 6.36 (statistics: no leading zero for
+    values that cannot exceed 1; exact p to two or three decimals, p < .001 below that).
+    """
+    assert p_value(0.00002) == "p < .001"
+    assert p_value(0.0321) == "p = .032"
+    assert p_value(0.5) == "p = .500"
+    assert significant(4722.29) == "4722"
+    assert significant(-0.18263) == "\u22120.183"
+    assert significant(0.0681) == "0.0681"
+    assert significant(3399662.9) == "3.40e+06"
+
+
+def test_load_reading_states_break_slopes_and_verdict() -> None:
+    """The reading of a two-lines figure gives the break, both slopes with p, and whether the
+    U-shape is shown (both slopes significant with opposite signs).
+
+    Source: Simonsohn (2018), Advances in Methods and Practices in Psychological Science 1(4),
+    538-555: the criterion for a U-shape in the two-lines test.
+    """
+    from runner.data.twolines import Line, TwoLinesResult
+
+    up = Line(slope=2.5, se=0.5, z=5.0, p=0.00001, at_break=3.0, n=40)
+    down = Line(slope=-1.2, se=0.4, z=-3.0, p=0.0027, at_break=3.0, n=30)
+    res = TwoLinesResult(
+        True, n=70, shape="inverted_u", break_point=0.4, line1=up, line2=down, significant=True
+    )
+    assert load_reading("pupil size", "mm", res) == (
+        "Pupil size rose (b = 2.50 mm per score unit, p < .001) below the break at a difficulty "
+        "score of 0.40 and it fell (b = \u22121.20 mm per score unit, p = .003) above it, so the "
+        "relation is an inverted U."
+    )
+    flat = TwoLinesResult(
+        True, n=70, shape="inverted_u", break_point=0.4, line1=up, line2=up, significant=False
+    )
+    assert load_reading("pupil size", "mm", flat).endswith(
+        "so an inverted U is not shown (that needs both slopes significant with opposite signs)."
+    )
+    missing = TwoLinesResult(False, reason="Too few trials for the two-lines test.")
+    assert load_reading("pupil size", "mm", missing) == "Too few trials for the two-lines test."
+
+
+def test_report_lists_exclusions_and_pooling(tmp_path: Path) -> None:
+    """With exclusion rules and a pooling summary, the report names the rules with their
+    thresholds, counts the excluded sessions in the right number, tables them, and names the
+    shared speed.
+
+    Source: docs/analysis-summary.md ("The report"); the excluded session is given in the test.
+    """
+    trials, sessions = make_pool(2, 24)
+    exclusions = pd.DataFrame(
+        {
+            "participant": ["P001", "P002", "P009"],
+            "session": ["S1", "S1", "S1"],
+            "rule": ["timed_out_share_above"] * 3,
+            "value": [0.0, 0.04, 0.62],
+            "threshold": [0.5, 0.5, 0.5],
+            "excluded": [0, 0, 1],
+            "note": ["", "", ""],
+        }
+    )
+    context = {
+        "studies": ["courier-hops"],
+        "pooling": {"speed": ["10x"], "mode": ["pilot"], "protocol": ["courier-hops abc"]},
+        "excluded": [{"participant": "P009", "session": "S1", "rules": ["timed_out_share_above"]}],
+    }
+    write_summary(
+        trials,
+        sessions,
+        tmp_path,
+        factors=["nodes"],
+        exclusions=exclusions,
+        context=context,
+        title="Pilot summary: courier-hops",
+    )
+    html = (tmp_path / "report.html").read_text(encoding="utf-8")
+    text = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", html))
+    assert (
+        "pre-declared exclusion rules (share of timed-out trials above 50%) excluded 1 session "
+        "of 1 participant" in text
+    )
+    assert (
+        "All sessions ran at 10x speed in pilot mode under one protocol (courier-hops abc)." in text
+    )
+    assert "divided by 10" in text
+    parsed = _cells(html)
+    assert parsed.h1 == "courier-hops" and parsed.kicker == "Pilot summary"
+    excluded = parsed.tables[0]
+    assert excluded[0] == ["participant", "session", "rule", "value", "threshold"]
+    assert excluded[1:] == [["P009", "S1", "share of timed-out trials above", "62%", "50%"]]
