@@ -335,7 +335,7 @@ def mixed_model(
     with warnings.catch_warnings():
         # Boundary fits and convergence notes are reported through ``converged``.
         warnings.simplefilter("ignore")
-        fit = sm.MixedLM(y, design, groups=groups).fit(reml=True, method="lbfgs")
+        fit = sm.MixedLM(y, design, groups=groups).fit(reml=True)
     names = ["const", *predictors]
     ci = np.asarray(fit.conf_int())[: len(names)]
     coefficients = pd.DataFrame(
