@@ -33,6 +33,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         "(never into or above a session folder)",
     )
     parser.add_argument("--title", default=SUMMARY_TITLE, help="heading of the report")
+    parser.add_argument(
+        "--physio",
+        metavar="FILE",
+        type=Path,
+        help="physio_trials.csv written by `trialdeck physio` (or its folder): relate each "
+        "physiological measure to the difficulty score",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -45,6 +52,7 @@ def run(args: argparse.Namespace) -> int:
         include_practice=args.include_practice,
         title=args.title,
         force=args.force,
+        physio=args.physio,
     )
     print(
         f"Summarised {done.n_sessions} session(s), {done.n_trials} trial(s), by "

@@ -30,6 +30,8 @@ from runner.data.twolines import TwoLinesResult, two_lines
 from runner.errors import InputFileError
 
 N_BINS = 5
+#: The file ``trialdeck physio`` writes (its sidecar has the same stem and ``.json``).
+PHYSIO_FILE = "physio_trials.csv"
 PHYSIO_KEYS = ("participant", "session", "trial")
 MEASURE_KIND = "measure"
 RT = "rt_ms"

@@ -39,6 +39,7 @@ def summarize_sessions(
     include_practice: bool = False,
     title: str = "Pilot summary",
     force: bool = False,
+    physio: str | Path | None = None,
 ) -> SummaryResult:
     """Summarise sessions: read them from ``paths``, or take ``sessions`` already read.
 
@@ -55,6 +56,10 @@ def summarize_sessions(
         their journals are not read again.
     include_practice, title, force
         See :func:`write_summary`.
+    physio : str or Path, optional
+        ``physio_trials.csv`` of ``trialdeck physio`` (or the folder holding it, with its
+        ``physio_trials.json`` sidecar beside it); its measures are related to the difficulty
+        score (:mod:`runner.data.load_curve`).
 
     Raises
     ------
@@ -74,6 +79,14 @@ def summarize_sessions(
             "the session folders."
         )
     factors = factor_union(sessions)
+    physio_table = None
+    if physio is not None:
+        from runner.data.load_curve import PHYSIO_FILE, read_physio
+
+        physio_path = Path(physio)
+        if physio_path.is_dir():
+            physio_path = physio_path / PHYSIO_FILE
+        physio_table = read_physio(physio_path)
     written = write_summary(
         trials,
         sessions_table(sessions),
@@ -84,5 +97,6 @@ def summarize_sessions(
         level_order=level_orders(sessions),
         title=title,
         force=force,
+        physio=physio_table,
     )
     return SummaryResult(len(sessions), len(trials), factors, written)
