@@ -50,9 +50,11 @@ def test_read_physio_refuses_missing_sidecar_and_keys(tmp_path: Path) -> None:
 def test_bins_hold_t_and_wilson_intervals(tmp_path: Path) -> None:
     """Continuous measures get the t interval of the bin mean, accuracy the Wilson interval.
 
-    Source: scipy.stats.t.interval(0.95, n - 1, loc=mean, scale=sem) and Wilson 1927 (JASA
-    22:209-212), score interval written out here.
+    Source: scipy.stats.t.interval(0.95, n - 1, loc=mean, scale=sem) and
+    statsmodels.stats.proportion.proportion_confint(count, n, method="wilson").
     """
+    from statsmodels.stats.proportion import proportion_confint
+
     trials = _main()
     scores = robust_difficulty(trials).scores
     physio = read_physio(write_physio(trials, tmp_path))
@@ -71,11 +73,9 @@ def test_bins_hold_t_and_wilson_intervals(tmp_path: Path) -> None:
     assert (row["ci_low"], row["ci_high"]) == pytest.approx((low, high))
     scored = trials["outcome"] != "unscored"
     hits = (trials.loc[in_bin & scored, "outcome"] == "correct").to_numpy(dtype=float)
-    n, p, z = hits.size, hits.mean(), sps.norm.ppf(0.975)
-    centre = (p + z**2 / (2 * n)) / (1 + z**2 / n)
-    half = z / (1 + z**2 / n) * math.sqrt(p * (1 - p) / n + z**2 / (4 * n**2))
+    ref = proportion_confint(int(hits.sum()), hits.size, alpha=0.05, method="wilson")
     acc = bins[(bins["measure"] == ACCURACY) & (bins["bin"] == 1)].iloc[0]
-    assert (acc["ci_low"], acc["ci_high"]) == pytest.approx((centre - half, centre + half))
+    assert (acc["ci_low"], acc["ci_high"]) == pytest.approx(ref, rel=1e-12)
 
 
 def test_physio_joins_on_keys_and_finds_the_inverted_u(tmp_path: Path) -> None:
@@ -141,3 +141,17 @@ def test_write_summary_writes_model_files(tmp_path: Path) -> None:
     assert np.issubdtype(tests["break_point"].dtype, np.floating)
     html = (out / "report.html").read_text(encoding="utf-8")
     assert "Where load gives way" in html and "What drives difficulty" in html
+
+
+@pytest.mark.parametrize(("k", "n"), [(0, 10), (3, 10), (10, 10), (57, 80)])
+def test_wilson_interval_matches_statsmodels(k: int, n: int) -> None:
+    """The Wilson interval equals statsmodels' at the edges and inside.
+
+    Source: statsmodels.stats.proportion.proportion_confint(k, n, alpha=0.05, method="wilson").
+    """
+    from statsmodels.stats.proportion import proportion_confint
+
+    from runner.data.load_curve import wilson_interval
+
+    assert wilson_interval(k, n) == pytest.approx(proportion_confint(k, n, method="wilson"))
+    assert all(math.isnan(v) for v in wilson_interval(0, 0))
