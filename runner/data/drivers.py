@@ -215,10 +215,10 @@ def stimulus_features(
 
 def fit_ols(y: np.ndarray, X: pd.DataFrame) -> dict[str, object]:
     """One OLS fit (statsmodels) with its information criteria and cross-validated error."""
-    import statsmodels.api as sm
+    from statsmodels.regression.linear_model import OLS
 
-    design = sm.add_constant(X.to_numpy(dtype=float), has_constant="add")
-    fit = sm.OLS(y, design).fit()
+    design = np.column_stack([np.ones(len(X)), X.to_numpy(dtype=float)])
+    fit = OLS(y, design).fit()
     n = int(fit.nobs)
     k, aic, aicc, bic = information_criteria(float(fit.llf), n, design.shape[1])
     names = ["const", *X.columns]
@@ -314,7 +314,7 @@ def mixed_model(
             predictors=tuple(predictors),
             n_participants=n_people,
         )
-    import statsmodels.api as sm
+    from statsmodels.regression.mixed_linear_model import MixedLM
 
     outcome = trials["outcome"].astype(str)
     rt = pd.to_numeric(trials["rt_ms"], errors="coerce").astype(float)
@@ -331,11 +331,11 @@ def mixed_model(
     if np.any(~(sd > 0)):
         return MixedModelResult(False, "Not fitted: a feature does not vary across trials.")
     Z = (X - X.mean(axis=0)) / sd
-    design = sm.add_constant(Z, has_constant="add")
+    design = np.column_stack([np.ones(len(Z)), Z])
     with warnings.catch_warnings():
         # Boundary fits and convergence notes are reported through ``converged``.
         warnings.simplefilter("ignore")
-        fit = sm.MixedLM(y, design, groups=groups).fit(reml=True, method="lbfgs")
+        fit = MixedLM(y, design, groups=groups).fit(reml=True)
     names = ["const", *predictors]
     ci = np.asarray(fit.conf_int())[: len(names)]
     coefficients = pd.DataFrame(

@@ -30,6 +30,8 @@ from runner.data.twolines import TwoLinesResult, two_lines
 from runner.errors import InputFileError
 
 N_BINS = 5
+#: The file ``trialdeck physio`` writes (its sidecar has the same stem and ``.json``).
+PHYSIO_FILE = "physio_trials.csv"
 PHYSIO_KEYS = ("participant", "session", "trial")
 MEASURE_KIND = "measure"
 RT = "rt_ms"
@@ -154,6 +156,19 @@ def read_physio(path: str | Path) -> PhysioTable:
     return PhysioTable(frame=frame, measures=tuple(measures), units=units, path=str(path))
 
 
+def wilson_interval(successes: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval of a share (Wilson 1927, JASA 22:209-212); NaN when n is 0."""
+    if n <= 0:
+        return (math.nan, math.nan)
+    from scipy.special import ndtri
+
+    z = float(ndtri(0.5 + confidence / 2.0))
+    p = successes / n
+    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
+    half = z / (1 + z * z / n) * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    return (max(0.0, centre - half), min(1.0, centre + half))
+
+
 def _bins(
     measure: str,
     stim_score: pd.Series,
@@ -176,15 +191,8 @@ def _bins(
         sel = (bin_of == b) & np.isfinite(y)
         values = y[sel]
         if share:
-            from statsmodels.stats.proportion import proportion_confint
-
-            count = int(values.sum())
             mean = values.mean() if values.size else math.nan
-            low, high = (
-                proportion_confint(count, values.size, alpha=0.05, method="wilson")
-                if values.size
-                else (math.nan, math.nan)
-            )
+            low, high = wilson_interval(int(values.sum()), int(values.size))
             interval = "wilson"
         else:
             mean, low, high = mean_ci(values)

@@ -83,7 +83,7 @@ def load_curve(
         ax.set_xlabel("Difficulty score of the stimulus (higher = harder)")
         ax.set_ylabel(f"{measure} ({units})" if units else measure)
         verdict = "U-shape shown" if result.significant else "no U-shape shown"
-        ax.set_title(f"{measure} by difficulty: two-lines test, {verdict} (n = {result.n})")
+        ax.set_title(f"{measure} by difficulty ({result.n} trials)\nTwo-lines test: {verdict}")
         ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0))
         ax.yaxis.grid(True, color=plots.GRID, linewidth=0.8)
     return fig

@@ -172,9 +172,9 @@ def smooth_fit(x: np.ndarray, y: np.ndarray) -> SmoothFit:
 
 
 def _robust_fit(y: np.ndarray, X: np.ndarray) -> tuple[np.ndarray, np.ndarray, str]:
-    import statsmodels.api as sm
+    from statsmodels.regression.linear_model import OLS
 
-    model = sm.OLS(y, X)
+    model = OLS(y, X)
     for cov in ("HC3", "HC1"):
         with np.errstate(divide="ignore", invalid="ignore"):
             fit = model.fit(cov_type=cov)
