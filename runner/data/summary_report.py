@@ -284,6 +284,12 @@ class _Citations:
                 self.keys.append(key)
         return "(" + "; ".join(keys) + ")"
 
+    def narrative(self, key: str) -> str:
+        """A citation as part of a sentence: ``Mathôt et al. (2018)``."""
+        self(key)
+        authors, _, year = key.rpartition(", ")
+        return f"{authors} ({year})"
+
     def references(self) -> list[str]:
         return sorted((REFERENCES[k] for k in self.keys), key=str.lower)
 
@@ -543,7 +549,7 @@ def _factor_section(
         if i["factor"] == factor
     ]
     if limits:
-        intro.append("; ".join(limits).capitalize() + ".")
+        intro.append(_upper_first("; ".join(limits)) + ".")
     blocks: list[report.Block] = [Paragraph(" ".join(intro))] if intro else []
     blocks.append(
         Table(
@@ -679,7 +685,7 @@ def _difficulty_section(
 _MEASURE_NAMES = {"rt_ms": "response time", "accuracy": "accuracy"}
 #: Physiological measures whose names hold these words cite the matching method paper.
 PUPIL_WORDS = ("pupil",)
-HEART_WORDS = ("hrv", "rmssd", "sdnn", "heart", "ibi", "hr_", "lf_hf", "pnn50")
+HRV_WORDS = ("hrv", "rmssd", "sdnn", "pnn50", "lf_hf")
 
 
 def p_value(p: float) -> str:
@@ -709,8 +715,22 @@ def significant(value: float, digits: int = 3) -> str:
     return f"{value:.{digits - 1}e}".replace("-", _MINUS)
 
 
-def _measure_name(name: str) -> str:
-    return _MEASURE_NAMES.get(name, name.replace("_", " "))
+# Words in physiological measure names that read better spelled out or in capitals.
+_MEASURE_WORDS = {"hr": "heart rate", "rmssd": "RMSSD", "sdnn": "SDNN", "hrv": "HRV", "eda": "EDA"}
+
+
+def _upper_first(text: str) -> str:
+    return text[:1].upper() + text[1:]
+
+
+def _measure_name(name: str, unit: str = "") -> str:
+    """A measure's name for text: ``hr_bpm`` (unit bpm) -> ``heart rate``."""
+    if name in _MEASURE_NAMES:
+        return _MEASURE_NAMES[name]
+    words = name.split("_")
+    if unit and len(words) > 1 and words[-1].lower() == unit.lower():
+        words = words[:-1]
+    return " ".join(_MEASURE_WORDS.get(w.lower(), w) for w in words)
 
 
 def _physio_measures(models: SummaryModels) -> list[str]:
@@ -860,7 +880,7 @@ def load_reading(name: str, unit: str, res: Any) -> str:
         if res.significant
         else f"so {shape} is not shown (that needs both slopes significant with opposite signs)"
     )
-    below = _slope_words(res.line1, name.capitalize(), unit)
+    below = _slope_words(res.line1, _upper_first(name), unit)
     above = _slope_words(res.line2, "it", unit)
     return (
         f"{below} below the break at a difficulty score of {number(res.break_point, 2)} and "
@@ -889,7 +909,7 @@ def _load_section(models: SummaryModels, figures: Mapping[str, Path], cite: _Cit
     rows = []
     for name, res in ld.results.items():
         unit = ld.units.get(name, "")
-        shown = _measure_name(name)
+        shown = _measure_name(name, unit)
         rows.append(
             {
                 "measure": shown + (f", {unit}" if unit else ""),
@@ -926,13 +946,13 @@ def _load_section(models: SummaryModels, figures: Mapping[str, Path], cite: _Cit
     for name, res in ld.results.items():
         if name not in figures:
             continue
-        shown = _measure_name(name)
+        shown = _measure_name(name, ld.units.get(name, ""))
         blocks.append(
             Image(
                 figures[name].read_bytes(),
                 alt=f"Mean {shown} in bins of the difficulty score with 95% intervals, a "
                 "smooth fit and the two lines of the test.",
-                caption=f"{shown.capitalize()} against the difficulty score: bin means with 95% "
+                caption=f"{_upper_first(shown)} against the difficulty score: bin means with 95% "
                 "intervals, a flexible fit, and the two lines meeting at the break.",
                 reading=load_reading(shown, ld.units.get(name, ""), res),
             )
@@ -1004,15 +1024,23 @@ def _methods_section(
             physio = _physio_measures(models)
             if any(w in m.lower() for m in physio for w in PUPIL_WORDS):
                 more.append(
-                    "Pupil size was preprocessed as recommended by "
-                    + cite("Mathôt et al., 2018")[1:-1]
-                    + " (blink reconstruction, subtractive baseline correction)."
+                    "Pupil size was cleaned of blinks and dropouts and corrected for its "
+                    "pre-trial baseline by subtraction, following "
+                    + cite.narrative("Mathôt et al., 2018")
+                    + "."
                 )
-            if any(w in m.lower() for m in physio for w in HEART_WORDS):
+            if any(w in m.lower() for m in physio for w in HRV_WORDS):
                 more.append(
-                    "Heart-rate measures follow the definitions of the "
-                    + cite("Task Force, 1996")[1:-1]
-                    + " standards."
+                    "Heart-rate variability measures follow the definitions of the "
+                    + cite.narrative("Task Force, 1996")
+                    + "."
+                )
+            if physio:
+                more.append(
+                    "The physiological measures ("
+                    + ", ".join(physio)
+                    + ") are per-trial values from the recordings, joined to the trials by "
+                    "participant, session and trial."
                 )
         if more:
             paragraphs.append(Paragraph(" ".join(more)))

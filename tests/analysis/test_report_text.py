@@ -333,3 +333,50 @@ def test_report_lists_exclusions_and_pooling(tmp_path: Path) -> None:
     excluded = parsed.tables[0]
     assert excluded[0] == ["participant", "session", "rule", "value", "threshold"]
     assert excluded[1:] == [["P009", "S1", "share of timed-out trials above", "62%", "50%"]]
+
+
+def test_report_with_physiology_cites_the_methods_used_and_reads_each_measure(tmp_path) -> None:
+    """With pupil and heart-rate measures, the methods cite Mathôt et al. (2018) for the pupil,
+    the Task Force (1996) only once a heart-rate variability measure is given, each measure gets
+    a figure reading under a plain name, and the caution about diagnoses is there.
+
+    Source: Mathôt et al. (2018), Behavior Research Methods 50, 94-106 (pupil preprocessing);
+    Task Force (1996), Circulation 93, 1043-1065 (HRV measures, not mean heart rate).
+    """
+    import json
+
+    from synthetic_physio import write_physio
+
+    from runner.data.load_curve import read_physio
+
+    trials, sessions = make_pool(5, 40)
+    main = trials[trials["part"] == "main"]
+    path = write_physio(main, tmp_path / "physio")
+
+    def report_text(out: Path) -> str:
+        write_summary(trials, sessions, out, factors=["nodes"], physio=read_physio(path))
+        html = (out / "report.html").read_text(encoding="utf-8")
+        return re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", html))
+
+    text = report_text(tmp_path / "pupil-hr")
+    assert "following Mathôt et al. (2018)" in text
+    assert "Mathôt, S., Fabius, J." in text
+    assert "Task Force" not in text  # mean heart rate is not a variability measure
+    assert re.search(r"Pupil mean change (rose|fell) \(b = ", text)
+    assert re.search(r"Heart rate (rose|fell) \(b = ", text)
+    assert "they are not diagnoses" in text
+
+    frame = pd.read_csv(path, dtype=str, keep_default_na=False)
+    frame["rmssd_ms"] = [f"{40 + k % 7}" for k in range(len(frame))]
+    frame.to_csv(path, index=False)
+    sidecar = path.with_suffix(".json")
+    meta = json.loads(sidecar.read_text(encoding="utf-8"))
+    meta["rmssd_ms"] = {
+        "Description": "RMSSD in the trial window.",
+        "Units": "ms",
+        "Kind": "measure",
+    }
+    sidecar.write_text(json.dumps(meta), encoding="utf-8")
+    text = report_text(tmp_path / "with-hrv")
+    assert "follow the definitions of the Task Force (1996)" in text
+    assert re.search(r"RMSSD (rose|fell) \(b = ", text)
