@@ -80,13 +80,15 @@ footer { margin-top: 3rem; padding-top: 0.6rem; border-top: 1px solid var(--hair
   nav.toc { display: none; }
   h2, h3, caption { break-after: avoid; page-break-after: avoid; }
   figure, .table-block, .note, ol.refs li { break-inside: avoid; page-break-inside: avoid; }
-  figure img { max-height: 105mm; width: auto; }
+  figure { margin: 0.5rem 0 0.9rem; }
+  figure img { max-height: 88mm; width: auto; }
   thead { display: table-header-group; }
   tr { break-inside: avoid; page-break-inside: avoid; }
   .scroll { overflow: visible; }
   table { font-size: 8pt; }
   a { color: inherit; text-decoration: none; border: 0; }
   p { orphans: 3; widows: 3; }
+  footer { break-before: avoid; page-break-before: avoid; margin-top: 1.5rem; }
 }
 """
 
