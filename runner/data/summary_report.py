@@ -334,7 +334,9 @@ def _share_text(value: Any) -> str:
     return MISSING_CELL if pd.isna(number_) else f"{100 * float(number_):.0f}%"
 
 
-def _exclusion_sentence(facts: dict[str, Any], exclusions: pd.DataFrame | None) -> str:
+def _exclusion_sentence(
+    facts: dict[str, Any], exclusions: pd.DataFrame | None, *, tabled: bool = False
+) -> str:
     excluded = facts.get("excluded") or []
     if exclusions is None and not excluded:
         return (
@@ -357,7 +359,8 @@ def _exclusion_sentence(facts: dict[str, Any], exclusions: pd.DataFrame | None) 
     n_people = len({str(e["participant"]) for e in excluded})
     return (
         f"{declared} excluded {count(len(excluded), 'session')} of "
-        f"{count(n_people, 'participant')}, left out of everything below (Table 1)."
+        f"{count(n_people, 'participant')}, left out of everything below"
+        + (" (Table 1)." if tabled else ".")
     )
 
 
@@ -459,7 +462,9 @@ def _participants_section(
         else f"{count(aborted, 'session')} ended early; the trials completed before the end "
         "are included."
     )
-    who.append(_exclusion_sentence(facts, exclusions))
+    excluded_table = _exclusions_table(facts, exclusions)
+    # The exclusions table is the report's first table when there is one.
+    who.append(_exclusion_sentence(facts, exclusions, tabled=excluded_table is not None))
     timed = facts["n_timed_out"]
     if timed:
         who.append(f"{count(timed, 'trial')} ({percent(timed / n_trials)}) reached the time limit.")
@@ -467,25 +472,31 @@ def _participants_section(
     if pooled:
         who.append(pooled)
     blocks.append(Paragraph(" ".join(who)))
-    excluded_table = _exclusions_table(facts, exclusions)
     if excluded_table is not None:
         blocks.append(excluded_table)
     dur, tps = facts["duration_s"], facts["trials_per_session"]
-    length = "Sessions lasted " + (
-        f"{number(dur['min'] / 60, 1)} to {number(dur['max'] / 60, 1)} min (median "
-        f"{number(dur['median'] / 60, 1)} min)"
-        if math.isfinite(dur["median"])
-        else "an unrecorded time"
-    )
-    if math.isfinite(tps["median"]):
+    one = n_sess == 1
+    length = "The session lasted " if one else "Sessions lasted "
+    if not math.isfinite(dur["median"]):
+        length += "an unrecorded time"
+    elif dur["min"] == dur["max"] or one:
+        length += f"{number(dur['median'] / 60, 1)} min" + ("" if one else " each")
+    else:
+        length += (
+            f"{number(dur['min'] / 60, 1)} to {number(dur['max'] / 60, 1)} min (median "
+            f"{number(dur['median'] / 60, 1)} min)"
+        )
+    if not math.isfinite(tps["median"]):
+        length += "."
+    elif tps["min"] == tps["max"] or one:
+        length += f" and held {count(int(tps['median']), 'completed trial')}" + (
+            "." if one else " each."
+        )
+    else:
         length += (
             f" and held {tps['min']:.0f} to {tps['max']:.0f} completed trials (median "
             f"{tps['median']:.0f})."
-            if tps["min"] != tps["max"]
-            else f" and held {count(int(tps['min']), 'completed trial')} each."
         )
-    else:
-        length += "."
     sim = facts.get("sim_rt_error_ms")
     if sim and sim.get("n"):
         length += (

@@ -217,6 +217,7 @@ def test_report_of_one_person_uses_the_singular(tmp_path: Path) -> None:
     assert "1 participant" in text and "1 session" in text
     assert "The session was run by the simulated participant" in text
     assert "1 session ended early" in text
+    assert re.search(r"The session lasted [0-9.]+ min and held 27 completed trials\.", text)
     parsed = _cells(html)
     assert parsed.h1 == "courier-hops"
     assert parsed.kicker == "Pilot summary"
