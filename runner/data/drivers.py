@@ -398,7 +398,28 @@ def difficulty_drivers(
         )
     score = scores["score"].astype(float)
     score.index = score.index.astype(str)
-    models, notes = all_subsets(score, table, max_predictors=max_predictors)
+    scored = score.dropna().index
+    notes: list[str] = []
+    gaps = table.reindex(scored).isna().sum()
+    partial = [name for name in kept if gaps[name] > 0]
+    if partial:
+        # A feature missing for some stimuli (a crossing angle where nothing crosses) would drop
+        # those stimuli from every model; it is left out instead.
+        notes.append(
+            ", ".join(f"{name} (missing for {int(gaps[name])} stimuli)" for name in partial)
+            + " left out: every model must use the same stimuli."
+        )
+        kept = tuple(name for name in kept if name not in partial)
+        table = table[list(kept)]
+    if not kept:
+        return DriversResult(
+            False,
+            "No stimulus feature has a value for every scored stimulus, so there is nothing to "
+            "model the score on.",
+            notes=tuple(notes),
+        )
+    models, subset_notes = all_subsets(score, table, max_predictors=max_predictors)
+    notes.extend(subset_notes)
     n = int(pd.concat([score, table], axis=1).dropna().shape[0])
     if models.empty:
         return DriversResult(

@@ -210,3 +210,17 @@ def test_no_features_means_no_models() -> None:
     scores = pd.DataFrame({"score": [0.1]}, index=pd.Index(["x"], name="stimulus"))
     result = difficulty_drivers(trials, scores)
     assert not result.available and "feature" in result.reason
+
+
+def test_feature_missing_for_some_stimuli_is_left_out() -> None:
+    """A crossing angle missing where nothing crosses is left out, not used to drop stimuli."""
+    from runner.data.difficulty import robust_difficulty
+
+    trials = _with_features(3)
+    first = sorted(trials["stimulus"].unique())[:4]
+    angle = trials["crossings"] * 3.0 + 10.0
+    trials["min_crossing_angle_deg"] = angle.where(~trials["stimulus"].isin(first))
+    result = difficulty_drivers(trials, robust_difficulty(trials).scores)
+    assert "min_crossing_angle_deg" not in result.features
+    assert result.n_stimuli == trials["stimulus"].nunique()
+    assert any("min_crossing_angle_deg (missing for 4 stimuli)" in n for n in result.notes)

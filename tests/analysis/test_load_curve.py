@@ -155,3 +155,14 @@ def test_wilson_interval_matches_statsmodels(k: int, n: int) -> None:
 
     assert wilson_interval(k, n) == pytest.approx(proportion_confint(k, n, method="wilson"))
     assert all(math.isnan(v) for v in wilson_interval(0, 0))
+
+
+def test_trial_keys_written_as_floats_still_join(tmp_path: Path) -> None:
+    """A trial number written 3.0 in the physiology table joins trial 3 of the trials table."""
+    trials = _main(2, 30)
+    path = write_physio(trials, tmp_path)
+    table = pd.read_csv(path, dtype=str, keep_default_na=False)
+    table["trial"] = table["trial"] + ".0"
+    table.to_csv(path, index=False)
+    result = load_relations(trials, robust_difficulty(trials).scores, physio=read_physio(path))
+    assert result.notes == (f"Physiology matched {len(trials)} of {len(trials)} trials.",)
