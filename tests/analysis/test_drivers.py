@@ -224,3 +224,23 @@ def test_feature_missing_for_some_stimuli_is_left_out() -> None:
     assert "min_crossing_angle_deg" not in result.features
     assert result.n_stimuli == trials["stimulus"].nunique()
     assert any("min_crossing_angle_deg (missing for 4 stimuli)" in n for n in result.notes)
+
+
+def test_best_model_predictions_are_leave_one_out_refits() -> None:
+    """Each stimulus's leave-one-out prediction equals a refit without it, evaluated at it.
+
+    Source: numpy least squares refitted once per left-out stimulus (stackloss data).
+    """
+    from runner.data.drivers import best_model_predictions
+
+    y, X = _stackloss()
+    X = X[["AIRFLOW", "WATERTEMP"]]
+    pred = best_model_predictions(y, X)
+    design = np.column_stack([np.ones(len(X)), X.to_numpy(dtype=float)])
+    yv = y.to_numpy(dtype=float)
+    for i in range(len(yv)):
+        keep = np.arange(len(yv)) != i
+        b, *_ = np.linalg.lstsq(design[keep], yv[keep], rcond=None)
+        assert pred["loo_predicted"].iloc[i] == pytest.approx(design[i] @ b, rel=1e-9)
+    full, *_ = np.linalg.lstsq(design, yv, rcond=None)
+    np.testing.assert_allclose(pred["fitted"].to_numpy(), design @ full, rtol=1e-9)

@@ -119,6 +119,8 @@ def test_write_summary_writes_model_files(tmp_path: Path) -> None:
     names = {p.name for p in paths}
     for name in (
         "difficulty_models.csv",
+        "difficulty_best_model.csv",
+        "difficulty_best_model.png",
         "difficulty_mixed.csv",
         "load_bins.csv",
         "load_twolines.csv",
@@ -137,6 +139,8 @@ def test_write_summary_writes_model_files(tmp_path: Path) -> None:
         "pupil_mean_change_mm",
         "hr_bpm",
     ]
+    best = pd.read_csv(out / "difficulty_best_model.csv")
+    assert list(best.columns) == ["stimulus", "score", "fitted", "loo_predicted"]
     tests = pd.read_csv(out / "load_twolines.csv")
     assert np.issubdtype(tests["break_point"].dtype, np.floating)
     html = (out / "report.html").read_text(encoding="utf-8")

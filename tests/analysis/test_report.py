@@ -34,8 +34,8 @@ def test_report_has_no_external_references(pilot_summary) -> None:
     html = (out / "report.html").read_text(encoding="utf-8")
     # Base64 text can hold "//" by chance; the data URIs themselves are checked separately.
     text = DATA_URI.sub("data-uri", html)
-    # 8 level plots (2 factors x 4) + load curves of response time and accuracy.
-    assert text.count("data-uri") == 10
+    # 8 level plots (2 factors x 4), the best difficulty model, load curves of RT and accuracy.
+    assert text.count("data-uri") == 11
     assert EXTERNAL.search(text) is None, EXTERNAL.search(text)
 
 
@@ -51,7 +51,7 @@ def test_report_embeds_every_plot(pilot_summary) -> None:
     assert all(src.startswith(prefix) for src in parser.sources)
     embedded = sorted(base64.b64decode(src[len(prefix) :]) for src in parser.sources)
     written = sorted(p.read_bytes() for p in paths if p.suffix == ".png")
-    assert len(written) == 10
+    assert len(written) == 11
     assert embedded == written
 
 
