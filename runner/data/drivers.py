@@ -95,6 +95,9 @@ MODEL_COLUMNS = (
     "coefficients",
 )
 
+#: The best model's fit per stimulus: its score, fitted value and leave-one-out prediction.
+PREDICTION_COLUMNS = ("score", "fitted", "loo_predicted")
+
 
 @dataclass(frozen=True)
 class MixedModelResult:
@@ -123,6 +126,9 @@ class DriversResult:
     models: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=MODEL_COLUMNS))
     caution: str = MANY_MODELS_CAUTION
     notes: tuple[str, ...] = ()
+    predictions: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame(columns=PREDICTION_COLUMNS)
+    )
     mixed: MixedModelResult = field(
         default_factory=lambda: MixedModelResult(False, "no difficulty model")
     )
@@ -398,7 +404,28 @@ def difficulty_drivers(
         )
     score = scores["score"].astype(float)
     score.index = score.index.astype(str)
-    models, notes = all_subsets(score, table, max_predictors=max_predictors)
+    scored = score.dropna().index
+    notes: list[str] = []
+    gaps = table.reindex(scored).isna().sum()
+    partial = [name for name in kept if gaps[name] > 0]
+    if partial:
+        # A feature missing for some stimuli (a crossing angle where nothing crosses) would drop
+        # those stimuli from every model; it is left out instead.
+        notes.append(
+            ", ".join(f"{name} (missing for {int(gaps[name])} stimuli)" for name in partial)
+            + " left out: every model must use the same stimuli."
+        )
+        kept = tuple(name for name in kept if name not in partial)
+        table = table[list(kept)]
+    if not kept:
+        return DriversResult(
+            False,
+            "No stimulus feature has a value for every scored stimulus, so there is nothing to "
+            "model the score on.",
+            notes=tuple(notes),
+        )
+    models, subset_notes = all_subsets(score, table, max_predictors=max_predictors)
+    notes.extend(subset_notes)
     n = int(pd.concat([score, table], axis=1).dropna().shape[0])
     if models.empty:
         return DriversResult(
@@ -415,7 +442,31 @@ def difficulty_drivers(
         n_stimuli=n,
         models=models,
         notes=tuple(notes),
+        predictions=best_model_predictions(score, table[best]),
         mixed=mixed_model(trials, table, best),
+    )
+
+
+def best_model_predictions(score: pd.Series, features: pd.DataFrame) -> pd.DataFrame:
+    """Fitted values and leave-one-out predictions of one OLS model, per stimulus.
+
+    The leave-one-out prediction of stimulus i is ``y_i - e_i / (1 - h_ii)``: what the model
+    fitted without that stimulus predicts for it.
+    """
+    from statsmodels.regression.linear_model import OLS
+
+    data = pd.concat([score.rename("score"), features], axis=1).dropna()
+    design = np.column_stack([np.ones(len(data)), data[features.columns].to_numpy(dtype=float)])
+    y = data["score"].to_numpy(dtype=float)
+    fit = OLS(y, design).fit()
+    resid = np.asarray(fit.resid, dtype=float)
+    q, _ = np.linalg.qr(design)
+    h = np.sum(q**2, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        loo = y - resid / (1.0 - h)
+    return pd.DataFrame(
+        {"score": y, "fitted": y - resid, "loo_predicted": loo},
+        index=data.index,
     )
 
 

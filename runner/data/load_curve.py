@@ -156,6 +156,11 @@ def read_physio(path: str | Path) -> PhysioTable:
     return PhysioTable(frame=frame, measures=tuple(measures), units=units, path=str(path))
 
 
+def _key_text(values: pd.Series) -> pd.Series:
+    """Key values as text, a whole number written as a float (3.0) read as 3."""
+    return values.astype(str).str.strip().str.replace(r"^(-?\d+)\.0+$", r"\1", regex=True)
+
+
 def wilson_interval(successes: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
     """Wilson score interval of a share (Wilson 1927, JASA 22:209-212); NaN when n is 0."""
     if n <= 0:
@@ -291,9 +296,9 @@ def load_relations(
     notes: list[str] = []
     units = {RT: "ms", ACCURACY: "share correct"}
     if physio is not None:
-        keys = pd.MultiIndex.from_arrays([trials[k].astype(str) for k in PHYSIO_KEYS])
+        keys = pd.MultiIndex.from_arrays([_key_text(trials[k]) for k in PHYSIO_KEYS])
         frame = physio.frame
-        pkeys = pd.MultiIndex.from_arrays([frame[k].astype(str) for k in PHYSIO_KEYS])
+        pkeys = pd.MultiIndex.from_arrays([_key_text(frame[k]) for k in PHYSIO_KEYS])
         if pkeys.has_duplicates:
             raise InputFileError(
                 f"The physiology table {physio.path!r} has more than one row for a trial "

@@ -1,4 +1,5 @@
-"""Plots of the pilot report's models: a measure against the difficulty score, with two lines.
+"""Plots of the pilot report's models: a measure against the difficulty score, with two lines,
+and the best difficulty model's predictions.
 
 Drawn like :mod:`runner.data.plots` (Agg canvas, the same style and palette, deterministic).
 """
@@ -84,6 +85,51 @@ def load_curve(
         ax.set_ylabel(f"{measure} ({units})" if units else measure)
         verdict = "U-shape shown" if result.significant else "no U-shape shown"
         ax.set_title(f"{measure} by difficulty ({result.n} trials)\nTwo-lines test: {verdict}")
+        ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0))
+        ax.yaxis.grid(True, color=plots.GRID, linewidth=0.8)
+    return fig
+
+
+def best_model_fit(predictions: pd.DataFrame, *, predictors: str, cv_rmse: float) -> Figure:
+    """Each stimulus's score against the best model's leave-one-out prediction.
+
+    Parameters
+    ----------
+    predictions : pd.DataFrame
+        ``DriversResult.predictions`` (``score``, ``fitted``, ``loo_predicted`` per stimulus).
+    predictors : str
+        The model's features, for the title.
+    cv_rmse : float
+        Its leave-one-out RMSE, for the title.
+
+    Returns
+    -------
+    Figure
+    """
+    with plots._style():
+        fig, ax = plots._new_figure()
+        obs = predictions["score"].to_numpy(dtype=float)
+        loo = predictions["loo_predicted"].to_numpy(dtype=float)
+        ok = np.isfinite(obs) & np.isfinite(loo)
+        lo = float(min(obs[ok].min(), loo[ok].min())) if ok.any() else -1.0
+        hi = float(max(obs[ok].max(), loo[ok].max())) if ok.any() else 1.0
+        ax.plot([lo, hi], [lo, hi], color=plots.GRID, linewidth=1.4, zorder=0, label="y = x")
+        ax.scatter(
+            loo[ok],
+            obs[ok],
+            s=28,
+            color=plots.ACCENT,
+            alpha=0.8,
+            edgecolors="white",
+            linewidths=0.5,
+            label="stimulus",
+        )
+        ax.set_xlabel("Predicted score, model fitted without the stimulus (leave-one-out)")
+        ax.set_ylabel("Difficulty score (higher = harder)")
+        ax.set_title(
+            f"Best model: {predictors} ({int(ok.sum())} stimuli)\n"
+            f"Leave-one-out RMSE {cv_rmse:.3g} (score units)"
+        )
         ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0))
         ax.yaxis.grid(True, color=plots.GRID, linewidth=0.8)
     return fig

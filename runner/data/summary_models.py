@@ -23,9 +23,12 @@ from runner.data import plots, report
 from runner.data.difficulty import RobustDifficulty, difficulty_facts, robust_difficulty
 from runner.data.drivers import DriversResult, difficulty_drivers, drivers_facts
 from runner.data.load_curve import LoadResult, PhysioTable, load_facts, load_relations
-from runner.data.plots_load import load_curve
+from runner.data.plots_load import best_model_fit, load_curve
 
 MODELS_CSV = "difficulty_models.csv"
+PREDICTIONS_CSV = "difficulty_best_model.csv"
+#: Key of the best-model figure in :func:`write_model_figures`'s result.
+BEST_MODEL = "best_model"
 MIXED_CSV = "difficulty_mixed.csv"
 LOAD_BINS_CSV = "load_bins.csv"
 LOAD_TESTS_CSV = "load_twolines.csv"
@@ -88,6 +91,7 @@ def model_tables(models: SummaryModels) -> dict[str, pd.DataFrame]:
     tables: dict[str, pd.DataFrame] = {}
     if models.drivers.available:
         tables[MODELS_CSV] = models.drivers.models
+        tables[PREDICTIONS_CSV] = models.drivers.predictions.reset_index()
         if models.drivers.mixed.available:
             tables[MIXED_CSV] = models.drivers.mixed.coefficients
     if models.load.available:
@@ -103,8 +107,21 @@ def _stem(name: str) -> str:
 def write_model_figures(
     models: SummaryModels, out_dir: Path, *, stem: Callable[[str], str] = _stem
 ) -> dict[str, Path]:
-    """Write ``load_<measure>.png`` per related measure; return measure -> path."""
+    """Write ``difficulty_best_model.png`` and ``load_<measure>.png`` per related measure.
+
+    Returns
+    -------
+    dict
+        :data:`BEST_MODEL` or the measure name -> path written.
+    """
     out: dict[str, Path] = {}
+    dr = models.drivers
+    if dr.available:
+        best = dr.models.iloc[0]
+        fig = best_model_fit(
+            dr.predictions, predictors=str(best["predictors"]), cv_rmse=float(best["cv_rmse"])
+        )
+        out[BEST_MODEL] = plots.save_png(fig, Path(out_dir) / "difficulty_best_model.png")
     load = models.load
     if not load.available:
         return out
@@ -190,7 +207,14 @@ def report_sections(models: SummaryModels, figures: Mapping[str, Path]) -> list[
             )
         else:
             paras.append(f"Mixed model: {mixed.reason}")
-        sections.append(report.Section("What drives difficulty", paras, tables))
+        images = []
+        if BEST_MODEL in figures:
+            caption = (
+                "Each stimulus's difficulty score against the best model's prediction when that "
+                "stimulus is left out; points near the line are well predicted."
+            )
+            images.append(report.Image(figures[BEST_MODEL].read_bytes(), caption, caption))
+        sections.append(report.Section("What drives difficulty", paras, tables, images))
     elif dr.reason:
         sections.append(report.Section("What drives difficulty", [dr.reason]))
     ld = models.load

@@ -775,7 +775,34 @@ def _score_method_blocks(d: Any, cite: _Citations) -> list[report.Block]:
     return [Paragraph(text)]
 
 
-def _drivers_section(models: SummaryModels, cite: _Citations) -> Section:
+def _best_model_figure(models: SummaryModels, path: Path) -> Image:
+    dr = models.drivers
+    best = dr.models.iloc[0]
+    pred = dr.predictions
+    reading = ""
+    if {"score", "loo_predicted"} <= set(pred.columns):
+        pairs = pred[["score", "loo_predicted"]].astype(float).dropna()
+        if len(pairs) >= 3 and pairs.std().gt(0).all():
+            r = float(np.corrcoef(pairs["score"], pairs["loo_predicted"])[0, 1])
+            reading = (
+                f"The scores of the {count(len(pairs), 'stimulus')} correlated r = "
+                f"{number(r, 2)} with their prediction by the model fitted without them "
+                "(leave-one-out RMSE "
+                f"{number(float(best['cv_rmse']), 2)} score units)."
+            )
+    return Image(
+        path.read_bytes(),
+        alt="Difficulty score of each stimulus against the best model's leave-one-out "
+        "prediction, with the line of perfect prediction.",
+        caption=f"Difficulty score against the leave-one-out prediction of the best model "
+        f"({best['predictors']}); points on the grey line are predicted exactly.",
+        reading=reading,
+    )
+
+
+def _drivers_section(
+    models: SummaryModels, cite: _Citations, figures: Mapping[str, Path] | None = None
+) -> Section:
     dr = models.drivers
     title = "What drives difficulty"
     if not dr.available:
@@ -833,6 +860,10 @@ def _drivers_section(models: SummaryModels, cite: _Citations) -> Section:
             "error, in score units.",
         )
     )
+    from runner.data.summary_models import BEST_MODEL
+
+    if figures and BEST_MODEL in figures:
+        blocks.append(_best_model_figure(models, figures[BEST_MODEL]))
     blocks.append(Paragraph(dr.caution, "note"))
     if "Burnham" in dr.caution:
         cite("Burnham & Anderson, 2002")
@@ -1152,7 +1183,7 @@ def build_report(
     ]
     results.append(_difficulty_section(difficulty, cite, difficulty_figures, ordered))
     if models is not None:
-        results.append(_drivers_section(models, cite))
+        results.append(_drivers_section(models, cite, model_figures))
         results.append(_load_section(models, model_figures or {}, cite))
     results.extend(extra_sections)
     sections = [

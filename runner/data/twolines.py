@@ -49,6 +49,9 @@ MIDDLE_QUANTILES = (0.1, 0.9)
 LAMBDA_GRID = tuple(float(v) for v in np.logspace(-9, 1, 41))
 #: A smoothing spline needs this many distinct x values (scipy's minimum is 5).
 MIN_DISTINCT_X = 5
+#: More distinct x values than this are pooled into this many neighbouring groups for the
+#: flexible fit (per-stimulus scores stay far below it).
+MAX_SMOOTH_POINTS = 300
 
 INVERTED_U = "inverted_u"
 U_SHAPE = "u"
@@ -131,7 +134,8 @@ def smooth_fit(x: np.ndarray, y: np.ndarray) -> SmoothFit:
     Returns
     -------
     SmoothFit
-        Values at the distinct x (sorted).
+        Values at the distinct x (sorted); above :data:`MAX_SMOOTH_POINTS` distinct values, at
+        the mean x of each group of neighbouring values.
 
     Raises
     ------
@@ -143,6 +147,15 @@ def smooth_fit(x: np.ndarray, y: np.ndarray) -> SmoothFit:
     xs, inverse, counts = np.unique(x, return_inverse=True, return_counts=True)
     if xs.size < MIN_DISTINCT_X:
         raise ValueError(f"a smoothing spline needs {MIN_DISTINCT_X} distinct x values")
+    if xs.size > MAX_SMOOTH_POINTS:
+        # Neighbouring distinct values are pooled into MAX_SMOOTH_POINTS groups of about equal
+        # size (the smoother's hat matrix is square in the number of points).
+        group_of = np.zeros(xs.size, dtype=np.intp)
+        for g, idx in enumerate(np.array_split(np.arange(xs.size), MAX_SMOOTH_POINTS)):
+            group_of[idx] = g
+        inverse = group_of[inverse]
+        counts = np.bincount(inverse, minlength=MAX_SMOOTH_POINTS)
+        xs = np.bincount(inverse, weights=x) / counts
     w = counts.astype(float)
     ybar = np.bincount(inverse, weights=y) / w
     within = float(np.sum((y - ybar[inverse]) ** 2))

@@ -210,3 +210,37 @@ def test_no_features_means_no_models() -> None:
     scores = pd.DataFrame({"score": [0.1]}, index=pd.Index(["x"], name="stimulus"))
     result = difficulty_drivers(trials, scores)
     assert not result.available and "feature" in result.reason
+
+
+def test_feature_missing_for_some_stimuli_is_left_out() -> None:
+    """A crossing angle missing where nothing crosses is left out, not used to drop stimuli."""
+    from runner.data.difficulty import robust_difficulty
+
+    trials = _with_features(3)
+    first = sorted(trials["stimulus"].unique())[:4]
+    angle = trials["crossings"] * 3.0 + 10.0
+    trials["min_crossing_angle_deg"] = angle.where(~trials["stimulus"].isin(first))
+    result = difficulty_drivers(trials, robust_difficulty(trials).scores)
+    assert "min_crossing_angle_deg" not in result.features
+    assert result.n_stimuli == trials["stimulus"].nunique()
+    assert any("min_crossing_angle_deg (missing for 4 stimuli)" in n for n in result.notes)
+
+
+def test_best_model_predictions_are_leave_one_out_refits() -> None:
+    """Each stimulus's leave-one-out prediction equals a refit without it, evaluated at it.
+
+    Source: numpy least squares refitted once per left-out stimulus (stackloss data).
+    """
+    from runner.data.drivers import best_model_predictions
+
+    y, X = _stackloss()
+    X = X[["AIRFLOW", "WATERTEMP"]]
+    pred = best_model_predictions(y, X)
+    design = np.column_stack([np.ones(len(X)), X.to_numpy(dtype=float)])
+    yv = y.to_numpy(dtype=float)
+    for i in range(len(yv)):
+        keep = np.arange(len(yv)) != i
+        b, *_ = np.linalg.lstsq(design[keep], yv[keep], rcond=None)
+        assert pred["loo_predicted"].iloc[i] == pytest.approx(design[i] @ b, rel=1e-9)
+    full, *_ = np.linalg.lstsq(design, yv, rcond=None)
+    np.testing.assert_allclose(pred["fitted"].to_numpy(), design @ full, rtol=1e-9)

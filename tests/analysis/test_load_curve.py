@@ -119,6 +119,8 @@ def test_write_summary_writes_model_files(tmp_path: Path) -> None:
     names = {p.name for p in paths}
     for name in (
         "difficulty_models.csv",
+        "difficulty_best_model.csv",
+        "difficulty_best_model.png",
         "difficulty_mixed.csv",
         "load_bins.csv",
         "load_twolines.csv",
@@ -137,6 +139,8 @@ def test_write_summary_writes_model_files(tmp_path: Path) -> None:
         "pupil_mean_change_mm",
         "hr_bpm",
     ]
+    best = pd.read_csv(out / "difficulty_best_model.csv")
+    assert list(best.columns) == ["stimulus", "score", "fitted", "loo_predicted"]
     tests = pd.read_csv(out / "load_twolines.csv")
     assert np.issubdtype(tests["break_point"].dtype, np.floating)
     html = (out / "report.html").read_text(encoding="utf-8")
@@ -155,3 +159,14 @@ def test_wilson_interval_matches_statsmodels(k: int, n: int) -> None:
 
     assert wilson_interval(k, n) == pytest.approx(proportion_confint(k, n, method="wilson"))
     assert all(math.isnan(v) for v in wilson_interval(0, 0))
+
+
+def test_trial_keys_written_as_floats_still_join(tmp_path: Path) -> None:
+    """A trial number written 3.0 in the physiology table joins trial 3 of the trials table."""
+    trials = _main(2, 30)
+    path = write_physio(trials, tmp_path)
+    table = pd.read_csv(path, dtype=str, keep_default_na=False)
+    table["trial"] = table["trial"] + ".0"
+    table.to_csv(path, index=False)
+    result = load_relations(trials, robust_difficulty(trials).scores, physio=read_physio(path))
+    assert result.notes == (f"Physiology matched {len(trials)} of {len(trials)} trials.",)

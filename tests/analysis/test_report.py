@@ -69,8 +69,8 @@ def test_report_has_no_external_references(pilot_summary) -> None:
     html = (out / "report.html").read_text(encoding="utf-8")
     # Base64 text can hold "//" by chance; the data URIs themselves are checked separately.
     text = DATA_URI.sub("data-uri", html)
-    # 8 level plots (2 factors x 4) + load curves of response time and accuracy.
-    assert text.count("data-uri") == 10
+    # 8 level plots (2 factors x 4), the best difficulty model, load curves of RT and accuracy.
+    assert text.count("data-uri") == 11
     assert EXTERNAL.search(text) is None, EXTERNAL.search(text)
 
 
@@ -86,7 +86,7 @@ def test_report_embeds_every_plot(pilot_summary) -> None:
     assert all(src.startswith(prefix) for src in parser.sources)
     embedded = sorted(base64.b64decode(src[len(prefix) :]) for src in parser.sources)
     written = sorted(p.read_bytes() for p in paths if p.suffix == ".png")
-    assert len(written) == 10
+    assert len(written) == 11
     assert embedded == written
 
 
@@ -127,7 +127,7 @@ def test_report_links_only_to_itself_and_describes_every_image(pilot_summary) ->
     assert parser.sources and all(s.startswith("data:image/png;base64,") for s in parser.sources)
     assert all(alt and alt.strip() for alt in parser.alts)
     figures = [c for c in parser.captions if c.startswith("Figure")]
-    assert len(figures) == len(parser.sources) == 10
+    assert len(figures) == len(parser.sources) == 11
     readings = (
         "Accuracy ",
         "Mean response time ",
@@ -135,6 +135,7 @@ def test_report_links_only_to_itself_and_describes_every_image(pilot_summary) ->
         "The mean difficulty",
         "Response time rose",
         "Accuracy fell",
+        "The scores of the ",
     )
     for caption in figures:
         assert any(r in caption for r in readings), caption

@@ -381,3 +381,18 @@ def test_report_with_physiology_cites_the_methods_used_and_reads_each_measure(tm
     text = report_text(tmp_path / "with-hrv")
     assert "follow the definitions of the Task Force (1996)" in text
     assert re.search(r"RMSSD (rose|fell) \(b = ", text)
+
+
+def test_best_model_reading_gives_the_leave_one_out_correlation(pilot_summary) -> None:
+    """The best model figure's reading gives Pearson's r of score and leave-one-out prediction.
+
+    Source: scipy.stats.pearsonr on difficulty_best_model.csv of the same summary.
+    """
+    out, _ = pilot_summary
+    table = pd.read_csv(out / "difficulty_best_model.csv").dropna(subset=["score", "loo_predicted"])
+    r = stats.pearsonr(table["score"], table["loo_predicted"]).statistic
+    html = (out / "report.html").read_text(encoding="utf-8")
+    found = re.search(r"The scores of the (\d+) stimuli correlated r = (\S+) with", html)
+    assert found is not None
+    assert int(found.group(1)) == len(table)
+    assert float(found.group(2).replace("\u2212", "-")) == pytest.approx(r, abs=0.0051)

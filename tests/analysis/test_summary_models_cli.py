@@ -54,6 +54,10 @@ def test_summary_command_relates_physiology_to_difficulty(
     assert {"difficulty", "drivers", "load"} <= set(facts)
     measures = [m["measure"] for m in facts["load"]["measures"]]
     assert facts["difficulty"]["available"] and measures == ["rt_ms", "accuracy", "hr_bpm"]
+    matched = [n for n in facts["load"]["notes"] if n.startswith("Physiology matched")]
+    assert len(matched) == 1
+    _, count, _, total, _ = matched[0].rsplit(" ", 4)
+    assert count == total and int(total) > 0
     with (out / "load_twolines.csv").open(encoding="utf-8") as fh:
         rows = list(csv.DictReader(fh))
     assert [r["measure"] for r in rows] == measures

@@ -146,3 +146,18 @@ def test_too_few_distinct_values_is_not_tested() -> None:
     x = np.repeat([1.0, 2.0, 3.0, 4.0], 10)
     res = two_lines(x, x * 2.0 + np.sin(np.arange(x.size)))
     assert not res.available and "distinct" in res.reason
+
+
+def test_many_distinct_values_are_pooled_for_the_smoother() -> None:
+    """3,000 distinct x values: the smoother works on 300 groups and the inverted U is found.
+
+    Source: synthetic inverted U with its peak at x = 5 (numpy's frozen RandomState);
+    Simonsohn 2018's decision rule.
+    """
+    from runner.data.twolines import MAX_SMOOTH_POINTS
+
+    x = np.linspace(0.0, 10.0, 3000)
+    y = 1.0 + 1.2 * x - 0.12 * x**2 + np.random.RandomState(7).normal(0, 1.0, x.size)
+    res = two_lines(x, y)
+    assert res.smooth is not None and res.smooth.x.size == MAX_SMOOTH_POINTS
+    assert res.significant and 3.5 < res.break_point < 6.5
