@@ -30,6 +30,7 @@ __all__ = [
     "LABEL_COLUMNS",
     "NA",
     "digits_for",
+    "read_table",
     "round_facts",
     "round_table",
     "round_value",
@@ -108,3 +109,16 @@ def round_facts(value: Any, key: str = "") -> Any:
     if isinstance(value, (float, np.floating)):
         return round_value(float(value), key)
     return value
+
+
+def read_table(path: str | Path, **kwargs: Any) -> pd.DataFrame:
+    """Read a CSV table trialdeck wrote, with its labels kept as text.
+
+    The same as ``pd.read_csv(path, dtype={label: str for each label column present})``: empty
+    cells are missing values, numbers are numbers, and a participant ``007`` stays ``"007"``.
+    Extra keyword arguments go to :func:`pandas.read_csv`.
+    """
+    header = pd.read_csv(path, nrows=0)
+    dtype = {c: str for c in LABEL_COLUMNS if c in header.columns}
+    dtype.update(kwargs.pop("dtype", None) or {})
+    return pd.read_csv(path, dtype=dtype, **kwargs)

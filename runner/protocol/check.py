@@ -379,6 +379,7 @@ class _Checker:
     # -- steps -----------------------------------------------------------------------------
     def run(self, participants: int | None) -> None:
         self.counts()
+        self.pilot_and_exclusions()
         self.expected()
         self.texts()
         self.contrast()
@@ -410,6 +411,30 @@ class _Checker:
         unused = len(self.loaded.table.rows) - len(used)
         if unused:
             self.fact(f"{unused} row(s) of the trial table are not used by any sequence step")
+
+    def pilot_and_exclusions(self) -> None:
+        """Facts: the pilot's difficulty range over the main trials, and the exclusion rules."""
+        model = self.loaded.model
+        pilot = model.pilot
+        main = [t for t in self.schedule.trials if t.part == "main"]
+        if main:
+            ds = [pilot.difficulty_of(t.expected, t.values) for t in main]
+            weights = ", ".join(f"{w:g} x {c}" for c, w in pilot.difficulty.items())
+            line = (
+                f"simulated participant's difficulty ({weights}): {min(ds):.3g} to "
+                f"{max(ds):.3g} over participant 1's main trials"
+            )
+            if pilot.give_up_difficulty is not None:
+                n = sum(d >= pilot.give_up_difficulty for d in ds)
+                line += f"; gives up ({pilot.give_up}) on {n} of {len(ds)}"
+            self.fact(line)
+        rules = model.exclusions
+        if rules is not None:
+            given = {k: v for k, v in rules.model_dump().items() if v is not None}
+            self.fact(
+                "pre-declared exclusions: "
+                + (", ".join(f"{k} {v:g}" for k, v in given.items()) or "none given")
+            )
 
     def expected(self) -> None:
         found: list[tuple[int, str]] = []

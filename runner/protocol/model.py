@@ -6,9 +6,10 @@ Field names are the protocol's own vocabulary; docs/protocol.md documents each o
 
 from __future__ import annotations
 
+import math
 import re
 import string
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from typing import Annotated, Any, Literal
 
 from pydantic import (
@@ -620,6 +621,19 @@ class PilotSettings(Strict):
         description="How the participant gives up: press the unsure key, or answer nothing and"
         " let the time limit end the trial (unsure when no limit applies).",
     )
+
+    def difficulty_of(self, expected: int | None, values: Mapping[str, str]) -> float:
+        """A trial's difficulty: the weighted sum of its table values (``expected`` for the
+        expected count); a missing, empty or non-numeric value counts 0."""
+        total = 0.0
+        for column, weight in self.difficulty.items():
+            raw: object = expected if column == "expected" else values.get(column)
+            try:
+                value = float(str(raw)) if raw is not None else 0.0
+            except ValueError:
+                value = 0.0
+            total += weight * (value if math.isfinite(value) else 0.0)
+        return total
 
 
 class Protocol(Strict):

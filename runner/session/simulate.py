@@ -24,7 +24,6 @@ The model's numbers are invented for piloting the software; they are not a model
 from __future__ import annotations
 
 import heapq
-import math
 import random
 import threading
 import time
@@ -60,22 +59,9 @@ class TrialPlan:
     timeout: bool = False  # give up by answering nothing until the time limit
 
 
-def _number(text: object) -> float:
-    try:
-        value = float(str(text))
-    except ValueError:
-        return 0.0
-    return value if math.isfinite(value) else 0.0
-
-
 def trial_difficulty(trial: ScheduledTrial, settings: PilotSettings) -> float:
-    """The pilot's difficulty of a trial: the weighted sum of its table columns (a missing or
-    empty value counts 0; ``expected`` is the expected count)."""
-    total = 0.0
-    for column, weight in settings.difficulty.items():
-        raw = trial.expected if column == "expected" else trial.values.get(column)
-        total += weight * (0.0 if raw is None else _number(raw))
-    return total
+    """The pilot's difficulty of a trial (:meth:`PilotSettings.difficulty_of`)."""
+    return settings.difficulty_of(trial.expected, trial.values)
 
 
 def plan_trial(

@@ -9,12 +9,16 @@ from pathlib import Path
 import pandas as pd
 import pytest
 from export_pilots import MINI_PROTOCOL
+from rread import needs_r, same_kinds
 
 from runner.cli import main
 
 pytestmark = pytest.mark.slow  # runs pilot sessions in real time
 
-RULES = "exclusions: {unsure_share_above: 0.5, timed_out_share_above: 0.9}\n"
+RULES = (
+    "exclusions: {unsure_share_above: 0.5, timed_out_share_above: 0.9,"
+    " physio_valid_share_below: 0.5}\n"
+)
 ALWAYS_UNSURE = "pilot: {unsure_at_zero: 1.0, unsure_max: 1.0}\n"
 
 
@@ -109,3 +113,38 @@ def test_alike_sessions_pool_without_the_option(pilots, tmp_path):
     assert main(["summary", str(pilots["alike"]), "--out", str(tmp_path / "s")]) == 0
     trials = pd.read_csv(tmp_path / "x" / "trials.csv", dtype={"participant": str})
     assert set(trials["participant"]) == {"P01", "P02"}
+
+
+@needs_r
+def test_r_reads_the_exported_tables_as_pandas_does(pilots, tmp_path):
+    """The export's trials.csv and exclusions.csv read back with the same column kinds in R's
+    read.csv and pandas (empty cells are missing numbers, not text).
+    Source: R's utils::read.csv (R from the system packages), run with Rscript."""
+    root = str(pilots["protocols"])
+    assert main(["export", root, "--out", str(tmp_path / "x"), "--pool-unlike"]) == 0
+    same_kinds([tmp_path / "x" / "trials.csv", tmp_path / "x" / "exclusions.csv"])
+
+
+def test_physiology_table_excludes_through_the_command_line(pilots, tmp_path, capsys):
+    """--physio gives export and summary the per-trial validity: a session with too few valid
+    trials is excluded by both; without the table the rule is listed as not judged."""
+    # Laid out as `trialdeck physio` writes it: physio_trials.csv with a JSON sidecar.
+    physio = tmp_path / "physio_trials.csv"
+    physio.write_text(
+        "participant,session,trial,valid\nP01,1,1,1\nP01,1,2,1\nP02,1,1,0\nP02,1,2,1\nP02,1,3,0\n",
+        encoding="utf-8",
+    )
+    sidecar = {"valid": {"Description": "1 when the trial's physiology is valid"}}
+    physio.with_suffix(".json").write_text(json.dumps(sidecar), encoding="utf-8")
+    root = str(pilots["alike"])
+    for verb, out in (("export", tmp_path / "x"), ("summary", tmp_path / "s")):
+        assert main([verb, root, "--out", str(out), "--physio", str(physio)]) == 0
+        table = pd.read_csv(out / "exclusions.csv", dtype={"participant": str, "session": str})
+        rule = table[table["rule"] == "physio_valid_share_below"].set_index("participant")
+        assert rule.loc["P02", "excluded"] == 1 and rule.loc["P02", "value"] == 0.3333
+        assert rule.loc["P01", "excluded"] == 0 and rule.loc["P01", "value"] == 1.0
+    assert capsys.readouterr().out.count("Excluded participant P02 session 1") == 2
+    assert main(["summary", root, "--out", str(tmp_path / "none")]) == 0
+    table = pd.read_csv(tmp_path / "none" / "exclusions.csv")
+    notes = set(table.loc[table["rule"] == "physio_valid_share_below", "note"])
+    assert notes == {"no physiology table given"}

@@ -9,17 +9,16 @@ from __future__ import annotations
 import json
 import math
 import re
-import shutil
-import subprocess
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from rread import needs_r, r_classes, same_kinds
 from synthetic import make_pool
 
 from runner.data.summary import write_summary
-from runner.data.tables import NA, digits_for, round_facts, round_table, write_table
+from runner.data.tables import NA, digits_for, read_table, round_facts, round_table, write_table
 
 NUMBER = re.compile(r"(?<![\w.])-?\d+\.\d+(?:[eE][-+]?\d+)?")
 MAX_DIGITS = 12  # 6 decimals of seconds up to 10^6 s; never the 16 or 17 of a raw float
@@ -104,43 +103,14 @@ def test_pandas_reads_numbers_as_numbers_and_labels_with_the_documented_dtype(la
     )
     assert list(as_text["participant"]) == ["007", "010", "011"]
     assert people["rating_mean"].isna().sum() == 1
+    assert list(read_table(labelled_summary / "participants.csv")["participant"]) == [
+        "007",
+        "010",
+        "011",
+    ]
     levels = pd.read_csv(labelled_summary / "levels_nodes.csv")
     assert all(pd.api.types.is_numeric_dtype(levels[c]) for c in levels.columns)
     assert levels["rt_mean_ms"].isna().sum() == 1
-
-
-def _r_classes(paths: list[Path], colclasses: str = "NA") -> dict[str, dict[str, str]]:
-    script = (
-        "args <- commandArgs(trailingOnly = TRUE)\n"
-        "for (f in args) {\n"
-        f"  d <- read.csv(f, colClasses = {colclasses})\n"
-        "  for (n in names(d)) {\n"
-        "    cat(basename(f), n, class(d[[n]])[1],\n"
-        "        paste(head(as.character(d[[n]]), 3), collapse = '|'), sep = '\\t')\n"
-        "    cat('\\n')\n"
-        "  }\n"
-        "}\n"
-    )
-    done = subprocess.run(
-        ["Rscript", "-e", script, *map(str, paths)],
-        capture_output=True,
-        text=True,
-        check=True,
-        timeout=120,
-    )
-    out: dict[str, dict[str, str]] = {}
-    for line in done.stdout.splitlines():
-        if line.strip():
-            name, column, cls, head = [*line.split("\t"), ""][:4]
-            out.setdefault(name, {})[column] = f"{cls}\t{head}"
-    return out
-
-
-needs_r = pytest.mark.skipif(
-    shutil.which("Rscript") is None,
-    reason="Rscript is not installed (Debian: apt-get install r-base-core), so R's read.csv "
-    "cannot be checked here",
-)
 
 
 @needs_r
@@ -150,20 +120,8 @@ def test_r_read_csv_agrees_with_pandas_on_every_column(labelled_summary):
     text) as pandas does: empty cells are NA in numeric columns, not text.
     Source: R's utils::read.csv (R from the system packages), run with Rscript."""
     paths = sorted(labelled_summary.glob("*.csv"))
-    classes = _r_classes(paths)
-    for path in paths:
-        table = pd.read_csv(path)
-        for column in table.columns:
-            if table[column].isna().all():
-                continue  # an all-empty column is NA in both; R calls it logical
-            r_class = classes[path.name][str(column).replace("-", ".")].split("\t")[0]
-            numeric = pd.api.types.is_numeric_dtype(table[column])
-            if pd.api.types.is_bool_dtype(table[column]):
-                assert r_class == "logical", (path.name, column)
-            elif numeric:
-                assert r_class in ("numeric", "integer"), (path.name, column, r_class)
-            else:
-                assert r_class == "character", (path.name, column, r_class)
+    assert len(paths) >= 4
+    same_kinds(paths)
 
 
 @needs_r
@@ -171,6 +129,6 @@ def test_r_read_csv_agrees_with_pandas_on_every_column(labelled_summary):
 def test_r_keeps_labels_as_text_with_the_documented_colclasses(labelled_summary):
     """With colClasses naming participant as character (docs/analysis.md), R keeps 007.
     Source: R's utils::read.csv, run with Rscript."""
-    classes = _r_classes([labelled_summary / "participants.csv"], 'c(participant = "character")')
+    classes = r_classes([labelled_summary / "participants.csv"], 'c(participant = "character")')
     cls, head = classes["participants.csv"]["participant"].split("\t")
     assert cls == "character" and head == "007|010|011"

@@ -87,3 +87,22 @@ def test_practice_rule_without_practice_is_an_error(tmp_path, capsys):
     found = _problems(path, capsys)
     line = _line_of(path, "exclusions: {practice")
     assert (line, "bad-value") in [(p["line"], p["code"]) for p in found], found
+
+
+def test_check_states_the_pilot_difficulty_range_and_the_rules(tmp_path, capsys):
+    """`check` lists the pilot's difficulty range over the main trials, how many it gives up on,
+    and the declared exclusion rules.
+    Source: the weighted sums of tests/data/mini/table.csv's main rows, worked by hand
+    (nodes 4, 5, 6, 7 weighted 1: 4 to 7; 2 rows at 6 or more)."""
+    path = _copy_with(
+        tmp_path,
+        "exclusions: {unsure_share_above: 0.4}\n"
+        "pilot: {difficulty: {nodes: 1}, give_up_difficulty: 6}\n",
+    )
+    assert main(["check", str(path), "--json"]) == 0
+    facts = json.loads(capsys.readouterr().out)["facts"]
+    assert (
+        "simulated participant's difficulty (1 x nodes): 4 to 7 over participant 1's main "
+        "trials; gives up (unsure) on 2 of 4" in facts
+    )
+    assert "pre-declared exclusions: unsure_share_above 0.4" in facts
