@@ -468,12 +468,12 @@ def _participants_section(
     timed = facts["n_timed_out"]
     if timed:
         who.append(f"{count(timed, 'trial')} ({percent(timed / n_trials)}) reached the time limit.")
-    pooled = _pooling_sentence(facts)
-    if pooled:
-        who.append(pooled)
     blocks.append(Paragraph(" ".join(who)))
     if excluded_table is not None:
         blocks.append(excluded_table)
+    pooled = _pooling_sentence(facts)
+    if pooled:
+        blocks.append(Paragraph(pooled))
     dur, tps = facts["duration_s"], facts["trials_per_session"]
     one = n_sess == 1
     length = "The session lasted " if one else "Sessions lasted "
