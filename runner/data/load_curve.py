@@ -156,9 +156,28 @@ def read_physio(path: str | Path) -> PhysioTable:
     return PhysioTable(frame=frame, measures=tuple(measures), units=units, path=str(path))
 
 
-def _key_text(values: pd.Series) -> pd.Series:
+def _key_text(values: pd.Series) -> np.ndarray:
     """Key values as text, a whole number written as a float (3.0) read as 3."""
-    return values.astype(str).str.strip().str.replace(r"^(-?\d+)\.0+$", r"\1", regex=True)
+    codes, uniques = pd.factorize(values, use_na_sentinel=False)
+    text = (
+        pd.Series(uniques.astype(str))
+        .str.strip()
+        .str.replace(r"^(-?\d+)\.0+$", r"\1", regex=True)
+        .to_numpy()
+    )
+    return text[codes]
+
+
+def _joint_keys(trials: pd.DataFrame, frame: pd.DataFrame) -> tuple[pd.Index, pd.Index]:
+    """One integer per (participant, session, trial), shared by the two tables."""
+    left = np.zeros(len(trials), dtype=np.int64)
+    right = np.zeros(len(frame), dtype=np.int64)
+    for k in PHYSIO_KEYS:
+        both = np.concatenate([_key_text(trials[k]), _key_text(frame[k])])
+        codes, uniques = pd.factorize(both)
+        left = left * len(uniques) + codes[: len(trials)]
+        right = right * len(uniques) + codes[len(trials) :]
+    return pd.Index(left), pd.Index(right)
 
 
 def wilson_interval(successes: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
@@ -296,9 +315,8 @@ def load_relations(
     notes: list[str] = []
     units = {RT: "ms", ACCURACY: "share correct"}
     if physio is not None:
-        keys = pd.MultiIndex.from_arrays([_key_text(trials[k]) for k in PHYSIO_KEYS])
         frame = physio.frame
-        pkeys = pd.MultiIndex.from_arrays([_key_text(frame[k]) for k in PHYSIO_KEYS])
+        keys, pkeys = _joint_keys(trials, frame)
         if pkeys.has_duplicates:
             raise InputFileError(
                 f"The physiology table {physio.path!r} has more than one row for a trial "

@@ -140,6 +140,16 @@ def _num(value: Any, digits: int = 3) -> str:
     return f"{v:.{digits}g}" if math.isfinite(v) else "–"
 
 
+def _p(value: Any) -> str:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return "–"
+    if not math.isfinite(v):
+        return "–"
+    return "< 0.0001" if v < 1e-4 else f"{v:.2g}"
+
+
 def report_sections(models: SummaryModels, figures: Mapping[str, Path]) -> list[report.Section]:
     """Report sections: score method and reliability, drivers, load curves."""
     sections: list[report.Section] = []
@@ -200,7 +210,7 @@ def report_sections(models: SummaryModels, figures: Mapping[str, Path]) -> list[
                                 f"{_num(lo)} – {_num(hi)}"
                                 for lo, hi in zip(coef["ci_low"], coef["ci_high"], strict=True)
                             ],
-                            "p": coef["p"].map(_num),
+                            "p": coef["p"].map(_p),
                         }
                     ),
                 )
@@ -223,7 +233,7 @@ def report_sections(models: SummaryModels, figures: Mapping[str, Path]) -> list[
             report.Image(
                 figures[name].read_bytes(),
                 alt=f"{name} by difficulty score",
-                caption=res.verdict or res.reason,
+                caption=f"{name}: {res.verdict or res.reason}",
             )
             for name, res in ld.results.items()
             if name in figures

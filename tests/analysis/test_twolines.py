@@ -5,11 +5,17 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from runner.data.twolines import INVERTED_U, interrupted_regression, smooth_fit, two_lines
+from runner.data.twolines import (
+    INVERTED_U,
+    U_SHAPE,
+    interrupted_regression,
+    smooth_fit,
+    two_lines,
+)
 
 # Simonsohn's two-lines app 0.52 R code (twolines() and reg2(), run without their plotting) in
-# R 4.2.2 with mgcv 1.8-41, sandwich and lmtest, on the data of _inverted_u() and _monotone()
-# written to CSV with 17 significant digits. Keys: break point xc, median of the flat region,
+# R 4.2.2 with mgcv 1.8-41, sandwich 3.0-2 and lmtest 0.9-40, on the data of _inverted_u(),
+# _monotone() and _u_shape() written to CSV with 17 significant digits. Keys: break point xc, median of the flat region,
 # flat region bounds, then b, robust (HC3) SE, z and p of each line.
 R_INVERTED_U = {
     "xc": 5.0,
@@ -26,6 +32,15 @@ R_MONOTONE = {
     "line1": (0.309232102408026, 0.0313792812403948, 9.85465855763291, 6.54387320556783e-23),
     "line2": (0.243831480573186, 0.388700292199696, 0.627299452730836, 0.530462962101961),
     "at_break": (3.0385199382108, 3.28103743952596),
+}
+# A U whose Robin Hood step moves the break off the flat region's median (5.625 -> 5.25).
+R_U_SHAPE = {
+    "xc": 5.25,
+    "midflat": 5.625,
+    "flat": (4.75, 6.5),
+    "line1": (-0.500608527138578, 0.0450386060266904, -11.1150981636046, 1.05934065510976e-28),
+    "line2": (0.347723344638043, 0.0627464208447796, 5.54172397335988, 2.99508167708407e-08),
+    "at_break": (-0.11287112949017, -0.056808235002565),
 }
 # reg2(f, xc = 4.5) on the inverted-U data: b1, se1, z1, p1, b2, se2, z2, p2.
 R_REG2_AT_4_5 = (
@@ -56,8 +71,21 @@ def _monotone() -> tuple[np.ndarray, np.ndarray]:
     return x, 0.5 + 0.3 * x + np.random.RandomState(2019).normal(0, 1.0, x.size)
 
 
-@pytest.mark.parametrize(("data", "ref"), [(_inverted_u, R_INVERTED_U), (_monotone, R_MONOTONE)])
-def test_two_lines_matches_reference_r_code(data, ref) -> None:
+def _u_shape() -> tuple[np.ndarray, np.ndarray]:
+    """A U with its trough near x = 5.6 plus normal noise (numpy's frozen RandomState)."""
+    x = _x()
+    return x, 3.0 - 1.0 * x + 0.09 * x**2 + np.random.RandomState(2020).normal(0, 0.8, x.size)
+
+
+@pytest.mark.parametrize(
+    ("data", "ref", "shape"),
+    [
+        (_inverted_u, R_INVERTED_U, INVERTED_U),
+        (_monotone, R_MONOTONE, INVERTED_U),
+        (_u_shape, R_U_SHAPE, U_SHAPE),
+    ],
+)
+def test_two_lines_matches_reference_r_code(data, ref, shape) -> None:
     """Break point, flat region, slopes, robust z and p equal the reference R code's output.
 
     Source: Simonsohn 2018 (AMPPS 1(4):538-555), two-lines app 0.52 R code run in R 4.2.2 with
@@ -67,7 +95,7 @@ def test_two_lines_matches_reference_r_code(data, ref) -> None:
     """
     x, y = data()
     res = two_lines(x, y)
-    assert res.available and res.shape == INVERTED_U and res.se_type == "HC3"
+    assert res.available and res.shape == shape and res.se_type == "HC3"
     assert res.first_break == pytest.approx(ref["midflat"])
     assert res.flat == pytest.approx(ref["flat"])
     assert res.break_point == pytest.approx(ref["xc"])
@@ -81,11 +109,15 @@ def test_two_lines_matches_reference_r_code(data, ref) -> None:
 
 
 def test_verdict_is_u_only_for_the_inverted_u() -> None:
-    """Both slopes significant with opposite signs for the inverted U, not for the control.
+    """Both slopes significant with opposite signs for the inverted U and the U, not the control.
 
     Source: Simonsohn 2018, the two-lines test's decision rule (reference R code: u.sig).
     """
     assert two_lines(*_inverted_u()).significant
+    u = two_lines(*_u_shape())
+    assert (
+        u.significant and u.verdict.startswith("Both slopes are significant") and "a U" in u.verdict
+    )
     monotone = two_lines(*_monotone())
     assert not monotone.significant and "No inverted U" in monotone.verdict
 
