@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from runner.cli.args import add_pooling, exclusion_lines, read_physio
+from runner.cli.args import add_pooling, exclusion_lines
 from runner.errors import EXIT_OK
 
 SUMMARY_TITLE = "Pilot summary"
@@ -52,7 +52,7 @@ def run(args: argparse.Namespace) -> int:
         title=args.title,
         force=args.force,
         pool_unlike=args.pool_unlike,
-        physio=read_physio(args.physio),
+        physio=args.physio,
     )
     for line in exclusion_lines(done.excluded):
         print(line)

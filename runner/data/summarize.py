@@ -47,7 +47,7 @@ def summarize_sessions(
     title: str = DEFAULT_TITLE,
     force: bool = False,
     pool_unlike: bool = False,
-    physio: pd.DataFrame | None = None,
+    physio: str | Path | pd.DataFrame | None = None,
 ) -> SummaryResult:
     """Summarise sessions: read them from ``paths``, or take ``sessions`` already read.
 
@@ -67,8 +67,11 @@ def summarize_sessions(
     pool_unlike : bool, optional
         Pool sessions that differ in speed, mode or protocol (refused by default,
         :func:`runner.data.pooling.check_alike`).
-    physio : pd.DataFrame, optional
-        Per-trial physiology for the protocol's ``physio_valid_share_below`` exclusion rule.
+    physio : str or Path or pd.DataFrame, optional
+        ``physio_trials.csv`` of ``trialdeck physio`` (or the folder holding it, with its
+        ``physio_trials.json`` sidecar beside it): its measures are related to the difficulty
+        score (:mod:`runner.data.load_curve`) and its validity columns serve the protocol's
+        ``physio_valid_share_below`` exclusion rule. A DataFrame serves the exclusion rule only.
 
     The protocols' exclusion rules (:func:`runner.data.exclusions.judge_sessions`) leave
     sessions out of every table, plot and fact but ``exclusions.csv`` and ``facts.json``'s
@@ -90,7 +93,28 @@ def summarize_sessions(
     headers = [s.header for s in sessions]
     if not pool_unlike:
         check_alike(headers, verb="summarise")
-    judged = judge_sessions(sessions, physio=physio)
+    # One physiology table for both uses: the load curves (a file with its sidecar) and the
+    # exclusion rule on validity (its rows).
+    physio_table = None
+    physio_rows: pd.DataFrame | None = None
+    if isinstance(physio, pd.DataFrame):
+        physio_rows = physio
+    elif physio is not None:
+        from runner.data.load_curve import PHYSIO_FILE, read_physio
+
+        physio_path = Path(physio)
+        if physio_path.is_dir():
+            physio_path = physio_path / PHYSIO_FILE
+        physio_table = read_physio(physio_path)
+        # Its rows judge validity only where a protocol declares that rule: a table of measures
+        # alone need not carry validity columns.
+        if any(
+            s.protocol.exclusions is not None
+            and s.protocol.exclusions.physio_valid_share_below is not None
+            for s in sessions
+        ):
+            physio_rows = physio_table.frame
+    judged = judge_sessions(sessions, physio=physio_rows)
     reasons = judged.reasons()
     every = list(sessions)
     sessions = [s for s in every if judged.keeps(s)]
@@ -131,5 +155,6 @@ def summarize_sessions(
             judged.table if any(s.protocol.exclusions is not None for s in every) else None
         ),
         context=context,
+        physio=physio_table,
     )
     return SummaryResult(len(sessions), len(trials), factors, written, reasons)

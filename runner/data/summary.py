@@ -20,7 +20,7 @@ import math
 import re
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -29,10 +29,13 @@ from runner.contract.columns import CONTRACT_COLUMNS, PILOT_COLUMNS
 from runner.contract.outputs import prepare_output_folder, replace_file
 from runner.data import plots
 from runner.data.exclusions import EXCLUSIONS_NAME
-from runner.data.stats import difficulty_scores, mean_ci
+from runner.data.stats import mean_ci
 from runner.data.summary_report import CEILING_SHARE, FLOOR_SHARE, OUTCOMES, build_report
 from runner.data.tables import round_facts, write_table
 from runner.errors import InputFileError, StorageError
+
+if TYPE_CHECKING:
+    from runner.data.load_curve import PhysioTable
 
 UNSCORED = "unscored"
 ANSWERED = ("correct", "wrong")
@@ -395,6 +398,8 @@ def write_summary(
     level_order: Mapping[str, Sequence[Any]] | None = None,
     title: str = "Pilot summary",
     force: bool = False,
+    physio: PhysioTable | None = None,
+    features: Sequence[str] | None = None,
     exclusions: pd.DataFrame | None = None,
     context: Mapping[str, Any] | None = None,
 ) -> list[Path]:
@@ -405,6 +410,13 @@ def write_summary(
     score could be computed), ``facts.json``, ``outcomes_<factor>.png``, ``rt_<factor>.png``,
     ``ratings_<factor>.png``, ``difficulty_<factor>.png`` (when a score could be computed) and
     ``report.html``, which embeds every plot as a data URI and needs no other file.
+
+    The pilot report's models add (see :mod:`runner.data.summary_models`):
+    ``difficulty_models.csv`` (every OLS model of the score on 1-3 stimulus features, ranked by
+    AICc), ``difficulty_mixed.csv`` (the mixed model's coefficients, when fitted),
+    ``load_bins.csv`` and ``load_twolines.csv`` (response time, accuracy and each physiological
+    measure against the score) and ``load_<measure>.png``; ``facts.json`` gains ``difficulty``,
+    ``drivers`` and ``load``.
 
     Parameters
     ----------
@@ -481,6 +493,8 @@ def write_summary(
             level_order=level_order,
             title=title,
             written=written,
+            physio=physio,
+            features=features,
             exclusions=exclusions,
             context=dict(context or {}),
         )
@@ -506,9 +520,13 @@ def _write_all(
     level_order: dict[str, Sequence[Any]],
     title: str,
     written: list[Path],
+    physio: PhysioTable | None = None,
+    features: Sequence[str] | None = None,
     exclusions: pd.DataFrame | None = None,
     context: dict[str, Any] | None = None,
 ) -> list[Path]:
+    from runner.data import summary_models
+
     if exclusions is not None:
         _write_csv(exclusions, out_dir / EXCLUSIONS_NAME, written, index=False)
     n_participants = int(data["participant"].astype(str).nunique())
@@ -523,7 +541,8 @@ def _write_all(
     people = participant_summary(data, rating_points=rating_points)
     _write_csv(people, out_dir / "participants.csv", written, index=False)
 
-    difficulty = difficulty_scores(data, factors=factors)
+    models = summary_models.compute_models(data, factors=factors, physio=physio, features=features)
+    difficulty = models.difficulty
     _write_csv(difficulty.scores, out_dir / "difficulty.csv", written)
     if difficulty.available:
         loadings = pd.DataFrame(
@@ -534,6 +553,9 @@ def _write_all(
 
     facts = pilot_facts(data, sessions, factors=factors, rating_points=rating_points)
     facts["n_practice_excluded"] = 0 if include_practice else n_practice
+    facts.update(summary_models.models_facts(models))
+    for name, table in summary_models.model_tables(models).items():
+        _write_csv(table, out_dir / name, written, index=False)
     facts.update(context or {})
     _write_text(
         out_dir / "facts.json",
@@ -571,6 +593,8 @@ def _write_all(
             )
         figures[factor] = paths
         written.extend(paths)
+    model_figures = summary_models.write_model_figures(models, out_dir, stem=_file_stem)
+    written.extend(model_figures.values())
 
     html = build_report(
         data,
@@ -583,6 +607,10 @@ def _write_all(
         include_practice=include_practice,
         n_practice=n_practice,
         rating_points=rating_points,
+        models=models,
+        model_figures=model_figures,
+        exclusions=exclusions,
+        level_order=level_order,
     )
     _write_text(out_dir / "report.html", html, written)
     return written

@@ -89,6 +89,10 @@ def write_table(
     """Write ``table`` as CSV by the conventions above (empty cell for missing, rounded numbers,
     ``\\n`` line ends). ``target`` is a path (replaced whole) or an open text file."""
     data = round_table(table) if round_numbers else table
+    # Flags are 0 or 1: R's read.csv reads pandas' "True"/"False" as text.
+    flags = [c for c in data.columns if pd.api.types.is_bool_dtype(data[c])]
+    if flags:
+        data = data.astype({c: int for c in flags})
     if isinstance(target, Path):
         with replace_file(target) as fh:
             data.to_csv(fh, na_rep=NA, lineterminator="\n", index=index)

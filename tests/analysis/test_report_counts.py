@@ -14,6 +14,7 @@ def test_single_counts_are_singular(tmp_path):
     trials, sessions = make_pool(1, 1)
     write_summary(trials, sessions, tmp_path, factors=["nodes"])
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
-    assert "Main-part trials only (1 trial); 3 practice trials are left out" in html
-    assert "1 session from 1 participant (0 aborted, 1 simulated pilot)." in html
+    assert "The analysis includes 1 main-part trial from 1 session of 1 participant." in html
+    assert "3 practice trials are left out" in html
+    assert "The session was run by the simulated participant" in html
     assert not re.search(r"\b1 (trials|sessions|participants|pilots)\b", html)

@@ -209,7 +209,8 @@ def test_write_summary_writes_every_file_main_part_only(pilot_summary) -> None:
     facts = json.loads((tmp_path / "facts.json").read_text(encoding="utf-8"))
     assert facts["n_practice_excluded"] == 9
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
-    assert "Main-part trials only (90 trials); 9 practice trials are left out" in html
+    assert "The analysis includes 90 main-part trials" in html
+    assert "9 practice trials are left out because practice is for learning the task" in html
 
 
 def test_write_summary_can_include_practice(tmp_path: Path) -> None:
