@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from runner.data.stats import mean_ci
+from runner.data.stats import mean_ci, wilson_interval
 from runner.data.twolines import TwoLinesResult, two_lines
 from runner.errors import InputFileError
 
@@ -178,19 +178,6 @@ def _joint_keys(trials: pd.DataFrame, frame: pd.DataFrame) -> tuple[pd.Index, pd
         left = left * len(uniques) + codes[: len(trials)]
         right = right * len(uniques) + codes[len(trials) :]
     return pd.Index(left), pd.Index(right)
-
-
-def wilson_interval(successes: int, n: int, confidence: float = 0.95) -> tuple[float, float]:
-    """Wilson score interval of a share (Wilson 1927, JASA 22:209-212); NaN when n is 0."""
-    if n <= 0:
-        return (math.nan, math.nan)
-    from scipy.special import ndtri
-
-    z = float(ndtri(0.5 + confidence / 2.0))
-    p = successes / n
-    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
-    half = z / (1 + z * z / n) * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
-    return (max(0.0, centre - half), min(1.0, centre + half))
 
 
 def _bins(

@@ -110,6 +110,26 @@ def mean_ci(
 # --------------------------------------------------------------------------------------------
 
 
+def wilson_interval(
+    successes: int, n: int, confidence: float = DEFAULT_CONFIDENCE
+) -> tuple[float, float]:
+    """Wilson score interval of a proportion (Wilson 1927), NaN for n == 0.
+
+    Unlike the normal-approximation interval it stays inside [0, 1] and does not collapse to a
+    point at 0% or 100%, which pilots with few trials per level often reach.
+    """
+    if n <= 0:
+        return (math.nan, math.nan)
+    from scipy.special import ndtri  # the standard normal quantile
+
+    z = float(ndtri((1.0 + confidence) / 2.0))
+    p = successes / n
+    denom = 1.0 + z * z / n
+    centre = (p + z * z / (2 * n)) / denom
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
+    return (max(0.0, centre - half), min(1.0, centre + half))
+
+
 @dataclass(frozen=True)
 class PAFResult:
     """Outcome of :func:`principal_axis_factoring`.

@@ -24,7 +24,7 @@ import pandas as pd
 from runner import __version__
 from runner.data import report
 from runner.data.report import MISSING_CELL, Image, Paragraph, Section, Table
-from runner.data.stats import DEFAULT_CONFIDENCE, DifficultyResult, mean_ci
+from runner.data.stats import DifficultyResult, mean_ci, wilson_interval
 
 if TYPE_CHECKING:
     from runner.data.summary_models import SummaryModels
@@ -90,26 +90,6 @@ def with_interval(estimate: str, low: float, high: float, digits: int, scale: fl
         return MISSING_CELL
     shown = interval(low, high, digits, scale=scale)
     return estimate if shown == MISSING_CELL else f"{estimate} {shown}"
-
-
-def wilson_interval(
-    successes: int, n: int, confidence: float = DEFAULT_CONFIDENCE
-) -> tuple[float, float]:
-    """Wilson score interval of a proportion (Wilson 1927), NaN for n == 0.
-
-    Unlike the normal-approximation interval it stays inside [0, 1] and does not collapse to a
-    point at 0% or 100%, which pilots with few trials per level often reach.
-    """
-    if n <= 0:
-        return (math.nan, math.nan)
-    from scipy.special import ndtri  # the standard normal quantile
-
-    z = float(ndtri((1.0 + confidence) / 2.0))
-    p = successes / n
-    denom = 1.0 + z * z / n
-    centre = (p + z * z / (2 * n)) / denom
-    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / denom
-    return (max(0.0, centre - half), min(1.0, centre + half))
 
 
 def _level_name(factor: str, level: Any) -> str:

@@ -13,6 +13,7 @@ from scipy import stats
 from statsmodels.stats.proportion import proportion_confint
 from synthetic import make_pool
 
+from runner.data.stats import wilson_interval
 from runner.data.summary import write_summary
 from runner.data.summary_report import (
     count,
@@ -22,7 +23,6 @@ from runner.data.summary_report import (
     p_value,
     significant,
     trend_sentence,
-    wilson_interval,
 )
 
 
