@@ -137,6 +137,8 @@ def check_photodiode(photodiode: str | None, recording: object) -> None:
         parse_spec(photodiode)
     except ValueError as exc:
         raise UsageError(f"{exc}.") from None
+
+
 def add_pooling(parser: argparse.ArgumentParser) -> None:
     """``--pool-unlike`` and ``--physio``: what export and summary share about pooling."""
     parser.add_argument(

@@ -37,6 +37,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+#: A participant variance below this share of the residual variance counts as a boundary fit
+#: (common practice for flagging singular fits, no published threshold).
+BOUNDARY_VARIANCE_SHARE = 1e-6
 #: Stimulus features of the graph kit's manifest (runner.graphs.build.MANIFEST_COLUMNS) that a
 #: difficulty model may use: size, density, crossings and route features.
 KIT_FEATURES = (
@@ -113,6 +116,9 @@ class MixedModelResult:
     participant_variance: float | None = None
     residual_variance: float | None = None
     converged: bool = False
+    # Why the fit's intervals deserve caution (did not converge, or the participant variance
+    # was estimated at zero); empty when there is nothing to say.
+    note: str = ""
 
 
 @dataclass(frozen=True)
@@ -354,6 +360,16 @@ def mixed_model(
             "p": np.asarray(fit.pvalues, dtype=float)[: len(names)],
         }
     )
+    participant_variance = float(np.asarray(fit.cov_re)[0, 0])
+    notes = []
+    if not fit.converged:
+        notes.append("the fit did not converge, so its estimates and intervals are approximate")
+    if participant_variance <= BOUNDARY_VARIANCE_SHARE * float(fit.scale):
+        notes.append(
+            "the participant variance was estimated at (or next to) zero, a boundary fit: "
+            "participants did not differ beyond trial-to-trial noise, and the intercept's "
+            "standard error from such a fit is not reliable"
+        )
     return MixedModelResult(
         True,
         outcome="log_rt_ms",
@@ -361,9 +377,10 @@ def mixed_model(
         n_trials=int(y.size),
         n_participants=int(pd.Series(groups).nunique()),
         coefficients=coefficients,
-        participant_variance=float(np.asarray(fit.cov_re)[0, 0]),
+        participant_variance=participant_variance,
         residual_variance=float(fit.scale),
         converged=bool(fit.converged),
+        note="; ".join(notes),
     )
 
 
@@ -492,6 +509,7 @@ def drivers_facts(result: DriversResult, *, top: int = 5) -> dict[str, object]:
             "participant_variance": mixed.participant_variance,
             "residual_variance": mixed.residual_variance,
             "converged": mixed.converged,
+            "note": mixed.note,
             "coefficients": mixed.coefficients.to_dict(orient="records"),
         },
     }

@@ -870,6 +870,7 @@ def _drivers_section(
                     )
                 )
                 + "."
+                + (f" Caution: {mixed.note}." if mixed.note else "")
             )
         )
     else:

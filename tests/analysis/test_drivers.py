@@ -244,3 +244,45 @@ def test_best_model_predictions_are_leave_one_out_refits() -> None:
         assert pred["loo_predicted"].iloc[i] == pytest.approx(design[i] @ b, rel=1e-9)
     full, *_ = np.linalg.lstsq(design, yv, rcond=None)
     np.testing.assert_allclose(pred["fitted"].to_numpy(), design @ full, rtol=1e-9)
+
+
+def _mixed_data(offsets: list[float]) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Answered trials of participants whose log RTs differ only by ``offsets`` (one each)."""
+    rng = np.random.default_rng(3)
+    stimuli = [f"s{i}" for i in range(12)]
+    features = pd.DataFrame({"nodes": np.arange(12, dtype=float) * 10 + 20}, index=stimuli)
+    noise = rng.normal(0.0, 0.2, size=len(stimuli) * 3)
+    noise -= noise.mean()  # the same zero-mean noise for everyone: no participant differences
+    rows = []
+    for p, offset in enumerate(offsets):
+        for k, stim in enumerate(stimuli * 3):
+            log_rt = 7.0 + 0.01 * features.loc[stim, "nodes"] + offset + noise[k]
+            rows.append(
+                {
+                    "participant": f"{p:03d}",
+                    "stimulus": stim,
+                    "outcome": "correct",
+                    "rt_ms": float(np.exp(log_rt)),
+                }
+            )
+    return pd.DataFrame(rows), features
+
+
+def test_mixed_model_notes_a_boundary_fit() -> None:
+    """A participant variance estimated at zero is named as a boundary fit; real differences are not.
+
+    Source: common practice — a random-effect variance estimated at zero makes a singular
+    (boundary) fit whose standard errors are unreliable (discussed by Bolker et al. 2009,
+    Trends Ecol. Evol. 24:127-135; the threshold used is ours, no published value).
+    """
+    same, features = _mixed_data([0.0] * 6)
+    flat = mixed_model(same, features, ["nodes"])
+    assert flat.available
+    assert flat.participant_variance is not None
+    assert flat.participant_variance <= 1e-6 * (flat.residual_variance or 1.0)
+    assert "boundary" in flat.note
+    differ, features = _mixed_data([-0.4, -0.2, 0.0, 0.1, 0.3, 0.5])
+    real = mixed_model(differ, features, ["nodes"])
+    assert real.available and real.converged
+    assert real.participant_variance is not None and real.participant_variance > 0.01
+    assert real.note == ""
