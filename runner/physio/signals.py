@@ -1,0 +1,289 @@
+"""The recording's signal streams: finding them by type and name, and reading their samples.
+
+:func:`stream_headers` walks the XDF chunk framing and parses only the StreamHeader chunks, so
+finding streams in a large recording reads a few kilobytes. :func:`read_signals` is the one place
+that reads samples (as float32, timestamps on the recorder's clock after clock synchronisation,
+dejittered per segment like the EEG origin of :mod:`runner.data.origins`); it can be switched to a
+streaming reader without touching its callers.
+"""
+
+from __future__ import annotations
+
+import logging
+import struct
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+from xml.etree import ElementTree
+
+import numpy as np
+
+from runner.errors import RecordingError
+from runner.physio.config import StreamChoice
+
+__all__ = [
+    "Signal",
+    "StreamHeader",
+    "channel_index",
+    "choose_stream",
+    "read_signals",
+    "stream_headers",
+]
+
+XDF_MAGIC = b"XDF:"
+TAG_STREAM_HEADER = 2
+VARLEN_WIDTHS = {1: "<B", 4: "<I", 8: "<Q"}
+MAX_HEADER_BYTES = 16 * 1024 * 1024
+#: Channel labels that name a pupil-size channel, when the configuration names none.
+PUPIL_LABEL_HINTS = ("pupil", "diameter", "area")
+ECG_LABEL_HINTS = ("ecg", "ekg")
+PHOTODIODE_LABEL_HINTS = ("photodiode", "light", "diode")
+RR_LABEL_HINTS = ("rr", "ibi", "interval")
+
+
+@dataclass(frozen=True)
+class StreamHeader:
+    """What a StreamHeader chunk says about one stream (channel labels and units from its desc)."""
+
+    stream_id: int
+    name: str
+    type: str
+    channel_count: int
+    nominal_srate: float
+    channel_format: str
+    source_id: str = ""
+    labels: tuple[str, ...] = ()
+    units: tuple[str, ...] = ()
+
+    def label(self) -> str:
+        return f"{self.name!r} (type {self.type!r}, id {self.stream_id})"
+
+
+@dataclass
+class Signal:
+    """Samples of one stream: ``times`` (s, recorder clock) and ``data`` (samples, channels)."""
+
+    header: StreamHeader
+    times: np.ndarray
+    data: np.ndarray
+    channels: list[int] = field(default_factory=list)
+
+    @property
+    def srate(self) -> float:
+        """The nominal rate, or the measured one for an irregular stream."""
+        if self.header.nominal_srate > 0:
+            return self.header.nominal_srate
+        if len(self.times) > 1:
+            return float((len(self.times) - 1) / (self.times[-1] - self.times[0]))
+        return 0.0
+
+    @property
+    def labels(self) -> list[str]:
+        return [_label(self.header, i) for i in self.channels]
+
+    @property
+    def units(self) -> list[str]:
+        return [self.header.units[i] if i < len(self.header.units) else "" for i in self.channels]
+
+
+def _label(header: StreamHeader, i: int) -> str:
+    return header.labels[i] if i < len(header.labels) and header.labels[i] else f"ch{i + 1}"
+
+
+def _text(node: ElementTree.Element | None, key: str) -> str:
+    found = node.find(key) if node is not None else None
+    return (found.text or "").strip() if found is not None else ""
+
+
+def _parse_header(content: bytes) -> StreamHeader:
+    sid = struct.unpack("<I", content[:4])[0]
+    root = ElementTree.fromstring(content[4:].decode("utf-8", errors="replace"))
+    labels: list[str] = []
+    units: list[str] = []
+    chans = root.find("desc/channels")
+    if chans is not None:
+        for ch in chans.findall("channel"):
+            labels.append(_text(ch, "label"))
+            units.append(_text(ch, "unit"))
+    try:
+        srate = float(_text(root, "nominal_srate") or 0.0)
+        count = int(_text(root, "channel_count") or 0)
+    except ValueError:
+        srate, count = 0.0, 0
+    return StreamHeader(
+        stream_id=sid,
+        name=_text(root, "name"),
+        type=_text(root, "type"),
+        channel_count=count,
+        nominal_srate=srate,
+        channel_format=_text(root, "channel_format"),
+        source_id=_text(root, "source_id"),
+        labels=tuple(labels),
+        units=tuple(units),
+    )
+
+
+def stream_headers(path: str | Path) -> list[StreamHeader]:
+    """Every stream header of an XDF file, in file order, without reading any samples.
+
+    Raises
+    ------
+    RecordingError
+        The file is missing, not XDF, or a header cannot be parsed.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise RecordingError(f"the recording {path} does not exist; check the path.")
+    size = path.stat().st_size
+    headers: list[StreamHeader] = []
+    with path.open("rb") as f:
+        if f.read(len(XDF_MAGIC)) != XDF_MAGIC:
+            raise RecordingError(f"{path} is not an XDF recording (it does not start with 'XDF:').")
+        pos = len(XDF_MAGIC)
+        while pos < size:
+            width_byte = f.read(1)
+            if not width_byte or width_byte[0] not in VARLEN_WIDTHS:
+                break  # damage: read_recording names it; the headers before it are used
+            width = width_byte[0]
+            raw = f.read(width)
+            tag_raw = f.read(2)
+            if len(raw) < width or len(tag_raw) < 2:
+                break
+            length = struct.unpack(VARLEN_WIDTHS[width], raw)[0]
+            tag = struct.unpack("<H", tag_raw)[0]
+            if tag == TAG_STREAM_HEADER and length - 2 <= MAX_HEADER_BYTES:
+                content = f.read(length - 2)
+                try:
+                    headers.append(_parse_header(content))
+                except (ElementTree.ParseError, struct.error) as exc:
+                    raise RecordingError(
+                        f"a stream header at byte {pos} of {path} cannot be read ({exc})."
+                    ) from None
+            pos += 1 + width + length
+            f.seek(pos)
+    return headers
+
+
+def choose_stream(
+    headers: list[StreamHeader], choice: StreamChoice, kind: str, *, option: str
+) -> StreamHeader | None:
+    """The one stream of ``kind`` (``"eeg"``, ``"pupil"``...) that ``choice`` selects, or None.
+
+    Raises
+    ------
+    RecordingError
+        Several streams match (one line listing them and how to choose), or ``choice.name``
+        names no stream of those types.
+    """
+    wanted = {t.strip().lower() for t in choice.types}
+    matches = [h for h in headers if h.type.strip().lower() in wanted]
+    if choice.name is not None:
+        named = [h for h in matches if h.name == choice.name]
+        if not named:
+            known = ", ".join(h.label() for h in matches) or "none of these types"
+            raise RecordingError(
+                f"no {kind} stream is named {choice.name!r} (types {', '.join(choice.types)}; "
+                f"found: {known})."
+            )
+        matches = named
+    if len(matches) > 1:
+        listed = ", ".join(h.label() for h in matches)
+        raise RecordingError(
+            f"{len(matches)} {kind} streams match ({listed}); choose one with {option} NAME "
+            f"or streams.{kind}.name in the physio configuration."
+        )
+    return matches[0] if matches else None
+
+
+def channel_index(header: StreamHeader, choice: StreamChoice, hints: tuple[str, ...]) -> int:
+    """The channel of a one-signal stream: ``choice.channel`` by label, else the first label
+    containing one of ``hints``, else the only (or first) channel.
+
+    Raises
+    ------
+    RecordingError
+        ``choice.channel`` is not a label of the stream.
+    """
+    labels = [_label(header, i) for i in range(header.channel_count)]
+    if choice.channel is not None:
+        if choice.channel in labels:
+            return labels.index(choice.channel)
+        raise RecordingError(
+            f"stream {header.label()} has no channel {choice.channel!r} (channels: "
+            f"{', '.join(labels) or 'none'})."
+        )
+    for i, lab in enumerate(labels):
+        if any(h in lab.lower() for h in hints):
+            return i
+    return 0
+
+
+class _Quiet(logging.Filter):
+    def filter(self, record: logging.LogRecord) -> bool:
+        return False
+
+
+def read_signals(
+    path: str | Path, wanted: dict[str, tuple[StreamHeader, list[int] | None]]
+) -> dict[str, Signal]:
+    """Read the samples of the named streams in one pass (float32, recorder-clock times).
+
+    Parameters
+    ----------
+    path : str or Path
+        The XDF file.
+    wanted : dict
+        kind -> (stream header, channel indices or None for all).
+
+    Returns
+    -------
+    dict of str to Signal
+
+    Raises
+    ------
+    RecordingError
+        The file cannot be read as XDF.
+    """
+    import pyxdf
+
+    from runner.recording.dejitter import dejitter
+
+    ids = sorted({h.stream_id for h, _ in wanted.values()})
+    if not ids:
+        return {}
+    logger = logging.getLogger("pyxdf")
+    quiet = _Quiet()
+    logger.addFilter(quiet)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            loaded, _ = pyxdf.load_xdf(
+                str(path),
+                select_streams=ids,
+                synchronize_clocks=True,
+                dejitter_timestamps=False,
+            )
+    except (OSError, ValueError, KeyError, IndexError, struct.error) as exc:
+        raise RecordingError(
+            f"the recording {path} could not be read ({type(exc).__name__}: {exc})."
+        ) from None
+    finally:
+        logger.removeFilter(quiet)
+    by_id = {int(e["info"]["stream_id"]): e for e in loaded}
+    out: dict[str, Signal] = {}
+    for kind, (header, channels) in wanted.items():
+        entry = by_id.get(header.stream_id)
+        if entry is None:
+            raise RecordingError(f"stream {header.label()} was not found when reading {path}.")
+        times = np.asarray(entry["time_stamps"], dtype=np.float64)
+        values = entry["time_series"]
+        data = np.asarray(values, dtype=np.float32)
+        if data.ndim == 1:
+            data = data.reshape(len(times), -1)
+        chans = list(range(data.shape[1])) if channels is None else list(channels)
+        if channels is not None:
+            data = np.ascontiguousarray(data[:, chans])
+        if len(times) > 1 and header.nominal_srate > 0:
+            times = dejitter(times, header.nominal_srate)
+        out[kind] = Signal(header=header, times=times, data=data, channels=chans)
+    return out
