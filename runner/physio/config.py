@@ -160,8 +160,8 @@ class EEGConfig(_Strict):
     @classmethod
     def _bands(cls, v: dict[str, tuple[float, float]]) -> dict[str, tuple[float, float]]:
         for name, (low, high) in v.items():
-            if not name.isidentifier():
-                raise ValueError(f"the band name {name!r} must be letters, digits and _")
+            if not (name.isascii() and name.isalnum()):
+                raise ValueError(f"the band name {name!r} must be letters and digits only")
             if not 0 <= low < high:
                 raise ValueError(f"band {name!r}: expected 0 <= low < high, got [{low}, {high}]")
         return v
@@ -170,8 +170,8 @@ class EEGConfig(_Strict):
     @classmethod
     def _groups(cls, v: dict[str, list[str]]) -> dict[str, list[str]]:
         for name, chans in v.items():
-            if not name.isidentifier():
-                raise ValueError(f"the group name {name!r} must be letters, digits and _")
+            if not (name.isascii() and name.isalnum()):
+                raise ValueError(f"the group name {name!r} must be letters and digits only")
             if not chans:
                 raise ValueError(f"the channel group {name!r} is empty")
         return v

@@ -70,6 +70,7 @@ class SessionJob:
     config: PhysioConfig | None = None  # None: the protocol's physio section, else defaults
     figures: Path | None = None  # folder for the QA PNGs, None for none
     allow_truncated: bool = False
+    stream_names: tuple[tuple[str, str], ...] = ()  # (kind, stream name) chosen on the command line
 
 
 @dataclass
@@ -92,9 +93,14 @@ class SessionResult:
 
 def effective_config(job: SessionJob, protocol_config: PhysioConfig | None) -> PhysioConfig:
     """The job's config, else the protocol's ``physio:`` section, else the defaults."""
-    if job.config is not None:
-        return job.config
-    return protocol_config if protocol_config is not None else PhysioConfig()
+    config = job.config or protocol_config or PhysioConfig()
+    if job.stream_names:
+        named = {
+            kind: getattr(config.streams, kind).model_copy(update={"name": name})
+            for kind, name in job.stream_names
+        }
+        config = config.model_copy(update={"streams": config.streams.model_copy(update=named)})
+    return config
 
 
 def _choose(headers: list[StreamHeader], config: PhysioConfig) -> dict[str, StreamHeader]:
@@ -271,7 +277,7 @@ def _pupil(
             at = np.interp(w[0] + grid, clean.times, clean.size, left=np.nan, right=np.nan)
             at[grid > (w[1] - w[0])] = np.nan
             traces.append((row.get(factor), at - m.baseline))
-    return {"grid_s": grid / times.scale, "traces": traces, "unit": u}
+    return {"grid_s": grid, "traces": traces, "unit": u}
 
 
 def _pupil_empty(u: str, flag: str) -> dict[str, Any]:
@@ -465,7 +471,7 @@ def _photodiode(result: SessionResult, times: SessionTimes, signal: Signal) -> N
             continue
         j = int(np.searchsorted(rises, on - 0.05 * limit))
         if j < len(rises) and rises[j] - on <= limit:
-            row["photodiode_lag_ms"] = (rises[j] - on) * 1000.0
+            row["photodiode_lag_ms"] = float(rises[j] - on) * 1000.0
 
 
 # Running many sessions
