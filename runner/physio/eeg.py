@@ -16,7 +16,8 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
-from scipy.signal import fftconvolve, welch
+import scipy.fft
+from scipy.signal import welch
 
 from runner.errors import RecordingError
 
@@ -275,6 +276,8 @@ def make_epochs(
     x = np.empty((todo.size, n_ch, n_times), dtype=np.float64)
     finite = np.ones(todo.size, dtype=bool)
     span_len = n_times + 2 * pad
+    n_fft = scipy.fft.next_fast_len(span_len, real=True)
+    h_fft = scipy.fft.rfft(h, n_fft) if h is not None else None
     per_chunk = max(1, CHUNK_BYTES // (8 * n_ch * span_len))
     for lo in range(0, todo.size, per_chunk):
         batch = todo[lo : lo + per_chunk]
@@ -288,12 +291,18 @@ def make_epochs(
         finite[lo + full] = ok
         if ok.any():
             spans = block[ok] if not ok.all() else block
-            if h is None:
+            if h is None or h_fft is None:
                 x[lo + full[ok]] = spans
             else:
-                # The FIR filter MNE designs, applied as MNE applies it (zero phase, centred);
-                # "valid" keeps the samples whose whole filter support is real data.
-                x[lo + full[ok]] = fftconvolve(spans, h[None, None, :], mode="valid", axes=-1)
+                # The FIR filter MNE designs, applied as MNE applies it (zero phase, centred),
+                # keeping only the samples whose whole filter support is real data. A circular
+                # FFT convolution of length >= the span is exact for those samples.
+                spectrum = scipy.fft.rfft(spans, n_fft, axis=-1)
+                spectrum *= h_fft
+                x[lo + full[ok]] = scipy.fft.irfft(spectrum, n_fft, axis=-1)[
+                    ..., h.size - 1 : span_len
+                ]
+                del spectrum
         del block
         # Spans cut by the recording's start or end: filtered by MNE itself, which pads the
         # edges of a segment that starts or ends with the recording as it pads the recording's.
@@ -320,7 +329,9 @@ def make_epochs(
     # off zero), as MNE's ``flat`` rule: peak-to-peak below the threshold on any good channel.
     flat_v = settings.flat_uv * 1e-6
     ptp = _ptp(x)
-    flat_rows = (ptp[:, good] < flat_v).any(axis=1) if good else np.zeros(usable.size, bool)
+    flat_rows = np.zeros(usable.size, dtype=bool)
+    if good:
+        flat_rows = np.asarray((ptp[:, good] < flat_v).any(axis=1), dtype=bool)
     for k in np.flatnonzero(flat_rows):
         reasons[usable[k]] = tuple(f"flat:{ch_names[c]}" for c in good if ptp[k, c] < flat_v)
     x = _keep_rows(x, ~flat_rows)
@@ -367,13 +378,13 @@ def make_epochs(
             verbose=False,
         )
     kept = np.zeros(onsets.size, dtype=bool)
-    for k, i in enumerate(usable):
-        log = epochs.drop_log[k]
+    for row, i in enumerate(usable):
+        log = epochs.drop_log[row]
         if not log:
             kept[i] = True
         else:
             reasons[i] = tuple(
-                f"{'flat' if ptp[k, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}"
+                f"{'flat' if ptp[row, ch_names.index(ch)] < flat_v else 'amplitude'}:{ch}"
                 for ch in log
             )
     if epochs.info["bads"]:
