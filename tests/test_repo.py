@@ -51,6 +51,8 @@ NOT_AT_IMPORT: dict[str, tuple[str, ...]] = {
     "graphs": ("pandas", "pygame", "pylsl"),
     # The command line starts without a display or LSL; a verb loads them when it runs.
     "cli": ("pygame", "pylsl"),
+    # Per-trial physiology runs on an analysis computer, like audit and export.
+    "physio": ("pygame", "pylsl"),
 }
 # Where a package may be imported at all (any import statement, also inside a function).
 # pygame only in runner/present/ is checked by tests/present/test_boundary.py.
