@@ -251,6 +251,7 @@ class SynthTruth:
     beat_times: np.ndarray  # recorder clock, s
     to_recorder: tuple[float, float, float] = (0.0, 0.0, 0.0)  # offset, drift, reference time
     streams: dict[str, str] = field(default_factory=dict)  # kind -> stream name
+    eeg_first_time: float = 0.0  # recorder time of the first EEG sample (the tables' time zero)
 
     def recorder_time(self, t: float | np.ndarray) -> Any:
         """The recorder time of presenter time ``t``."""
@@ -351,6 +352,7 @@ def simulate_recording(
         alpha_uv=_lerp(settings.alpha_uv, diff),
         beat_times=np.zeros(0),
         to_recorder=(settings.clock_offset_s, drift, t_first),
+        eeg_first_time=rec_start,
     )
     info = session.header.get("markers") or {}
     name = str(info.get("name") or f"{session.study}-markers")
