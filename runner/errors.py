@@ -174,6 +174,10 @@ PROBLEM_CODES: dict[str, str] = {
     "markers-unrecorded": "markers were sent while no recorder was connected to the stream",
     "changed-stimuli-accepted": "a resume went on with changed stimuli (--accept-changed-stimuli)",
     "clock-restarted": "an attempt ran on a restarted clock; the wall clock placed its times",
+    # What the protocol's physio section asks for (check; docs/physio.md).
+    "physio-baseline-too-long": "the pupil baseline window is longer than the shortest fixation",
+    "physio-period-too-short": "a rest or break is shorter than an HRV measure's minimum window",
+    "physio-few-epochs": "a condition has fewer trials than the EEG measures are configured to need",
 }
 
 

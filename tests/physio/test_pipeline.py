@@ -212,3 +212,47 @@ def test_scheduler_without_a_cluster_is_one_clear_error():
     with pytest.raises(UsageError) as info:
         list(run_sessions([], scheduler="tcp://127.0.0.1:9"))
     assert "\n" not in str(info.value)
+
+
+def _check_codes(tmp_path, **changes):
+    from runner.protocol.check import check_protocol
+
+    report = check_protocol(write_protocol(tmp_path, merged(**changes)))
+    return {(p.code, p.severity) for p in report.problems if p.code.startswith("physio-")}
+
+
+def test_check_is_silent_without_a_physio_section(tmp_path):
+    """A protocol without a physio section gets no physio warnings, however short its fixation."""
+    assert _check_codes(tmp_path, timing={"fixation_ms": [100, 200]}) == set()
+
+
+def test_check_warns_when_the_protocol_cannot_support_a_measure(tmp_path):
+    """Short fixation, short rest and few trials per condition are warnings with their codes."""
+    codes = _check_codes(
+        tmp_path,
+        timing={"fixation_ms": [300, 400]},
+        sequence=[
+            {"rest": {"seconds": 20, "label": "baseline"}},
+            {"blocks": {"where": {"set": "main"}, "by": "density"}},
+        ],
+        physio={"eeg": {"min_epochs_per_condition": 3}},
+    )
+    assert codes == {
+        ("physio-baseline-too-long", "warning"),
+        ("physio-period-too-short", "warning"),
+        ("physio-few-epochs", "warning"),
+    }
+
+
+def test_check_accepts_a_protocol_that_supports_its_measures(tmp_path):
+    """Fixations longer than the baseline, a 2-minute rest and enough trials give no warning."""
+    codes = _check_codes(
+        tmp_path,
+        timing={"fixation_ms": [600, 800]},
+        sequence=[
+            {"rest": {"seconds": 120, "label": "baseline"}},
+            {"blocks": {"where": {"set": "main"}, "by": "density"}},
+        ],
+        physio={"eeg": {"min_epochs_per_condition": 2}},
+    )
+    assert codes == set()
