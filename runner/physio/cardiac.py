@@ -17,8 +17,8 @@ from scipy.signal import welch
 #: Shortest window (s) for each measure.
 #: - hr: common practice, no source (a mean rate needs a couple of beats).
 #: - rmssd 10 s and sdnn 30 s: Munoz et al. (2015), "Validity of (ultra-)short recordings for
-#:   heart rate variability measurements", PLoS ONE 10:e0138921 (from memory); Shaffer and
-#:   Ginsberg (2017), Front. Public Health 5:258, review the same ultra-short limits.
+#:   heart rate variability measurements", PLoS ONE 10:e0138921 (checked, abstract); Shaffer and
+#:   Ginsberg (2017), Front. Public Health 5:258, review ultra-short limits (from memory).
 #: - hf 60 s and lf 120 s: Task Force of the ESC and NASPE (1996), Circulation 93:1043-1065
 #:   ("about 1 min" for HF and "about 2 min" for LF; from memory).
 MIN_WINDOW_S: dict[str, float] = {"hr": 2.0, "rmssd": 10.0, "sdnn": 30.0, "hf": 60.0, "lf": 120.0}

@@ -29,11 +29,11 @@ if TYPE_CHECKING:
 #: uses individually adjusted bands around the same ranges; from memory).
 DEFAULT_BANDS: dict[str, tuple[float, float]] = {"theta": (4.0, 8.0), "alpha": (8.0, 13.0)}
 
-#: Channel groups (10-20 names) for frontal theta and parietal alpha: frontal-midline theta rises
-#: and parietal alpha falls with working-memory load (Gevins & Smith 2003, "Neurophysiological
-#: measures of cognitive workload during human-computer interaction", Theoretical Issues in
-#: Ergonomics Science 4:113-131; Klimesch 1999, Brain Research Reviews 29:169-195; from memory).
-#: The channel lists are common practice, no source.
+#: Channel groups (10-20 names) for frontal theta and parietal alpha: frontal theta rises and
+#: alpha falls with load (Gevins et al. 1998, Human Factors 40:79-91; Smith et al. 2001, Human
+#: Factors 43:366-380; checked, abstracts; reviewed in Gevins & Smith 2003, Theoretical Issues in
+#: Ergonomics Science 4:113-131). That alpha's drop is clearest over parietal sites, and Klimesch
+#: 1999 (Brain Research Reviews 29:169-195), are from memory. Channel lists: common practice.
 DEFAULT_GROUPS: dict[str, list[str]] = {
     "frontal": ["Fz", "F3", "F4", "FCz"],
     "parietal": ["Pz", "P3", "P4", "POz"],

@@ -47,7 +47,8 @@ class PupilSettings:
         A sample whose dilation speed (the larger of its speeds to its two neighbours) exceeds
         the median speed plus this many median absolute deviations is a dropout. The speed rule
         and the multiplier 16 follow Kret and Sjak-Shie (2019), "Preprocessing pupil size data:
-        guidelines and code", Behavior Research Methods 51:1336-1342 (from memory).
+        guidelines and code", Behavior Research Methods 51:1336-1342 (rule checked; 16 is the
+        default of a package implementing it, the paper's own value from memory).
     margin_before_s, margin_after_s : float
         Samples this long before and after each dropout are removed too: the eyelid distorts the
         measured size around a blink (common practice; the values are from memory, no source).
