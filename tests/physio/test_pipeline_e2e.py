@@ -130,3 +130,22 @@ def test_dask_cluster_gives_the_same_rows(piloted):
     ) as cluster:
         there = list(run_sessions([job], scheduler=cluster.scheduler_address))
     assert there[0].trials == here.trials
+
+
+def test_demo_shows_the_path_to_per_trial_physiology(tmp_path, capsys, monkeypatch):
+    """`trialdeck demo` writes a simulated recording and a physio table with a row per trial."""
+    import shutil
+
+    from conftest import REPO
+
+    monkeypatch.chdir(tmp_path)
+    shutil.copytree(REPO / "configs", tmp_path / "configs")
+    shutil.copytree(REPO / "stimuli_demo", tmp_path / "stimuli_demo")
+    assert main(["demo", "--speed", "50", "--out", "ds", "--physio-out", "dp"]) == 0
+    out = capsys.readouterr().out
+    assert "Simulated recording" in out and "trialdeck physio" in out
+    trials = _rows(tmp_path / "ds" / "courier-hops" / "sub-P01" / "ses-1" / "trials.csv")
+    physio = _rows(tmp_path / "dp" / "physio_trials.csv")
+    assert [r["trial"] for r in physio] == [r["trial"] for r in trials]
+    assert [r["stimulus"] for r in physio] == [r["stimulus"] for r in trials]
+    assert sum(1 for r in physio if r["pupil_mean_change_mm"]) >= len(physio) // 2
