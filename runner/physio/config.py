@@ -64,6 +64,8 @@ PERIOD_EVENTS: dict[str, tuple[str, str]] = {
     "rest": ("rest_start", "rest_end"),
     "break": ("break_start", "break_end"),
 }
+PeriodKind = Literal["block", "rest", "break"]
+PERIOD_KINDS: tuple[PeriodKind, ...] = ("block", "rest", "break")
 MAX_WINDOW_S = 3600.0
 
 
@@ -125,9 +127,7 @@ class CardiacConfig(_Strict):
 
     enabled: bool = True
     window: Window = Window(start="stimulus_onset", end="answer", max_s=30.0)
-    periods: list[Literal["block", "rest", "break"]] = Field(
-        default_factory=lambda: ["block", "rest", "break"]
-    )
+    periods: list[PeriodKind] = Field(default_factory=lambda: list(PERIOD_KINDS))
 
 
 class EEGConfig(_Strict):

@@ -537,7 +537,9 @@ def _ecg(
     half = 0.45
     n = int(half * s.ecg_srate)
     rel = np.arange(-n, n + 1) / s.ecg_srate
-    template = sum(a * np.exp(-0.5 * ((rel - d) / w) ** 2) for d, a, w in waves)
+    template = np.zeros(len(rel))
+    for d, a, w in waves:
+        template += a * np.exp(-0.5 * ((rel - d) / w) ** 2)
     ecg = 0.05 * np.sin(2 * np.pi * 0.2 * ts) + rng.normal(0.0, 0.02, len(ts))
     for b in beats:
         c = int(round((b - ts[0]) * s.ecg_srate))
