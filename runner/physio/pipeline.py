@@ -28,15 +28,18 @@ from runner.physio.signals import (
     RR_LABEL_HINTS,
     Signal,
     StreamHeader,
+    as_recording,
     channel_index,
     choose_stream,
     read_signals,
+    read_streams,
     stream_headers,
 )
 from runner.physio.windows import SessionTimes, TrialTimes, session_times, window_bounds
 
 __all__ = ["SessionJob", "SessionResult", "check_pairs", "process_session", "run_sessions"]
 
+MARKER_TYPE = "Markers"
 #: Command-line options that choose a stream by name, per kind (for error messages).
 STREAM_OPTIONS = {
     "eeg": "--eeg-stream",
@@ -136,9 +139,18 @@ def process_session(job: SessionJob) -> SessionResult:
 
     session = load_session(job.folder)
     config = effective_config(job, session.protocol.physio)
-    times = session_times(session, job.recording, allow_truncated=job.allow_truncated)
     headers = stream_headers(job.recording)
     chosen = _choose(headers, config)
+    # One pass over the file reads the marker streams (for the clock model) and the chosen ones.
+    markers = {h.stream_id for h in headers if h.type == MARKER_TYPE}
+    loaded = read_streams(job.recording, markers | {h.stream_id for h in chosen.values()})
+    zero = chosen.get("eeg") or next(iter(chosen.values()), None)
+    times = session_times(
+        session,
+        job.recording,
+        rec=as_recording(job.recording, loaded),
+        zero_stream=None if zero is None else zero.stream_id,
+    )
     wanted: dict[str, tuple[StreamHeader, list[int] | None]] = {}
     hints = {
         "pupil": (config.streams.pupil, PUPIL_LABEL_HINTS),
@@ -152,7 +164,8 @@ def process_session(job: SessionJob) -> SessionResult:
         else:
             choice, hint = hints[kind]
             wanted[kind] = (header, [channel_index(header, choice, hint)])
-    signals = read_signals(job.recording, wanted)
+    signals = read_signals(job.recording, wanted, loaded)
+    del loaded
     result = SessionResult(
         participant=session.participant,
         session=session.session,

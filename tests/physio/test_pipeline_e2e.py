@@ -149,3 +149,45 @@ def test_demo_shows_the_path_to_per_trial_physiology(tmp_path, capsys, monkeypat
     assert [r["trial"] for r in physio] == [r["trial"] for r in trials]
     assert [r["stimulus"] for r in physio] == [r["stimulus"] for r in trials]
     assert sum(1 for r in physio if r["pupil_mean_change_mm"]) >= len(physio) // 2
+
+
+def test_one_pass_reader_equals_pyxdf(piloted):
+    """Every stream of the simulated recording reads back as pyxdf reads it, clocks synchronised.
+
+    Source: pyxdf.load_xdf (synchronize_clocks=True), the reference XDF reader.
+    """
+    import pyxdf
+
+    from runner.physio.signals import read_streams, stream_headers
+
+    _folder, rec, _truth, _root = piloted
+    got = read_streams(rec, {h.stream_id for h in stream_headers(rec)})
+    ref, _ = pyxdf.load_xdf(str(rec), synchronize_clocks=True, dejitter_timestamps=False)
+    assert len(ref) == len(got)
+    for entry in ref:
+        mine = got[int(entry["info"]["stream_id"])]
+        np.testing.assert_allclose(mine.times, entry["time_stamps"], rtol=0, atol=1e-9)
+        if isinstance(mine.values, list):
+            assert mine.values == entry["time_series"]
+        else:
+            np.testing.assert_array_equal(mine.values, entry["time_series"])
+
+
+def test_origin_from_one_pass_equals_the_export_origin(piloted):
+    """The clock model and time zero fitted in one pass equal those of export's recording_origin."""
+    from runner.data.origins import recording_origin
+    from runner.data.sessions import load_session
+    from runner.physio.signals import as_recording, read_streams, stream_headers
+    from runner.physio.windows import origin_from
+
+    folder, rec, _truth, _root = piloted
+    session = load_session(folder)
+    headers = stream_headers(rec)
+    recording = as_recording(rec, read_streams(rec, {h.stream_id for h in headers}))
+    eeg = next(h.stream_id for h in headers if h.type == "EEG")
+    mine = origin_from(session, recording, eeg)
+    theirs = recording_origin(session, rec)
+    assert mine.zero == pytest.approx(theirs.zero, abs=1e-9)
+    assert mine.t0 == pytest.approx(theirs.t0, abs=1e-9)
+    for _payload, t in session.markers(on_timeline=True):
+        assert mine.onset(t) == pytest.approx(theirs.onset(t), abs=1e-9)
