@@ -40,16 +40,18 @@ SETTINGS = SynthSettings(
 )
 
 
-def _run(args: list[str]) -> tuple[float, float]:
-    """Wall seconds and peak RSS (GB) of ``trialdeck`` with ``args`` in a child process."""
-    before = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+def _run(args: list[str]) -> tuple[float, float, float]:
+    """Wall seconds, CPU seconds and peak RSS (GB) of ``trialdeck`` with ``args`` in a child
+    process (CPU and peak include its worker processes)."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
     subprocess.run(
         [sys.executable, "-m", "runner", *args], check=True, cwd=REPO, stdout=subprocess.DEVNULL
     )
     wall = time.perf_counter() - start
-    peak_kb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-    return wall, max(peak_kb, before) / 1024**2
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
+    return wall, cpu, after.ru_maxrss / 1024**2
 
 
 def main() -> None:
@@ -71,12 +73,12 @@ def main() -> None:
             f"recording: {size:.2f} GB, {span:.0f} min, {len(truth.trials)} trials "
             f"(simulated in {made:.0f} s, not timed)"
         )
-        wall, peak = _run([
+        wall, cpu, peak = _run([
             "physio", str(folder), "--recording", str(rec), "--out", str(root / "out"),
         ])  # fmt: skip
         verdict = "OK" if wall < TARGET_S and peak < TARGET_GB else "OVER TARGET"
         print(
-            f"physio, 1 session: {wall:.1f} s wall, peak RSS {peak:.2f} GB "
+            f"physio, 1 session: {wall:.1f} s wall, {cpu:.1f} s CPU, peak RSS {peak:.2f} GB "
             f"(targets {TARGET_S:.0f} s, {TARGET_GB:.0f} GB): {verdict}"
         )
         if opts.sessions:
@@ -89,11 +91,11 @@ def main() -> None:
             args = ["physio", *map(str, copies), "--out", str(root / "out-many")]
             for _ in copies:
                 args += ["--recording", str(rec)]
-            wall, peak = _run([*args, "--jobs", str(opts.jobs)])
+            wall, cpu, peak = _run([*args, "--jobs", str(opts.jobs)])
             print(
                 f"physio, {opts.sessions} sessions, --jobs {opts.jobs}: {wall:.1f} s wall "
-                f"({wall / opts.sessions:.1f} s per session), peak RSS of one process "
-                f"{peak:.2f} GB"
+                f"({wall / opts.sessions:.1f} s per session), {cpu:.0f} s CPU, peak RSS of "
+                f"one process {peak:.2f} GB"
             )
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}")
 
