@@ -134,12 +134,12 @@ def _ecg(result: SessionResult, ecg: dict[str, Any]) -> Figure:
     top.plot(times[inside] - t0, trace[inside], "o", color="#C8651B", markersize=5, label="R-peak")
     top.set_xlabel("seconds from the first ECG sample")
     top.set_ylabel(f"ECG ({ecg.get('unit') or 'as recorded'})")
-    top.set_title(f"R-peak check, {STRIP_S:g} s from the middle: {_who(result)}")
-    top.legend(loc="upper right", fontsize=8.5)
+    top.set_title(f"R-peak check ({STRIP_S:g} s from the middle; dots: detected R-peaks)")
+    fig.suptitle(f"ECG: {_who(result)}", x=0.01, ha="left", fontweight="bold", fontsize=11)
     if len(peaks) > 1:
         beat_t = times[peaks]
         rate = 60.0 / np.diff(beat_t)
-        bottom.plot(beat_t[1:] - t0, rate, color=ACCENT, linewidth=0.9)
+        bottom.plot(beat_t[1:] - t0, rate, color=ACCENT, linewidth=0.6)
         bottom.set_ylabel("heart rate (bpm)")
     bottom.set_xlabel("seconds from the first ECG sample")
     bottom.set_title(f"Beat-to-beat heart rate ({len(peaks)} beats)")
