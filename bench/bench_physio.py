@@ -8,7 +8,8 @@ event structure, 300 trials, about an hour); its recording is simulated by
 :func:`runner.physio.synth.simulate_recording` (invented signals), padded to at least an hour.
 Neither is timed. Then ``trialdeck physio`` runs in a child process (figures included); its wall
 time and the child's peak resident memory (``ru_maxrss``) are printed. With ``--sessions N`` the
-same session and recording are given N times (N folders linking to it) with ``--jobs J``.
+same session and recording are processed N times in J worker processes
+(:func:`runner.physio.pipeline.run_sessions`, without figures).
 """
 
 from __future__ import annotations
@@ -30,6 +31,7 @@ sys.path.insert(0, str(REPO / "bench"))
 
 import bench_export  # noqa: E402
 
+from runner.physio.pipeline import SessionJob, run_sessions  # noqa: E402
 from runner.physio.synth import SynthSettings, simulate_recording  # noqa: E402
 
 N_TRIALS = 300
@@ -56,7 +58,7 @@ def _run(args: list[str]) -> tuple[float, float, float]:
 
 def main() -> None:
     parser = argparse.ArgumentParser()
-    parser.add_argument("--sessions", type=int, default=0, help="also N copies with --jobs")
+    parser.add_argument("--sessions", type=int, default=0, help="also N copies in J workers")
     parser.add_argument("--jobs", type=int, default=2)
     opts = parser.parse_args()
     bench_export.N_TRIALS_RUN = N_TRIALS
@@ -82,20 +84,21 @@ def main() -> None:
             f"(targets {TARGET_S:.0f} s, {TARGET_GB:.0f} GB): {verdict}"
         )
         if opts.sessions:
-            copies = []
-            for i in range(opts.sessions):
-                link = root / "copies" / f"c{i:02d}"
-                link.parent.mkdir(exist_ok=True)
-                os.symlink(folder, link)
-                copies.append(link)
-            args = ["physio", *map(str, copies), "--out", str(root / "out-many")]
-            for _ in copies:
-                args += ["--recording", str(rec)]
-            wall, cpu, peak = _run([*args, "--jobs", str(opts.jobs)])
+            # The command refuses the same session twice, so the copies go through
+            # run_sessions (what the command calls) without figures, in worker processes.
+            jobs = [SessionJob(folder=folder, recording=rec) for _ in range(opts.sessions)]
+            start = time.perf_counter()
+            cpu0 = time.process_time()
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
+            rows = sum(len(r.trials) for r in run_sessions(jobs, workers=opts.jobs))
+            wall = time.perf_counter() - start
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            cpu = time.process_time() - cpu0
+            cpu += (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
             print(
-                f"physio, {opts.sessions} sessions, --jobs {opts.jobs}: {wall:.1f} s wall "
-                f"({wall / opts.sessions:.1f} s per session), {cpu:.0f} s CPU, peak RSS of "
-                f"one process {peak:.2f} GB"
+                f"physio, {opts.sessions} sessions, {opts.jobs} worker processes: {wall:.1f} s "
+                f"wall ({wall / opts.sessions:.1f} s per session), {cpu:.0f} s CPU, {rows} rows, "
+                f"peak RSS of one worker {after.ru_maxrss / 1024**2:.2f} GB"
             )
     print(f"machine: {os.cpu_count()} cores, load average {os.getloadavg()[0]:.2f}")
 

@@ -81,7 +81,7 @@ def run(args: argparse.Namespace) -> int:
     from runner.contract.layout import JOURNAL_NAME
     from runner.physio.config import load_config
     from runner.physio.outputs import FIGURES_FOLDER, prepare, write_tables
-    from runner.physio.pipeline import SessionJob, check_pairs, run_sessions
+    from runner.physio.pipeline import SessionJob, check_distinct, check_pairs, run_sessions
 
     for folder in args.sessions:
         if not (folder / JOURNAL_NAME).is_file():
@@ -90,6 +90,7 @@ def run(args: argparse.Namespace) -> int:
                 "session's own folder, paired in order with its --recording."
             )
     check_pairs(args.sessions, args.recording)
+    check_distinct(args.sessions)
     if args.jobs > 1 and args.scheduler:
         raise UsageError("give either --jobs or --scheduler, not both.")
     config = load_config(args.config) if args.config is not None else None

@@ -37,9 +37,17 @@ from runner.physio.signals import (
 )
 from runner.physio.windows import SessionTimes, TrialTimes, session_times, window_bounds
 
-__all__ = ["SessionJob", "SessionResult", "check_pairs", "process_session", "run_sessions"]
+__all__ = [
+    "SessionJob",
+    "SessionResult",
+    "check_distinct",
+    "check_pairs",
+    "process_session",
+    "run_sessions",
+]
 
 MARKER_TYPE = "Markers"
+LABEL_KEYS = ("study", "participant", "session")
 #: Command-line options that choose a stream by name, per kind (for error messages).
 STREAM_OPTIONS = {
     "eeg": "--eeg-stream",
@@ -230,7 +238,7 @@ def _flags(flags: Sequence[str]) -> str:
 def _pupil(
     result: SessionResult, times: SessionTimes, signal: Signal, config: PhysioConfig, factor: str
 ) -> dict[str, Any]:
-    from runner.physio.pupil import PupilSettings, clean_pupil, trial_pupil
+    from runner.physio.pupil import PupilSettings, baseline_value, clean_pupil, trial_pupil
 
     unit = (signal.units[0] if signal.units else "").strip().lower()
     result.pupil_unit = "mm" if unit in MM_UNITS else "au"
@@ -255,15 +263,8 @@ def _pupil(
         )
         for t in times.trials
     ]
-    baselines = []
-    for b, _ in bounds:
-        if b is None:
-            continue
-        lo, hi = np.searchsorted(clean.times, b[0]), np.searchsorted(clean.times, b[1])
-        seg = clean.size[lo:hi]
-        if len(seg) and np.isfinite(seg).any():
-            baselines.append(float(np.nanmedian(seg)))
-    session_baselines = np.asarray(baselines, dtype=float)
+    found = [baseline_value(clean, b) for b, _ in bounds if b is not None]
+    session_baselines = np.asarray([v for v in found if v is not None], dtype=float)
     traces: list[tuple[Any, np.ndarray]] = []
     span = (pc.window.max_s or 10.0) * times.scale
     grid = np.linspace(0.0, span, TRACE_POINTS)
@@ -397,6 +398,9 @@ def _eeg(
         if w is not None:
             onsets.append(w[0])
             index.append(i)
+    order = sorted(range(len(onsets)), key=lambda k: onsets[k])  # make_epochs wants time order
+    onsets = [onsets[k] for k in order]
+    index = [index[k] for k in order]
     duration = (ec.epoch.duration_s or 2.0) * times.scale
     columns = [f"eeg_{b}_{g}_log10_uv2_per_hz" for b in ec.bands for g in ec.groups]
     result.eeg_columns = columns
@@ -552,6 +556,30 @@ def _on_dask(
             yield future.result()
     finally:
         client.close()
+
+
+def check_distinct(sessions: Sequence[Path]) -> None:
+    """Each session once: no folder twice, no two folders with the same study, participant and
+    session (their rows and figures would collide).
+
+    Raises
+    ------
+    UsageError
+        A session is given twice.
+    """
+    from runner.contract.layout import JOURNAL_NAME
+    from runner.journal.read import read_journal
+
+    seen: dict[object, Path] = {}
+    for folder in sessions:
+        header = read_journal(Path(folder) / JOURNAL_NAME, decode=frozenset()).header or {}
+        for key in (Path(folder).resolve(), tuple(header.get(k) for k in LABEL_KEYS)):
+            if key in seen:
+                raise UsageError(
+                    f"{seen[key]} and {folder} are the same session (study, participant and "
+                    "session); give each session once."
+                )
+            seen[key] = Path(folder)
 
 
 def check_pairs(sessions: Sequence[Path], recordings: Sequence[Path]) -> None:

@@ -191,3 +191,13 @@ def test_origin_from_one_pass_equals_the_export_origin(piloted):
     assert mine.t0 == pytest.approx(theirs.t0, abs=1e-9)
     for _payload, t in session.markers(on_timeline=True):
         assert mine.onset(t) == pytest.approx(theirs.onset(t), abs=1e-9)
+
+
+def test_the_same_session_twice_is_refused(piloted, capsys):
+    """Giving one session folder twice is a usage error before any work, naming both."""
+    folder, rec, _truth, root = piloted
+    out = root / "out-twice"
+    args = ["physio", str(folder), str(folder), "--recording", str(rec), "--recording", str(rec)]
+    assert main([*args, "--out", str(out)]) == 2
+    assert "give each session once" in capsys.readouterr().err
+    assert not out.exists()
