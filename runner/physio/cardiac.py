@@ -54,6 +54,7 @@ WELCH_SEGMENT_S = 2.0 / LF_BAND[0]
 FLAG_TOO_FEW_BEATS = "too_few_beats"
 FLAG_BEATS_MISSING = "beats_missing"
 FLAG_ARTEFACT_SHARE_HIGH = "ectopic_share_high"
+FLAG_RR_IMPLAUSIBLE = "rr_implausible"
 
 
 @dataclass(frozen=True)
@@ -140,7 +141,9 @@ def heart_rate(beat_times: np.ndarray, start: float, end: float) -> HeartRate:
 
     The instantaneous rate during an interval between two beats is 60 / interval; the mean
     weights each interval by how much of it lies in the window, so short windows (one trial)
-    are measured without rounding to whole beats. The window must be bracketed by beats.
+    are measured without rounding to whole beats. Flags: ``hr_window_too_short``,
+    ``beats_missing`` (the window is not bracketed by beats, or a pause over
+    :data:`MAX_BEAT_GAP_S`), ``rr_implausible`` (an interval outside :data:`RR_RANGE_MS`).
     """
     bt = np.asarray(beat_times, dtype=np.float64)
     inside = int(np.count_nonzero((bt >= start) & (bt <= end)))
@@ -157,7 +160,7 @@ def heart_rate(beat_times: np.ndarray, start: float, end: float) -> HeartRate:
     low, high = RR_RANGE_MS
     rr_ms = intervals * 1000.0
     if np.any((rr_ms < low) | (rr_ms > high)):
-        return HeartRate(None, inside, (FLAG_ARTEFACT_SHARE_HIGH,))
+        return HeartRate(None, inside, (FLAG_RR_IMPLAUSIBLE,))
     overlap = np.minimum(span[1:], end) - np.maximum(span[:-1], start)
     bpm = float(np.sum(overlap * 60.0 / intervals) / np.sum(overlap))
     return HeartRate(bpm, inside, ())

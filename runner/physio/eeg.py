@@ -12,6 +12,7 @@ reference and rejection are then applied by MNE to the epochs (:class:`mne.Epoch
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
@@ -253,6 +254,8 @@ def make_epochs(
     onsets = np.asarray(onsets, dtype=np.float64)
     if onsets.size > 1 and not np.all(np.diff(onsets) > 0):
         raise ValueError("onsets must be strictly increasing")
+    if tmax <= tmin:
+        raise ValueError(f"tmax ({tmax}) must be after tmin ({tmin})")
     refs = [settings.reference] if isinstance(settings.reference, str) else settings.reference
     if refs != ["average"]:
         unknown = [r for r in refs if r not in ch_names]
@@ -372,11 +375,14 @@ def make_epochs(
         epochs.drop([0], reason="NO_USABLE_EPOCHS", verbose=False)
     else:
         ptp = _ptp(x)
-        epochs.drop_bad(
-            reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6},
-            flat={"eeg": flat_v},
-            verbose=False,
-        )
+        with warnings.catch_warnings():
+            # Dropping every epoch is a result here (each reason is returned), not a warning.
+            warnings.filterwarnings("ignore", "All epochs were dropped", RuntimeWarning)
+            epochs.drop_bad(
+                reject={"eeg": settings.reject_peak_to_peak_uv * 1e-6},
+                flat={"eeg": flat_v},
+                verbose=False,
+            )
     kept = np.zeros(onsets.size, dtype=bool)
     for row, i in enumerate(usable):
         log = epochs.drop_log[row]

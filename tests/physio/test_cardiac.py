@@ -86,7 +86,7 @@ def test_heart_rate_is_the_time_weighted_mean_of_instantaneous_rates() -> None:
 
 
 def test_heart_rate_flags_short_windows_and_missing_beats() -> None:
-    """A window under the minimum, or not bracketed by beats, gives a flag and no number.
+    """A short window, missing beats or an implausible interval give a flag and no number.
 
     Source: common practice (no published source).
     """
@@ -95,6 +95,9 @@ def test_heart_rate_flags_short_windows_and_missing_beats() -> None:
     assert short.bpm is None and short.flags == ("hr_window_too_short",)
     late = heart_rate(beats, 18.0, 25.0)
     assert late.bpm is None and late.flags == ("beats_missing",)
+    paused = np.concatenate((beats, [beats[-1] + 2.5]))
+    odd = heart_rate(paused, 17.0, 21.0)
+    assert odd.bpm is None and odd.flags == ("rr_implausible",)
 
 
 def test_rmssd_and_sdnn_of_a_worked_example() -> None:

@@ -214,3 +214,26 @@ def test_group_log_power_is_log10_of_the_group_mean_in_uv2() -> None:
     assert out["theta_frontal"][0] == pytest.approx(np.log10(12.5), abs=1e-3)
     assert out["theta_mixed"][0] == pytest.approx(np.log10(12.5 / 2), abs=1e-3)
     assert np.isnan(out["alpha_gone"][0])
+
+
+def test_every_epoch_dropped_is_a_result_not_a_warning() -> None:
+    """When every epoch exceeds the amplitude limit, all are dropped with reasons, silently.
+
+    Source: MNE-Python (Epochs.drop_bad peak-to-peak rejection); warnings are errors here.
+    """
+    data = _recording(seconds=40.0, seed=6) * 50.0  # 500 uV noise: every epoch over 150 uV
+    onsets = FIRST_TIME + np.array([10.0, 20.0, 30.0])
+    result = make_epochs(data, NAMES, SRATE, FIRST_TIME, onsets, TMIN, TMAX)
+    assert len(result.epochs) == 0
+    assert not result.kept.any()
+    assert all(reasons and reasons[0].startswith("amplitude:") for reasons in result.drop_reasons)
+
+
+def test_onsets_out_of_order_are_refused() -> None:
+    """Onsets must increase (one epoch per trial, in trial order).
+
+    Source: common practice (no published source).
+    """
+    data = _recording(seconds=40.0)
+    with pytest.raises(ValueError, match="increasing"):
+        make_epochs(data, NAMES, SRATE, FIRST_TIME, FIRST_TIME + np.array([20.0, 10.0]), TMIN, TMAX)
