@@ -256,3 +256,13 @@ def test_check_accepts_a_protocol_that_supports_its_measures(tmp_path):
         physio={"eeg": {"min_epochs_per_condition": 2}},
     )
     assert codes == set()
+
+
+def test_scheduler_without_dask_installed_is_one_clear_error(monkeypatch):
+    """Without dask.distributed, --scheduler is one usage error naming the extra to install."""
+    import sys
+
+    monkeypatch.setitem(sys.modules, "dask.distributed", None)
+    with pytest.raises(UsageError) as info:
+        list(run_sessions([], scheduler="tcp://127.0.0.1:8786"))
+    assert "trialdeck[dask]" in str(info.value) and "\n" not in str(info.value)
