@@ -107,7 +107,13 @@ def _pupil(result: SessionResult, pupil: dict[str, Any], factor: str | None) -> 
     what = f"by {factor}" if factor else "by block"
     ax.set_title(f"Pupil response {what}: {_who(result)}")
     if levels:
-        ax.legend(title=factor or "block", loc="best", fontsize=8.5, title_fontsize=9)
+        ax.legend(
+            title=factor or "block",
+            loc="upper left",
+            bbox_to_anchor=(1.01, 1.0),
+            fontsize=8.5,
+            title_fontsize=9,
+        )
     else:
         ax.text(
             0.5,
