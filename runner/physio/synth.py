@@ -234,6 +234,7 @@ class SynthSettings:
     alpha_uv: tuple[float, float] = (8.0, 3.0)  # parietal 10 Hz amplitude during a stimulus
     rest_alpha_uv: float = 8.0
     eeg_effect_s: float = 2.0  # how long after onset the EEG effect lasts (real time)
+    eeg_noise_uv: float = 4.0  # standard deviation of the white noise behind the coloured noise
     photodiode_lag_s: float = 0.008
 
 
@@ -573,7 +574,7 @@ def _eeg_blocks(
     for first in range(0, total, per):
         count = min(per, total - first)
         ts = start + (first + np.arange(count)) / s.eeg_srate
-        white = rng.standard_normal((count, nch)).astype(np.float32) * 4.0
+        white = rng.standard_normal((count, nch)).astype(np.float32) * s.eeg_noise_uv
         noise, zi = lfilter([1.0], [1.0, -0.9], white, axis=0, zi=zi)
         data = noise.astype(np.float32)
         alpha_amp = np.full(count, s.rest_alpha_uv, dtype=np.float32)
