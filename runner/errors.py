@@ -179,6 +179,10 @@ PROBLEM_CODES: dict[str, str] = {
     "unlike-sessions": (
         "the sessions differ in speed, mode or protocol and are not pooled without --pool-unlike"
     ),
+    # What the protocol's physio section asks for (check; docs/physio.md).
+    "physio-baseline-too-long": "the pupil baseline window is longer than the shortest fixation",
+    "physio-period-too-short": "a rest or break is shorter than an HRV measure's minimum window",
+    "physio-few-epochs": "a condition has fewer trials than the EEG measures are configured to need",
 }
 
 

@@ -115,6 +115,7 @@ CONTRACT_VERBS = {
     "schema",
     "selftest",
     "demo",
+    "physio",
 }
 # Imported by a verb's own library call, never while the command line is parsed.
 HEAVY = ("pygame", "pylsl", "pandas", "matplotlib", "networkx")

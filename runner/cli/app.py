@@ -34,6 +34,7 @@ VERBS: tuple[tuple[str, str], ...] = (
     ("export", "pooled trials table and BIDS events files"),
     ("summary", "pilot report: tables, plots and report.html"),
     ("stimuli", "make node-link stimuli with known answers from a spec"),
+    ("physio", "per-trial pupil, heart and EEG measures from a session's recording"),
 )
 
 

@@ -32,6 +32,17 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--windowed", action="store_true")
     p.add_argument("--frames", metavar="DIR", help="write a PNG of every distinct screen into DIR")
     p.add_argument("--verbose", action="store_true", help="print a line per trial")
+    p.add_argument(
+        "--physio-out",
+        default="demo-physio",
+        metavar="DIR",
+        help="where the per-trial physiology of the simulated recording goes (default ./demo-physio)",
+    )
+    p.add_argument(
+        "--no-physio",
+        action="store_true",
+        help="stop after the pilot (no simulated recording, no physiology)",
+    )
 
 
 def demo_protocol() -> Path:
@@ -82,9 +93,41 @@ def run(args: argparse.Namespace) -> int:
     )
     exit_code = run_one_session(ns, mode="pilot", protocol=protocol, console_quiet=not args.verbose)
     if exit_code == 0:
-        for line in next_steps(session_folder(out, study, DEMO_PARTICIPANT, str(n)), out):
+        folder = session_folder(out, study, DEMO_PARTICIPANT, str(n))
+        if not args.no_physio:
+            demo_physio(folder, out, Path(args.physio_out))
+        for line in next_steps(folder, out):
             print(line)
     return exit_code
+
+
+def demo_recording(folder: Path, out: Path) -> Path:
+    """Where the demo writes the simulated recording of the session in ``folder``."""
+    return out / "recordings" / f"{folder.parent.name}_{folder.name}_simulated.xdf"
+
+
+def demo_physio(folder: Path, out: Path, physio_out: Path) -> None:
+    """Simulate a recording of the demo session (invented signals) and compute its physiology."""
+    from runner.physio.outputs import FIGURES_FOLDER, prepare, write_tables
+    from runner.physio.pipeline import SessionJob, process_session
+    from runner.physio.synth import simulate_recording
+
+    target = prepare(physio_out)
+    recording = demo_recording(folder, out)
+    recording.parent.mkdir(parents=True, exist_ok=True)
+    simulate_recording(folder, recording)
+    print(f"Simulated recording (invented EEG, pupil, ECG and photodiode; demo only): {recording}")
+    result = process_session(
+        SessionJob(folder=folder, recording=recording, figures=physio_out / FIGURES_FOLDER)
+    )
+    files = write_tables(target, [result])
+    target.finish(files + result.figures)
+    print(
+        f"Per-trial physiology: {files[0]} ({len(result.trials)} trials); QA figures in "
+        f"{physio_out / FIGURES_FOLDER}"
+    )
+    for note in result.notes:
+        print(f"  note: {note}")
 
 
 def next_steps(folder: Path, out: Path) -> list[str]:
@@ -96,6 +139,8 @@ def next_steps(folder: Path, out: Path) -> list[str]:
         f"  trialdeck audit {f}          is the session complete and intact?",
         f"  trialdeck replay {f} --frames demo-frames   see every screen the participant saw",
         f"  trialdeck summary {o} --out demo-report     tables, plots and report.html",
+        f"  trialdeck physio {f} --recording {shlex.quote(str(demo_recording(folder, out)))} "
+        "--out my-physio   per-trial pupil, heart and EEG measures",
         "  trialdeck new my-study                       a starter protocol of your own to edit",
         "  (docs/protocol.md explains every setting; `trialdeck check` reviews a protocol.)",
     ]

@@ -384,6 +384,7 @@ class _Checker:
         self.texts()
         self.contrast()
         self.structured_counts()
+        self.physio()
         if not self.stimuli():
             return
         self.length()
@@ -392,6 +393,13 @@ class _Checker:
         if participants is not None:
             self.counterbalancing(participants)
             self.report.run_sheet = run_sheet(self.loaded, participants)
+
+    def physio(self) -> None:
+        """Warnings where the protocol's physio section asks for what it cannot give."""
+        from runner.physio.feasibility import physio_findings
+
+        for loc, message, code in physio_findings(self.model, self.schedule):
+            self.at(loc, message, code=code)
 
     def counts(self) -> None:
         trials = self.schedule.trials

@@ -25,6 +25,8 @@ from pydantic import (
 )
 from pydantic_core import PydanticCustomError
 
+from runner.physio.config import PhysioConfig
+
 COLOUR_RE = re.compile(r"^#(?:[0-9a-fA-F]{3}|[0-9a-fA-F]{6})$")
 STUDY_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9-]{0,62}$")
 KEY_NAMES = frozenset(
@@ -655,6 +657,9 @@ class Protocol(Strict):
     texts: Texts = Field(default_factory=Texts)
     exclusions: Exclusions | None = None
     pilot: PilotSettings = Field(default_factory=PilotSettings)
+    physio: PhysioConfig | None = Field(
+        None, description="Settings of `trialdeck physio` (docs/physio.md); optional."
+    )
 
     @field_validator("study")
     @classmethod
