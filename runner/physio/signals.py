@@ -445,6 +445,8 @@ def as_recording(path: str | Path, streams: dict[int, _Stream]) -> Any:
         )
         rec._timestamps[sid] = ts
         rec._values[sid] = st.values
+        if st.values is not None:
+            rec._kept[sid] = tuple(range(h.channel_count))
     return rec
 
 
