@@ -153,14 +153,17 @@ def recording_origin(
     sample: bool = False,
     photodiode: str | None = None,
     loaded: Recording | None = None,
+    zero_stream_id: int | None = None,
 ) -> Origin:
-    """Origin at the first sample of the recording's first EEG-type stream.
+    """Origin at the first sample of the recording's first EEG-type stream (or of the stream
+    with id ``zero_stream_id``, when given: the EEG stream, or the first signal, a caller chose).
 
     The recording's marker stream is matched with the journal's markers
     (:func:`runner.recording.check_recording`); their median time difference maps presenter
     times onto the recorder's clock. Time zero on the presenter clock is then the EEG stream's
     first timestamp (after pyxdf's clock synchronisation) minus that offset. ``loaded`` is the
-    recording already read from ``recording`` (then it is not read again).
+    recording already read from ``recording`` (then it is not read again): the one reader,
+    :func:`runner.recording.read_recording`, for export, audit and physio alike.
 
     With ``sample`` the origin also gives each event's nearest EEG sample (the ``sample``
     column); with ``photodiode`` (``STREAM[:CHANNEL]``, as for ``audit --photodiode``) the light
@@ -189,6 +192,11 @@ def recording_origin(
         for s in sorted(rec.streams, key=lambda x: x.stream_id)
         if s.type.strip().lower() == EEG_STREAM_TYPE and s.first_timestamp is not None
     ]
+    if zero_stream_id is not None:
+        chosen = rec.stream(zero_stream_id)
+        if chosen.first_timestamp is None:
+            raise RecordingError(f"{chosen.label()} in {recording} holds no samples.")
+        eeg = [chosen]
     if not eeg:
         kinds = ", ".join(sorted({repr(s.type) for s in rec.streams})) or "none"
         raise RecordingError(
@@ -234,11 +242,12 @@ def recording_origin(
         light, light_text = _light_edges(session, rec, clock, match.recorded_times(), photodiode)
     raw_first = float(stream.first_timestamp)  # type: ignore[arg-type]  # EEG streams here have samples
     drift = seg.drift_ppm
+    kind = "EEG" if stream.type.strip().lower() == EEG_STREAM_TYPE else repr(stream.type)
     return Origin(
         kind="recording",
         t0=t0,
         description=(
-            f"Onset in seconds from the first sample of EEG stream {stream.name!r} "
+            f"Onset in seconds from the first sample of {kind} stream {stream.name!r} "
             f"(source_id {stream.source_id!r}) in recording {Path(recording).name}, at "
             f"recorder time {first:.{SECONDS_DECIMALS}f} s after clock synchronisation and "
             "dejittering. Events whose marker was recorded are at their recorded times; the "

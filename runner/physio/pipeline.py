@@ -19,7 +19,7 @@ from typing import Any
 
 import numpy as np
 
-from runner.errors import UsageError
+from runner.errors import RecordingError, UsageError
 from runner.physio.config import PhysioConfig
 from runner.physio.signals import (
     ECG_LABEL_HINTS,
@@ -28,11 +28,10 @@ from runner.physio.signals import (
     RR_LABEL_HINTS,
     Signal,
     StreamHeader,
-    as_recording,
     channel_index,
     choose_stream,
-    read_signals,
-    read_streams,
+    read_chosen,
+    signals_from,
     stream_headers,
 )
 from runner.physio.windows import SessionTimes, TrialTimes, session_times, window_bounds
@@ -149,16 +148,9 @@ def process_session(job: SessionJob) -> SessionResult:
     config = effective_config(job, session.protocol.physio)
     headers = stream_headers(job.recording)
     chosen = _choose(headers, config)
-    # One pass over the file reads the marker streams (for the clock model) and the chosen ones.
-    markers = {h.stream_id for h in headers if h.type == MARKER_TYPE}
-    loaded = read_streams(job.recording, markers | {h.stream_id for h in chosen.values()})
     zero = chosen.get("eeg") or next(iter(chosen.values()), None)
-    times = session_times(
-        session,
-        job.recording,
-        rec=as_recording(job.recording, loaded),
-        zero_stream=None if zero is None else zero.stream_id,
-    )
+    if zero is None:
+        raise RecordingError(f"{job.recording} has no signal stream to count time from.")
     wanted: dict[str, tuple[StreamHeader, list[int] | None]] = {}
     hints = {
         "pupil": (config.streams.pupil, PUPIL_LABEL_HINTS),
@@ -172,8 +164,24 @@ def process_session(job: SessionJob) -> SessionResult:
         else:
             choice, hint = hints[kind]
             wanted[kind] = (header, [channel_index(header, choice, hint)])
-    signals = read_signals(job.recording, wanted, loaded)
-    del loaded
+    # The one reader reads the file once: the marker streams (for the clock model) and the
+    # chosen channels; export's recording_origin fits the clock model and time zero to it.
+    markers = {h.stream_id for h in headers if h.type == MARKER_TYPE}
+    rec = read_chosen(job.recording, wanted, markers, allow_truncated=job.allow_truncated)
+    times = session_times(
+        session,
+        job.recording,
+        allow_truncated=job.allow_truncated,
+        rec=rec,
+        zero_stream=zero.stream_id,
+        sample=True,
+    )
+    zero_times = times.origin.sample_times
+    signals = signals_from(
+        rec, wanted, None if zero_times is None else {zero.stream_id: zero_times}
+    )
+    times.origin = times.origin.without_samples()
+    del rec
     result = SessionResult(
         participant=session.participant,
         session=session.session,

@@ -1,10 +1,11 @@
 """The recording's signal streams: finding them by type and name, and reading their samples.
 
 :func:`stream_headers` walks the XDF chunk framing and parses only the StreamHeader chunks, so
-finding streams in a large recording reads a few kilobytes. :func:`read_signals` is the one place
-that reads samples (as float32, timestamps on the recorder's clock after clock synchronisation,
-dejittered per segment like the EEG origin of :mod:`runner.data.origins`); it can be switched to a
-streaming reader without touching its callers.
+finding streams in a large recording reads a few kilobytes. Samples are read by the product's one
+XDF reader, :func:`runner.recording.read_recording` (one streaming pass, pyxdf's clock
+synchronisation including clock resets): :func:`read_chosen` asks it for the marker streams and
+the chosen channels (as float32), :func:`signals_from` turns those into :class:`Signal` objects
+(timestamps dejittered per segment like the EEG origin of :mod:`runner.data.origins`).
 """
 
 from __future__ import annotations
@@ -12,20 +13,22 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 from xml.etree import ElementTree
 
 import numpy as np
 
 from runner.errors import RecordingError
 from runner.physio.config import StreamChoice
+from runner.recording.scan import Select
+from runner.recording.xdf import Recording
 
 __all__ = [
     "Signal",
     "StreamHeader",
     "channel_index",
     "choose_stream",
-    "read_signals",
+    "read_chosen",
+    "signals_from",
     "stream_headers",
 ]
 
@@ -226,264 +229,69 @@ def channel_index(header: StreamHeader, choice: StreamChoice, hints: tuple[str, 
     return 0
 
 
-NUMERIC_DTYPES = {
-    "float32": "<f4",
-    "double64": "<f8",
-    "int8": "<i1",
-    "int16": "<i2",
-    "int32": "<i4",
-    "int64": "<i8",
-}
-TAG_SAMPLES = 3
-TAG_CLOCK_OFFSET = 4
-TIMESTAMP_BYTES = 8
-
-
-@dataclass
-class _Stream:
-    header: StreamHeader
-    count: int = 0
-    times: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    values: Any = None  # float32 array (samples, channels), or a list of str for markers
-    filled: int = 0
-    offsets: list[tuple[float, float]] = field(default_factory=list)
-    last: float = 0.0
-
-
-def _varlen(f: Any) -> int:
-    width = f.read(1)
-    if not width or width[0] not in VARLEN_WIDTHS:
-        raise RecordingError("a chunk length is not a valid XDF length")
-    return int(struct.unpack(VARLEN_WIDTHS[width[0]], f.read(width[0]))[0])
-
-
-def _varlen_buf(buf: bytes, pos: int) -> tuple[int, int]:
-    width = buf[pos]
-    if width not in VARLEN_WIDTHS:
-        raise RecordingError("a sample count is not a valid XDF length")
-    return int(struct.unpack_from(VARLEN_WIDTHS[width], buf, pos + 1)[0]), pos + 1 + width
-
-
-def _walk(f: Any, size: int) -> Any:
-    """(tag, content start, content length) of each chunk; stops at damage or the end."""
-    pos = len(XDF_MAGIC)
-    f.seek(pos)
-    while pos < size:
-        try:
-            length = _varlen(f)
-        except (RecordingError, struct.error):
-            return
-        tag_raw = f.read(2)
-        if len(tag_raw) < 2 or length < 2:
-            return
-        start = f.tell()
-        if start + length - 2 > size:
-            return
-        yield struct.unpack("<H", tag_raw)[0], start, length - 2
-        pos = start + length - 2
-        f.seek(pos)
-
-
-def _numeric_chunk(st: _Stream, buf: bytes, pos: int) -> None:
-    """Decode the samples of one numeric Samples chunk into the stream's arrays."""
-    n, pos = _varlen_buf(buf, pos)
-    h = st.header
-    item = np.dtype(NUMERIC_DTYPES[h.channel_format])
-    width = h.channel_count * item.itemsize
-    body = memoryview(buf)[pos:]
-    dest = slice(st.filled, st.filled + n)
-    if len(body) == n * (1 + TIMESTAMP_BYTES + width) and all(
-        body[k * (1 + TIMESTAMP_BYTES + width)] == TIMESTAMP_BYTES for k in (0, n - 1)
-    ):
-        rec = np.dtype([("f", "u1"), ("t", "<f8"), ("v", item, (h.channel_count,))])
-        arr = np.frombuffer(body, dtype=rec)
-        if np.all(arr["f"] == TIMESTAMP_BYTES):
-            st.times[dest] = arr["t"]
-            st.values[dest] = arr["v"]
-            st.filled += n
-            st.last = float(arr["t"][-1]) if n else st.last
-            return
-    # Mixed or left-out timestamps: sample by sample (the specification's general case).
-    tdiff = 1.0 / h.nominal_srate if h.nominal_srate > 0 else 0.0
-    k = 0
-    for i in range(n):
-        if body[k] != 0:
-            st.last = struct.unpack_from("<d", body, k + 1)[0]
-            k += 1 + TIMESTAMP_BYTES
-        else:
-            st.last = st.last + tdiff
-            k += 1
-        st.times[st.filled + i] = st.last
-        st.values[st.filled + i] = np.frombuffer(body[k : k + width], dtype=item)
-        k += width
-    st.filled += n
-
-
-def _string_chunk(st: _Stream, buf: bytes, pos: int) -> None:
-    n, pos = _varlen_buf(buf, pos)
-    tdiff = 1.0 / st.header.nominal_srate if st.header.nominal_srate > 0 else 0.0
-    for i in range(n):
-        if buf[pos] != 0:
-            st.last = struct.unpack_from("<d", buf, pos + 1)[0]
-            pos += 1 + TIMESTAMP_BYTES
-        else:
-            st.last += tdiff
-            pos += 1
-        row = []
-        for _ in range(max(st.header.channel_count, 1)):
-            length, pos = _varlen_buf(buf, pos)
-            row.append(buf[pos : pos + length].decode("utf-8", errors="replace"))
-            pos += length
-        st.times[st.filled + i] = st.last
-        st.values.append(row)
-    st.filled += n
-
-
-def _sync(times: np.ndarray, offsets: list[tuple[float, float]]) -> np.ndarray:
-    """Timestamps moved onto the recorder's clock: a straight line fitted to the ClockOffset
-    measurements (as pyxdf's clock synchronisation does for a recording without clock resets)."""
-    if not offsets or not len(times):
-        return times
-    at = np.array([o[0] for o in offsets])
-    value = np.array([o[1] for o in offsets])
-    if len(offsets) < 2 or np.ptp(at) == 0:
-        return times + float(np.mean(value))
-    slope, intercept = np.polyfit(at, value, 1)
-    return times + (intercept + slope * times)
-
-
-def read_streams(path: str | Path, ids: set[int]) -> dict[int, _Stream]:
-    """Samples of the streams ``ids``, read in two passes over the chunk framing (count, then
-    fill preallocated arrays; numeric chunks whose samples all carry a timestamp are decoded at
-    once), timestamps synchronised to the recorder's clock. Other streams are skipped unread.
-
-    Raises
-    ------
-    RecordingError
-        The file is not XDF or a chunk of a chosen stream cannot be decoded.
-    """
-    path = Path(path)
-    headers = {h.stream_id: h for h in stream_headers(path)}
-    streams = {sid: _Stream(headers[sid]) for sid in ids if sid in headers}
-    size = path.stat().st_size
-    with path.open("rb") as f:
-        for tag, start, length in list(_walk(f, size)):
-            if tag not in (TAG_SAMPLES, TAG_CLOCK_OFFSET) or length < 4:
-                continue
-            f.seek(start)
-            head = f.read(min(length, 4 + 9))
-            sid = struct.unpack_from("<I", head, 0)[0]
-            st = streams.get(sid)
-            if st is None:
-                continue
-            if tag == TAG_CLOCK_OFFSET and length >= 20:
-                st.offsets.append(struct.unpack_from("<dd", head + f.read(20 - len(head)), 4))
-            elif tag == TAG_SAMPLES:
-                st.count += _varlen_buf(head, 4)[0]
-        for st in streams.values():
-            h = st.header
-            st.times = np.zeros(st.count)
-            if h.channel_format == "string":
-                st.values = []
-            elif h.channel_format in NUMERIC_DTYPES:
-                st.values = np.zeros(
-                    (st.count, h.channel_count), dtype=NUMERIC_DTYPES[h.channel_format]
-                )
-            else:
-                raise RecordingError(f"stream {h.label()} has an unknown channel format.")
-        for tag, start, length in list(_walk(f, size)):
-            if tag != TAG_SAMPLES:
-                continue
-            f.seek(start)
-            sid = struct.unpack("<I", f.read(4))[0]
-            st = streams.get(sid)
-            if st is None:
-                continue
-            buf = f.read(length - 4)
-            try:
-                if st.header.channel_format == "string":
-                    _string_chunk(st, buf, 0)
-                else:
-                    _numeric_chunk(st, buf, 0)
-            except (IndexError, ValueError, struct.error) as exc:
-                raise RecordingError(
-                    f"a Samples chunk of stream {st.header.label()} in {path} cannot be "
-                    f"decoded ({exc})."
-                ) from None
-    for st in streams.values():
-        st.times = _sync(st.times[: st.filled], st.offsets)
-        if isinstance(st.values, np.ndarray):
-            st.values = st.values[: st.filled]
-    return streams
-
-
-def as_recording(path: str | Path, streams: dict[int, _Stream]) -> Any:
-    """The streams as a :class:`runner.recording.xdf.Recording` (for the clock model)."""
-    from runner.recording.xdf import RecordedStream, Recording
-
-    rec = Recording(path=Path(path), streams=[])
-    for sid, st in sorted(streams.items()):
-        h = st.header
-        ts = st.times
-        rec.streams.append(
-            RecordedStream(
-                stream_id=sid,
-                name=h.name,
-                type=h.type,
-                source_id=h.source_id,
-                created_at=h.created_at,
-                nominal_srate=h.nominal_srate,
-                channel_count=h.channel_count,
-                channel_format=h.channel_format,
-                sample_count=len(ts),
-                first_timestamp=float(ts[0]) if len(ts) else None,
-                last_timestamp=float(ts[-1]) if len(ts) else None,
-                clock_offset_s=float(np.median([o[1] for o in st.offsets])) if st.offsets else 0.0,
-                clock_offset_count=len(st.offsets),
-                identity=dict(h.identity),
-            )
-        )
-        rec._timestamps[sid] = ts
-        rec._values[sid] = st.values
-        if st.values is not None:
-            rec._kept[sid] = tuple(range(h.channel_count))
-    return rec
-
-
-def read_signals(
+def read_chosen(
     path: str | Path,
     wanted: dict[str, tuple[StreamHeader, list[int] | None]],
-    loaded: dict[int, _Stream] | None = None,
-) -> dict[str, Signal]:
-    """The samples of the chosen streams as :class:`Signal` objects (float32, recorder-clock
-    times, dejittered per segment like the EEG origin of :mod:`runner.data.origins`).
-
-    ``loaded`` are streams already read by :func:`read_streams` (the others are read now).
+    marker_ids: set[int],
+    *,
+    allow_truncated: bool = False,
+) -> Recording:
+    """The recording as :func:`runner.recording.read_recording` reads it in one pass, keeping
+    the marker streams ``marker_ids`` (for the clock model) and, as float32, the chosen channels
+    of the ``wanted`` streams (``None``: every channel); other streams are skipped unread.
 
     Raises
     ------
     RecordingError
-        The file cannot be read as XDF.
+        The file cannot be read as XDF (or is truncated and ``allow_truncated`` is off).
+    """
+    from runner.recording import read_recording
+
+    keep: dict[str, list[int] | None] = {str(sid): None for sid in marker_ids}
+    for header, channels in wanted.values():
+        key = str(header.stream_id)
+        if channels is None or (key in keep and keep[key] is None):
+            keep[key] = None
+        else:
+            keep[key] = sorted(set(keep.get(key) or []) | set(channels))
+    select = Select(strings=True, channels=keep, only_listed=True)
+    return read_recording(
+        path, allow_truncated=allow_truncated, values=select, numeric_dtype=np.float32
+    )
+
+
+def signals_from(
+    rec: Recording,
+    wanted: dict[str, tuple[StreamHeader, list[int] | None]],
+    times: dict[int, np.ndarray] | None = None,
+) -> dict[str, Signal]:
+    """The chosen streams of ``rec`` (read by :func:`read_chosen`) as :class:`Signal` objects:
+    float32 samples, recorder-clock times dejittered per segment like the EEG origin of
+    :mod:`runner.data.origins` (``times``: such times already computed, by stream id).
+
+    Raises
+    ------
+    RecordingError
+        A chosen stream holds text, not numbers.
     """
     from runner.recording.dejitter import dejitter
 
-    loaded = dict(loaded or {})
-    missing = {h.stream_id for h, _ in wanted.values()} - set(loaded)
-    if missing:
-        loaded.update(read_streams(path, missing))
     out: dict[str, Signal] = {}
     for kind, (header, channels) in wanted.items():
-        st = loaded.get(header.stream_id)
-        if st is None or not isinstance(st.values, np.ndarray):
-            raise RecordingError(f"stream {header.label()} holds no numbers in {path}.")
-        data = st.values
-        if data.dtype != np.float32:
-            data = data.astype(np.float32)
-        chans = list(range(data.shape[1])) if channels is None else list(channels)
-        if channels is not None:
-            data = np.ascontiguousarray(data[:, chans])
-        times = st.times
-        if len(times) > 1 and header.nominal_srate > 0:
-            times = dejitter(times, header.nominal_srate)
-        out[kind] = Signal(header=header, times=times, data=data, channels=chans)
+        sid = header.stream_id
+        stream = rec.stream(sid)
+        if stream.channel_format == "string":
+            raise RecordingError(f"stream {header.label()} holds no numbers in {rec.path}.")
+        chans = list(range(stream.channel_count)) if channels is None else list(channels)
+        if channels is None:
+            data = rec.values(sid)
+        else:
+            data = np.stack([rec.channel(sid, c) for c in chans], axis=1)
+        data = np.ascontiguousarray(data, dtype=np.float32)
+        ts = (times or {}).get(sid)
+        if ts is None:
+            ts = rec.timestamps(sid)
+            if len(ts) > 1 and header.nominal_srate > 0:
+                ts = dejitter(ts, header.nominal_srate)
+        out[kind] = Signal(header=header, times=ts, data=data, channels=chans)
     return out

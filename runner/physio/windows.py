@@ -16,7 +16,6 @@ from typing import Any
 from runner.contract.events import RECORD_FIELD
 from runner.data.origins import Origin, recording_origin
 from runner.data.sessions import ExportSession
-from runner.errors import RecordingError
 from runner.journal.timeline import session_timeline
 from runner.physio.config import PERIOD_EVENTS, TRIAL_EVENTS, Window
 from runner.recording.xdf import Recording
@@ -25,7 +24,6 @@ __all__ = [
     "Period",
     "SessionTimes",
     "TrialTimes",
-    "origin_from",
     "session_times",
     "time_scale",
     "window_bounds",
@@ -79,22 +77,29 @@ def session_times(
     allow_truncated: bool = False,
     rec: Recording | None = None,
     zero_stream: int | None = None,
+    sample: bool = False,
 ) -> SessionTimes:
     """The completed trials' events and the periods of ``session``, on ``recording``'s clock.
 
-    With ``rec`` (the recording's marker streams and chosen signal streams, already read), the
-    clock model is fitted to it and time zero is the first sample of stream ``zero_stream``
-    (:func:`origin_from`); without, :func:`runner.data.origins.recording_origin` reads the file.
+    The clock model and time zero are :func:`runner.data.origins.recording_origin`'s, the same
+    as export's: fitted to ``rec`` (the recording already read, e.g. its marker streams and the
+    chosen signal streams) or to the file read now, with time zero at the first (dejittered)
+    sample of stream ``zero_stream`` (default: the first EEG stream). With ``sample`` the
+    origin keeps that stream's dejittered timestamps (``origin.sample_times``).
 
     Raises
     ------
     RecordingError
         See :func:`runner.data.origins.recording_origin`.
     """
-    if rec is None:
-        origin = recording_origin(session, recording, allow_truncated=allow_truncated)
-    else:
-        origin = origin_from(session, rec, zero_stream)
+    origin = recording_origin(
+        session,
+        recording,
+        allow_truncated=allow_truncated,
+        sample=sample,
+        loaded=rec,
+        zero_stream_id=zero_stream,
+    )
     records = session.read.records
     timeline = session_timeline(records)
 
@@ -129,74 +134,6 @@ def session_times(
         for n in sorted(completed)
     ]
     return SessionTimes(trials=trials, periods=periods, origin=origin, scale=time_scale(session))
-
-
-def origin_from(session: ExportSession, rec: Recording, zero_stream: int | None) -> Origin:
-    """The origin :func:`runner.data.origins.recording_origin` gives, from a recording already
-    read: the journal's markers matched with its marker stream, the clock model fitted to them,
-    time zero at the first (dejittered) sample of ``zero_stream``.
-
-    Raises
-    ------
-    RecordingError
-        Another session's recording, no marker found, or no stream to count from.
-    """
-    from runner.data.origins import MIN_MATCHED_SHARE
-    from runner.recording import check_recording
-    from runner.recording.check import sequence_mismatch
-    from runner.recording.dejitter import dejitter
-    from runner.recording.identity import compare_identity
-
-    path = rec.path
-    markers = session.markers(on_timeline=True)
-    info = session.header.get("markers") or {}
-    report = check_recording(rec, markers, source_id=info.get("source_id"), name=info.get("name"))
-    for sid in report.choice.stream_ids:
-        identity = compare_identity(rec.stream(sid).identity, session.header)
-        if identity.known and not identity.matches:
-            raise RecordingError(
-                f"{path} is not the recording of {session.folder}: {identity.describe()}. "
-                "Pick that session's recording."
-            )
-    match = report.match
-    if match.clock is None or match.matched == 0:
-        raise RecordingError(
-            f"none of the {len(markers)} markers of {session.folder} were found in {path}, so its "
-            "clock cannot be lined up with the session; check that this recording belongs to "
-            "this session (run `trialdeck audit` with it)."
-        )
-    if match.matched < len(markers) * MIN_MATCHED_SHARE or sequence_mismatch(match):
-        raise RecordingError(
-            f"the markers of {session.folder} do not line up with {path} as a sequence "
-            f"({match.matched} of {len(markers)} found); it is probably another session's "
-            "recording. Check the file, or run `trialdeck audit --recording` with it."
-        )
-    if zero_stream is None:
-        raise RecordingError(f"{path} has no signal stream to count time from.")
-    stream = rec.stream(zero_stream)
-    times = dejitter(rec.timestamps(zero_stream), stream.nominal_srate)
-    if not len(times):
-        raise RecordingError(f"stream {stream.label()} in {path} holds no samples.")
-    first = float(times[0])
-    seg = match.clock.segments[0]
-    t0 = (first - seg.offset_s + seg.slope * seg.t_ref) / (1.0 + seg.slope)
-    return Origin(
-        kind="recording",
-        t0=t0,
-        description=f"Seconds from the first sample of stream {stream.name!r} in {path.name}.",
-        details={
-            "recording": str(path),
-            "zero_stream": stream.name,
-            "clock_offset_s": seg.offset_s,
-            "clock_drift_ppm": seg.drift_ppm,
-            "markers_matched": match.matched,
-            "markers_journaled": len(markers),
-            "residual_median_abs_ms": match.residual_median_abs_ms,
-        },
-        clock=match.clock,
-        recorded=match.recorded_times(),
-        zero=first,
-    )
 
 
 def _record(record: dict[str, Any]) -> dict[str, Any]:

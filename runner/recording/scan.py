@@ -55,6 +55,10 @@ VARLEN_WIDTHS = (1, 4, 8)
 # The 16 bytes of every Boundary chunk (XDF specification); a reader resynchronises on them.
 BOUNDARY_UUID = bytes.fromhex("43a546dccbf5410fb30ed5467383cbe4")
 SCAN_BLOCK = 2**20
+# Kept samples are gathered in blocks of about this many bytes and joined once at the end, each
+# block freed as soon as it is copied: the peak is the result plus one block, not twice the
+# result (as joining thousands of per-chunk arrays is).
+ROWS_BLOCK_BYTES = 2**26
 FORMATS: dict[str, str] = {
     "int8": "<i1",
     "int16": "<i2",
@@ -134,6 +138,43 @@ class Select:
         return tuple(sorted(chosen))
 
 
+class _Rows:
+    """Rows of one dtype and row shape, appended chunk by chunk into large blocks."""
+
+    def __init__(self, shape: tuple[int, ...], dtype: np.dtype) -> None:
+        self.shape = shape
+        self.dtype = np.dtype(dtype)
+        row_bytes = self.dtype.itemsize * int(np.prod(shape, dtype=np.int64))
+        self.capacity = max(ROWS_BLOCK_BYTES // max(row_bytes, 1), 1)
+        self.blocks: list[np.ndarray] = []
+        self.fill = 0  # rows used in the last block
+
+    def append(self, rows: np.ndarray) -> None:
+        """Copy ``rows`` in (converted to this dtype)."""
+        done, n = 0, len(rows)
+        while done < n:
+            if not self.blocks or self.fill == self.capacity:
+                self.blocks.append(np.empty((self.capacity, *self.shape), self.dtype))
+                self.fill = 0
+            take = min(n - done, self.capacity - self.fill)
+            self.blocks[-1][self.fill : self.fill + take] = rows[done : done + take]
+            self.fill += take
+            done += take
+
+    def join(self) -> np.ndarray:
+        """All rows as one array; the blocks are released while it is filled."""
+        total = self.capacity * (len(self.blocks) - 1) + self.fill if self.blocks else 0
+        out = np.empty((total, *self.shape), self.dtype)
+        pos = 0
+        while self.blocks:
+            block = self.blocks.pop(0)
+            size = len(block) if self.blocks else self.fill
+            out[pos : pos + size] = block[:size]
+            pos += size
+            del block
+        return out
+
+
 @dataclass
 class ScannedStream:
     """One stream as scanned: header and footer, clock offsets, timestamps, kept channels.
@@ -157,8 +198,9 @@ class ScannedStream:
     time_stamps: np.ndarray = field(default_factory=lambda: np.zeros((0,)))
     values: Any = None
     clock_segments: list[tuple[int, int]] = field(default_factory=list)
-    _ts_chunks: list[np.ndarray] = field(default_factory=list, repr=False)
-    _value_chunks: list[Any] = field(default_factory=list, repr=False)
+    _stamps: _Rows | None = field(default=None, repr=False)
+    _rows: _Rows | None = field(default=None, repr=False)
+    _strings: list[list[str]] = field(default_factory=list, repr=False)
     _last_timestamp: float = 0.0
 
     @property
@@ -173,6 +215,19 @@ class ScannedStream:
     @property
     def is_string(self) -> bool:
         return self.channel_format == STRING_FORMAT
+
+    def add(self, stamps: np.ndarray, values: Any) -> None:
+        """Keep one chunk's timestamps and kept values (copied: they may view the chunk)."""
+        if self._stamps is None:
+            self._stamps = _Rows((), np.dtype(np.float64))
+        self._stamps.append(stamps)
+        if self.is_string:
+            self._strings.extend(values)
+            return
+        if self._rows is None:
+            fmt = np.dtype(FORMATS[self.channel_format]).newbyteorder("=")
+            self._rows = _Rows((len(self.kept),), self.numeric_dtype or fmt)
+        self._rows.append(values)
 
 
 @dataclass
@@ -299,7 +354,7 @@ def _numeric_chunk(s: ScannedStream, buf: bytes, keep: Keep) -> tuple[np.ndarray
         stamps, starts = _mixed_stamps(s, buf, pos, n, width)
         values = _gather(buf, starts, dt, nch, keep, out_dtype)
     else:
-        values = _pick(block, keep, out_dtype)
+        values = _pick(block, keep)
     s._last_timestamp = float(stamps[-1]) if len(stamps) else s._last_timestamp
     return stamps, values
 
@@ -345,10 +400,11 @@ def _gather(
     return picked.view(dt).reshape(len(starts), len(cols)).astype(out_dtype)
 
 
-def _pick(block: np.ndarray, keep: Keep, dtype: np.dtype) -> np.ndarray:
+def _pick(block: np.ndarray, keep: Keep) -> np.ndarray:
+    """The kept columns of a decoded chunk (every one: the chunk itself, not copied)."""
     if isinstance(keep, _All):
-        return np.array(block, dtype=dtype)
-    return np.array(block[:, list(keep or ())], dtype=dtype)
+        return block
+    return block[:, list(keep or ())]
 
 
 def _string_chunk(s: ScannedStream, buf: bytes, keep: Keep) -> tuple[np.ndarray, list[list[str]]]:
@@ -498,8 +554,7 @@ def scan_xdf(
                     f.seek(start)
                     _scan_forward(f)
                     continue
-                s._ts_chunks.append(stamps)
-                s._value_chunks.append(values)
+                s.add(stamps, values)
             elif tag == TAG_CLOCK_OFFSET:
                 raw = f.read(content_len)
                 if len(raw) < 16:
@@ -574,17 +629,19 @@ def _read_header(
 
 def _finish(s: ScannedStream) -> None:
     """Join the chunks (pyxdf's empty shapes for a stream without samples)."""
-    if s._ts_chunks:
-        s.time_stamps = np.concatenate(s._ts_chunks)
+    if s._stamps is not None:
+        s.time_stamps = s._stamps.join()
         if s.is_string:
-            s.values = [row for chunk in s._value_chunks for row in chunk]
+            s.values = s._strings
         else:
-            s.values = np.concatenate(s._value_chunks)
+            assert s._rows is not None  # set with the first chunk
+            s.values = s._rows.join()
     else:
         s.time_stamps = np.zeros((0,))
         s.values = [] if s.is_string else np.zeros((0, len(s.kept)), dtype=s.numeric_dtype)
-    s._ts_chunks = []
-    s._value_chunks = []
+    s._stamps = None
+    s._rows = None
+    s._strings = []
 
 
 # --------------------------------------------------------------------------------------------

@@ -266,3 +266,37 @@ def test_scheduler_without_dask_installed_is_one_clear_error(monkeypatch):
     with pytest.raises(UsageError) as info:
         list(run_sessions([], scheduler="tcp://127.0.0.1:8786"))
     assert "trialdeck[dask]" in str(info.value) and "\n" not in str(info.value)
+
+
+def test_physio_read_follows_a_clock_reset_like_pyxdf(tmp_path):
+    """The physio path's one read of a recording whose sender clock restarted mid-session gives
+    pyxdf's synchronised timestamps (two clock segments) and the chosen channel as float32.
+
+    Source: pyxdf.load_xdf clock-reset handling (synchronize_clocks=True, its defaults).
+    """
+    from runner.physio.signals import read_chosen, signals_from
+
+    path = tmp_path / "reset.xdf"
+    w = XdfWriter(path)
+    w.header(1, name="eye", type="Pupil", channel_format="float32", srate=100.0,
+             labels=["gaze_x", "pupil"])  # fmt: skip
+    ts = np.concatenate([500.0 + np.arange(3000) / 100.0, 2.0 + np.arange(3000) / 100.0])
+    values = np.random.default_rng(4).normal(size=(6000, 2)).astype(np.float32)
+    w.samples(1, ts, values, chunk=100)
+    w.clock_offsets(1, [(500.0 + k, 1000.0 + 1e-5 * k) for k in range(30)])
+    w.clock_offsets(1, [(2.0 + k, 1528.0 + 1e-5 * k) for k in range(30)])
+    w.header(2, name="m", type="Markers", channel_format="string", srate=0.0, labels=["marker"])
+    w.strings(2, [501.0, 503.0], ['{"event":"a"}', '{"event":"b"}'])
+    w.clock_offsets(2, [(500.0, 1000.0), (530.0, 1000.0)])
+    w.close()
+    headers = stream_headers(path)
+    wanted = {"pupil": (headers[0], [1])}
+    rec = read_chosen(path, wanted, {2})
+    ref, _ = pyxdf.load_xdf(str(path), synchronize_clocks=True, dejitter_timestamps=False)
+    by_name = {s["info"]["name"][0]: s for s in ref}
+    assert len(by_name["eye"]["info"]["clock_segments"]) == 2
+    np.testing.assert_allclose(rec.timestamps(1), by_name["eye"]["time_stamps"], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(rec.timestamps(2), by_name["m"]["time_stamps"], rtol=0, atol=1e-9)
+    signal = signals_from(rec, wanted)["pupil"]
+    assert signal.data.dtype == np.float32
+    np.testing.assert_array_equal(signal.data[:, 0], by_name["eye"]["time_series"][:, 1])

@@ -156,41 +156,55 @@ def test_demo_shows_the_path_to_per_trial_physiology(tmp_path, capsys, monkeypat
     assert sum(1 for r in physio if r["pupil_mean_change_mm"]) >= len(physio) // 2
 
 
-def test_one_pass_reader_equals_pyxdf(piloted):
-    """Every stream of the simulated recording reads back as pyxdf reads it, clocks synchronised.
+def _physio_read(rec):
+    """The physio path's one read of ``rec``: markers plus every numeric stream, all channels."""
+    from runner.physio.signals import read_chosen, stream_headers
+
+    headers = stream_headers(rec)
+    wanted = {str(h.stream_id): (h, None) for h in headers if h.channel_format != "string"}
+    markers = {h.stream_id for h in headers if h.type == "Markers"}
+    return headers, wanted, read_chosen(rec, wanted, markers)
+
+
+def test_physio_read_equals_pyxdf(piloted):
+    """The physio path's streams (via the one reader) read back as pyxdf reads them: clocks
+    synchronised, float32 samples, marker strings.
 
     Source: pyxdf.load_xdf (synchronize_clocks=True), the reference XDF reader.
     """
     import pyxdf
 
-    from runner.physio.signals import read_streams, stream_headers
+    from runner.physio.signals import signals_from
 
     _folder, rec, _truth, _root = piloted
-    got = read_streams(rec, {h.stream_id for h in stream_headers(rec)})
+    _headers, wanted, got = _physio_read(rec)
+    signals = signals_from(got, wanted)
     ref, _ = pyxdf.load_xdf(str(rec), synchronize_clocks=True, dejitter_timestamps=False)
-    assert len(ref) == len(got)
+    assert len(ref) == len(got.streams)
     for entry in ref:
-        mine = got[int(entry["info"]["stream_id"])]
-        np.testing.assert_allclose(mine.times, entry["time_stamps"], rtol=0, atol=1e-9)
-        if isinstance(mine.values, list):
-            assert mine.values == entry["time_series"]
+        sid = int(entry["info"]["stream_id"])
+        np.testing.assert_allclose(got.timestamps(sid), entry["time_stamps"], rtol=0, atol=1e-9)
+        if entry["info"]["channel_format"][0] == "string":
+            assert got.values(sid) == entry["time_series"]
         else:
-            np.testing.assert_array_equal(mine.values, entry["time_series"])
+            expected = np.asarray(entry["time_series"], dtype=np.float32)
+            np.testing.assert_array_equal(got.values(sid), expected)
+            np.testing.assert_array_equal(signals[str(sid)].data, expected)
+            assert signals[str(sid)].data.dtype == np.float32
 
 
-def test_origin_from_one_pass_equals_the_export_origin(piloted):
-    """The clock model and time zero fitted in one pass equal those of export's recording_origin."""
+def test_physio_origin_equals_the_export_origin(piloted):
+    """The clock model and time zero the physio path fits to its one read (markers and chosen
+    streams only) equal those export's recording_origin fits to the whole file."""
     from runner.data.origins import recording_origin
     from runner.data.sessions import load_session
-    from runner.physio.signals import as_recording, read_streams, stream_headers
-    from runner.physio.windows import origin_from
+    from runner.physio.windows import session_times
 
     folder, rec, _truth, _root = piloted
     session = load_session(folder)
-    headers = stream_headers(rec)
-    recording = as_recording(rec, read_streams(rec, {h.stream_id for h in headers}))
+    headers, _wanted, got = _physio_read(rec)
     eeg = next(h.stream_id for h in headers if h.type == "EEG")
-    mine = origin_from(session, recording, eeg)
+    mine = session_times(session, rec, rec=got, zero_stream=eeg).origin
     theirs = recording_origin(session, rec)
     assert mine.zero == pytest.approx(theirs.zero, abs=1e-9)
     assert mine.t0 == pytest.approx(theirs.t0, abs=1e-9)

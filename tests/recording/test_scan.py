@@ -254,3 +254,25 @@ def test_damaged_chunk_mid_file_recovers_at_the_next_boundary_like_pyxdf(tmp_pat
     rec = read_recording(path, allow_truncated=True)
     _assert_same(rec, _pyxdf(path))
     assert 0 < rec.stream(2).sample_count < 4000
+
+
+def test_samples_gathered_across_many_blocks_match_pyxdf(tmp_path, monkeypatch):
+    """Kept samples gathered in blocks smaller than a chunk (so chunks straddle blocks) and joined
+    give pyxdf's values, as stored and as float32.
+
+    Source: pyxdf.load_xdf(synchronize_clocks=True, dejitter_timestamps=False), the reference
+    reader.
+    """
+    monkeypatch.setattr("runner.recording.scan.ROWS_BLOCK_BYTES", 1000)
+    rng = np.random.default_rng(8)
+    n = 2000
+    eeg = FixtureStream(2, "amp", "EEG", "double64", 500.0, _regular(99.0, n, 500.0),
+                        rng.normal(size=(n, 5)), clock_offsets=[(99.0, 2.0), (102.0, 2.0)])  # fmt: skip
+    path = write_xdf(tmp_path / "blocks.xdf", [_markers(), eeg], chunk_samples=73)
+    ref = _pyxdf(path)
+    _assert_same(read_recording(path), ref)
+    as32 = read_recording(path, values=Select(channels={"amp": [1, 3]}), numeric_dtype=np.float32)
+    np.testing.assert_array_equal(
+        as32.channel(2, 3), ref[2]["time_series"][:, 3].astype(np.float32)
+    )
+    assert as32.channel(2, 1).dtype == np.float32
