@@ -1,7 +1,8 @@
 """The recording's signal streams: finding them by type and name, and reading their samples.
 
-:func:`stream_headers` walks the XDF chunk framing and parses only the StreamHeader chunks, so
-finding streams in a large recording reads a few kilobytes. Samples are read by the product's one
+:func:`stream_headers` parses only the StreamHeader chunks (found by
+:func:`runner.recording.scan.stream_header_chunks`), so finding streams in a large recording reads
+a few kilobytes. Samples are read by the product's one
 XDF reader, :func:`runner.recording.read_recording` (one streaming pass, pyxdf's clock
 synchronisation including clock resets): :func:`read_chosen` asks it for the marker streams and
 the chosen channels (as float32), :func:`signals_from` turns those into :class:`Signal` objects
@@ -19,7 +20,7 @@ import numpy as np
 
 from runner.errors import RecordingError
 from runner.physio.config import StreamChoice
-from runner.recording.scan import Select
+from runner.recording.scan import Select, XdfFormatError, stream_header_chunks
 from runner.recording.xdf import Recording
 
 __all__ = [
@@ -32,10 +33,6 @@ __all__ = [
     "stream_headers",
 ]
 
-XDF_MAGIC = b"XDF:"
-TAG_STREAM_HEADER = 2
-VARLEN_WIDTHS = {1: "<B", 4: "<I", 8: "<Q"}
-MAX_HEADER_BYTES = 16 * 1024 * 1024
 #: Channel labels that name a pupil-size channel, when the configuration names none.
 PUPIL_LABEL_HINTS = ("pupil", "diameter", "area")
 ECG_LABEL_HINTS = ("ecg", "ekg")
@@ -145,33 +142,22 @@ def stream_headers(path: str | Path) -> list[StreamHeader]:
     path = Path(path)
     if not path.is_file():
         raise RecordingError(f"the recording {path} does not exist; check the path.")
-    size = path.stat().st_size
+    try:
+        chunks = stream_header_chunks(path)
+    except XdfFormatError:
+        raise RecordingError(
+            f"{path} is not an XDF recording (it does not start with 'XDF:')."
+        ) from None
+    except OSError as exc:
+        raise RecordingError(f"the recording {path} cannot be read ({exc.strerror}).") from None
     headers: list[StreamHeader] = []
-    with path.open("rb") as f:
-        if f.read(len(XDF_MAGIC)) != XDF_MAGIC:
-            raise RecordingError(f"{path} is not an XDF recording (it does not start with 'XDF:').")
-        pos = len(XDF_MAGIC)
-        while pos < size:
-            width_byte = f.read(1)
-            if not width_byte or width_byte[0] not in VARLEN_WIDTHS:
-                break  # damage: read_recording names it; the headers before it are used
-            width = width_byte[0]
-            raw = f.read(width)
-            tag_raw = f.read(2)
-            if len(raw) < width or len(tag_raw) < 2:
-                break
-            length = struct.unpack(VARLEN_WIDTHS[width], raw)[0]
-            tag = struct.unpack("<H", tag_raw)[0]
-            if tag == TAG_STREAM_HEADER and length - 2 <= MAX_HEADER_BYTES:
-                content = f.read(length - 2)
-                try:
-                    headers.append(_parse_header(content))
-                except (ElementTree.ParseError, struct.error) as exc:
-                    raise RecordingError(
-                        f"a stream header at byte {pos} of {path} cannot be read ({exc})."
-                    ) from None
-            pos += 1 + width + length
-            f.seek(pos)
+    for pos, content in chunks:
+        try:
+            headers.append(_parse_header(content))
+        except (ElementTree.ParseError, struct.error) as exc:
+            raise RecordingError(
+                f"a stream header at byte {pos} of {path} cannot be read ({exc})."
+            ) from None
     return headers
 
 

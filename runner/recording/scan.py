@@ -40,6 +40,7 @@ __all__ = [
     "Select",
     "XdfScan",
     "scan_xdf",
+    "stream_header_chunks",
 ]
 
 XDF_MAGIC = b"XDF:"
@@ -49,6 +50,7 @@ TAG_SAMPLES = 3
 TAG_CLOCK_OFFSET = 4
 TAG_BOUNDARY = 5
 TAG_STREAM_FOOTER = 6
+TAG_BYTES = 2
 STREAM_TAGS = (TAG_STREAM_HEADER, TAG_SAMPLES, TAG_CLOCK_OFFSET, TAG_STREAM_FOOTER)
 KNOWN_TAGS = frozenset({1, 2, 3, 4, 5, 6})
 VARLEN_WIDTHS = (1, 4, 8)
@@ -262,6 +264,52 @@ def _read_varlen(f: BinaryIO) -> int:
     if len(raw) < struct.calcsize(size):
         raise XdfFormatError("the file ends inside a length")
     return int(struct.unpack(size, raw)[0])
+
+
+#: A StreamHeader chunk larger than this is skipped by :func:`stream_header_chunks` (a header is
+#: XML of a few kilobytes; anything this size is damage).
+MAX_HEADER_BYTES = 16 * 1024 * 1024
+
+
+def stream_header_chunks(path: Path) -> list[tuple[int, bytes]]:
+    """Byte position and content of every StreamHeader chunk, in file order, reading no samples.
+
+    Only the chunk framing is walked (a seek per chunk), so listing the streams of a large
+    recording reads a few kilobytes. The walk stops quietly at the first damaged chunk: the
+    headers before it are returned, and :func:`scan_xdf` names the damage when the samples are
+    read. The content starts with the stream id (little-endian uint32), then the header's XML.
+
+    Raises
+    ------
+    XdfFormatError
+        The file does not start with ``XDF:``.
+    OSError
+        The file cannot be opened or read.
+    """
+    size = path.stat().st_size
+    chunks: list[tuple[int, bytes]] = []
+    with path.open("rb") as f:
+        if f.read(len(XDF_MAGIC)) != XDF_MAGIC:
+            raise XdfFormatError("it does not start with 'XDF:'")
+        pos = len(XDF_MAGIC)
+        while pos < size:
+            try:
+                length = _read_varlen(f)
+            except (EOFError, XdfFormatError):
+                break
+            tag_raw = f.read(TAG_BYTES)
+            if len(tag_raw) < TAG_BYTES:
+                break
+            tag = struct.unpack("<H", tag_raw)[0]
+            end = f.tell() + length - TAG_BYTES
+            if tag == TAG_STREAM_HEADER and length - TAG_BYTES <= MAX_HEADER_BYTES:
+                content = f.read(length - TAG_BYTES)
+                if len(content) < length - TAG_BYTES:
+                    break
+                chunks.append((pos, content))
+            pos = end
+            f.seek(pos)
+    return chunks
 
 
 def _varlen_from(buf: bytes | memoryview, pos: int) -> tuple[int, int]:

@@ -276,3 +276,41 @@ def test_samples_gathered_across_many_blocks_match_pyxdf(tmp_path, monkeypatch):
         as32.channel(2, 3), ref[2]["time_series"][:, 3].astype(np.float32)
     )
     assert as32.channel(2, 1).dtype == np.float32
+
+
+def test_stream_header_chunks_find_the_headers_pyxdf_reads(tmp_path):
+    """Listing the headers reads the same streams as pyxdf, also from a file cut near its end.
+
+    Source: pyxdf.load_xdf's ``info`` of each stream (stream id, name, type) on the same files.
+    """
+    from runner.recording.scan import XdfFormatError, stream_header_chunks
+
+    rng = np.random.default_rng(8)
+    eeg = FixtureStream(2, "amp", "EEG", "float32", 500.0, _regular(99.0, 5000, 500.0),
+                        rng.normal(size=(5000, 4)), clock_offsets=[(99.0, 0.25), (105.0, 0.25)])  # fmt: skip
+    ecg = FixtureStream(3, "heart", "ECG", "double64", 250.0, _regular(99.0, 2500, 250.0),
+                        rng.normal(size=(2500, 1)))  # fmt: skip
+    path = write_xdf(tmp_path / "three.xdf", [_markers(), eeg, ecg], chunk_samples=50)
+    full = path.read_bytes()
+    cut = tmp_path / "cut.xdf"
+    cut.write_bytes(full[: int(len(full) * 0.9)])
+    for f in (path, cut):
+        ref = (
+            _pyxdf(f)
+            if f == path
+            else {s.stream_id: None for s in read_recording(f, allow_truncated=True).streams}
+        )
+        chunks = stream_header_chunks(f)
+        ids = [struct.unpack("<I", content[:4])[0] for _, content in chunks]
+        assert ids == sorted(ref)
+        for pos, _content in chunks:
+            assert full[pos + 1 + full[pos] : pos + 3 + full[pos]] == b"\x02\x00"  # the header tag
+        if f == path:
+            for sid, (_, content) in zip(ids, chunks, strict=True):
+                xml = content[4:].decode()
+                assert f"<name>{ref[sid]['info']['name'][0]}</name>" in xml
+                assert f"<type>{ref[sid]['info']['type'][0]}</type>" in xml
+    not_xdf = tmp_path / "not.xdf"
+    not_xdf.write_bytes(b"JUNK" + full[4:100])
+    with pytest.raises(XdfFormatError):
+        stream_header_chunks(not_xdf)
