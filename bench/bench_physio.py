@@ -7,7 +7,7 @@ The session journal is written like bench/bench_export.py's (runner's Journal cl
 event structure, 300 trials, about an hour); its recording is simulated by
 :func:`runner.physio.synth.simulate_recording` (invented signals), padded to at least an hour.
 Neither is timed. Then ``trialdeck physio`` runs in a child process (figures included); its wall
-time and the child's peak resident memory (``ru_maxrss``) are printed. With ``--sessions N`` the
+time and the child's own peak resident memory (``VmHWM``) are printed. With ``--sessions N`` the
 same session and recording are processed N times in J worker processes
 (:func:`runner.physio.pipeline.run_sessions`, without figures).
 """
@@ -42,18 +42,39 @@ SETTINGS = SynthSettings(
 )
 
 
+# The child's own high-water mark (VmHWM of /proc/self/status), as bench_alignment.py measures it:
+# ru_maxrss of a child carries this script's peak (writing the recording) across fork and exec.
+PEAK_CODE = (
+    "import sys\n"
+    "from runner.cli import main\n"
+    "try:\n"
+    "    rc = main(sys.argv[1:])\n"
+    "finally:\n"
+    "    with open('/proc/self/status') as f:\n"
+    "        kb = next(int(x.split()[1]) for x in f if x.startswith('VmHWM'))\n"
+    "    print('PEAK_KB', kb, file=sys.stderr)\n"
+    "sys.exit(rc)\n"
+)
+
+
 def _run(args: list[str]) -> tuple[float, float, float]:
-    """Wall seconds, CPU seconds and peak RSS (GB) of ``trialdeck`` with ``args`` in a child
-    process (CPU and peak include its worker processes)."""
+    """Wall seconds, CPU seconds and peak memory (GB, the child's own VmHWM) of ``trialdeck``
+    with ``args`` in a child process (CPU includes its worker processes)."""
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
-    subprocess.run(
-        [sys.executable, "-m", "runner", *args], check=True, cwd=REPO, stdout=subprocess.DEVNULL
+    done = subprocess.run(
+        [sys.executable, "-c", PEAK_CODE, *args],
+        check=True,
+        cwd=REPO,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     wall = time.perf_counter() - start
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
     cpu = (after.ru_utime + after.ru_stime) - (before.ru_utime + before.ru_stime)
-    return wall, cpu, after.ru_maxrss / 1024**2
+    kb = next(int(x.split()[1]) for x in done.stderr.splitlines() if x.startswith("PEAK_KB"))
+    return wall, cpu, kb / 1024**2
 
 
 def main() -> None:
