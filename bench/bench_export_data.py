@@ -8,7 +8,7 @@ the session's markers on a recorder clock three hours ahead drifting by 20 ppm. 
 holds EEG of the given channel count at 1 kHz (float32, stamped per 50-sample chunk with arrival
 jitter, channel labels and units in its header), an eye tracker at 500 Hz (left gaze x and y and
 pupil diameter, float32) and ECG at 1 kHz (float64). Then `export --recording --with-data` runs in
-a fresh process, timed, with its peak memory (ru_maxrss). No target is set by the issue for this
+a fresh process, timed, with its own peak memory (VmHWM, as bench_alignment.timed measures it). No target is set by the issue for this
 command; the figures are reported in docs/performance.md.
 """
 
