@@ -5,7 +5,8 @@
   measures, units in the column names;
 * ``physio_blocks.csv``: one row per block, rest and break with its heart rate and HRV;
 * ``physio_trials.json`` and ``physio_blocks.json``: every column with ``Description``,
-  ``Units`` and ``Kind`` (``key``, ``trial``, ``measure`` or ``flag``);
+  ``Units`` and ``Kind`` (``key``, ``trial``, ``measure``, ``quality`` or ``flag``; the
+  pilot report relates only ``measure`` columns to difficulty);
 * ``qa/``: the per-session PNGs.
 
 The folder follows the output rules of :mod:`runner.contract.outputs` (an existing folder that is
@@ -98,10 +99,10 @@ def _measure_columns(unit: str, eeg_columns: Sequence[str]) -> dict[str, Column]
         ),
         "pupil_window_ms": Column("Length of the pupil stimulus window.", "ms", "trial"),
         "pupil_valid_share": Column(
-            "Share of samples in the window that were valid as recorded (0..1).", "", "measure"
+            "Share of samples in the window that were valid as recorded (0..1).", "", "quality"
         ),
         "pupil_interpolated_share": Column(
-            "Share of samples in the window filled in across blinks (0..1).", "", "measure"
+            "Share of samples in the window filled in across blinks (0..1).", "", "quality"
         ),
         "pupil_flags": Column(
             "Why pupil measures are empty or doubtful (';'-separated; empty when fine).", "", "flag"
@@ -125,6 +126,13 @@ def _measure_columns(unit: str, eeg_columns: Sequence[str]) -> dict[str, Column]
             for name in eeg_columns
         },
         "eeg_kept": Column("1 when the trial's EEG epoch passed rejection.", "", "flag"),
+        "valid": Column(
+            "1 when every per-trial measure computed for the session (pupil, heart rate, EEG) "
+            "gave its value without a flag, else 0; the protocol's "
+            "exclusions.physio_valid_share_below rule counts these.",
+            "",
+            "flag",
+        ),
         "eeg_flags": Column(
             "Why the EEG epoch was dropped (';'-separated; empty when kept).", "", "flag"
         ),

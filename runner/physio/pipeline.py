@@ -213,6 +213,7 @@ def process_session(job: SessionJob) -> SessionResult:
         qa["eeg"] = _eeg(result, times, signals["eeg"], config)
     if "photodiode" in signals:
         _photodiode(result, times, signals["photodiode"])
+    _mark_valid(result)
     if job.figures is not None:
         from runner.physio.figures import session_figures
 
@@ -229,6 +230,23 @@ def _base_row(participant: str, session: str, t: TrialTimes) -> dict[str, Any]:
         elif key not in row:
             row[key] = value
     return row
+
+
+def _mark_valid(result: SessionResult) -> None:
+    """``valid`` per trial: every per-trial measure computed gave its value without a flag.
+
+    Pupil counts when ``pupil_flags`` is empty, heart rate when ``hr_flags`` is empty, EEG when
+    ``eeg_kept`` is 1; a trial with none of them computed is not valid.
+    """
+    for row in result.trials:
+        checks = []
+        if "pupil_flags" in row:
+            checks.append(not row["pupil_flags"])
+        if "hr_flags" in row:
+            checks.append(not row["hr_flags"])
+        if "eeg_kept" in row:
+            checks.append(row["eeg_kept"] == 1)
+        row["valid"] = int(bool(checks) and all(checks))
 
 
 def _condition_factor(session: Any) -> str | None:

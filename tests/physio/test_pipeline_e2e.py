@@ -104,9 +104,20 @@ def test_sidecars_describe_every_column(piloted):
         assert list(side) == header
         for col in side.values():
             assert set(col) == {"Description", "Units", "Kind"}
-            assert col["Kind"] in {"key", "trial", "measure", "flag"}
+            assert col["Kind"] in {"key", "trial", "measure", "quality", "flag"}
     kinds = json.loads((out / "physio_trials.json").read_text(encoding="utf-8"))
     assert kinds["pupil_mean_change_mm"]["Kind"] == "measure"
+    assert kinds["pupil_valid_share"]["Kind"] == "quality"
+    for row in _rows(out / "physio_trials.csv"):
+        fine = not row["pupil_flags"] and not row["hr_flags"] and row["eeg_kept"] == "1"
+        assert row["valid"] == ("1" if fine else "0")
+    # The protocol's physio_valid_share_below rule reads the same column.
+    import pandas as pd
+
+    from runner.data.exclusions import physio_validity
+
+    table = pd.read_csv(out / "physio_trials.csv", dtype={"participant": str, "session": str})
+    assert physio_validity(table) == {("P01", "1"): pytest.approx(table["valid"].mean())}
     assert sorted(p.name for p in (out / "qa").iterdir()) == [
         "sub-P01_ses-1_ecg.png",
         "sub-P01_ses-1_eeg.png",
