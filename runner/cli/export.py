@@ -117,6 +117,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 def run(args: argparse.Namespace) -> int:
     """Export, then print what was written; exit 0."""
+    from runner.data.summary_report import count
+
     check_photodiode(args.photodiode, args.recording)
     if args.sample and not args.recording:
         raise UsageError(
@@ -157,12 +159,15 @@ def run(args: argparse.Namespace) -> int:
         physio=read_physio(args.physio),
         with_data=data,
     )
-    print(f"Exported {len(result.sessions)} session(s), {result.n_trials} completed trial(s).")
+    print(
+        f"Exported {count(len(result.sessions), 'session')}, "
+        f"{count(result.n_trials, 'completed trial')}."
+    )
     if args.copy_stimuli:
         from runner.data.bids import copy_stimuli
 
         copied = copy_stimuli(result.sessions, Path(args.out), stimuli_dir=args.stimuli_dir)
-        print(f"Copied {len(copied)} stimulus file(s) into {Path(args.out) / 'stimuli'}.")
+        print(f"Copied {count(len(copied), 'stimulus file')} into {Path(args.out) / 'stimuli'}.")
     print(f"Pooled trials table: {result.pooled}")
     for line in exclusion_lines(result.excluded):
         print(line)

@@ -79,6 +79,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Compute, write the tables, print what was written; exit 0."""
     from runner.contract.layout import JOURNAL_NAME
+    from runner.data.summary_report import count
     from runner.physio.config import load_config
     from runner.physio.outputs import FIGURES_FOLDER, prepare, write_tables
     from runner.physio.pipeline import SessionJob, check_distinct, check_pairs, run_sessions
@@ -117,7 +118,8 @@ def run(args: argparse.Namespace) -> int:
         results.append(result)
         streams = ", ".join(f"{k} {v}" for k, v in result.streams.items()) or "none"
         print(
-            f"{result.folder}: {len(result.trials)} trial(s), {len(result.periods)} period(s); "
+            f"{result.folder}: {count(len(result.trials), 'trial')}, "
+            f"{count(len(result.periods), 'period')}; "
             f"streams: {streams}"
         )
         for note in result.notes:

@@ -44,6 +44,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     """Write the summary, then print what was read and written; exit 0."""
     from runner.data.summarize import summarize_sessions
+    from runner.data.summary_report import count
 
     done = summarize_sessions(
         args.sessions,
@@ -57,9 +58,9 @@ def run(args: argparse.Namespace) -> int:
     for line in exclusion_lines(done.excluded):
         print(line)
     print(
-        f"Summarised {done.n_sessions} session(s), {done.n_trials} trial(s), by "
+        f"Summarised {count(done.n_sessions, 'session')}, {count(done.n_trials, 'trial')}, by "
         + (", ".join(done.factors) if done.factors else "no factor")
         + "."
     )
-    print(f"Wrote {len(done.paths)} file(s) to {args.out}; the report is {done.paths[-1]}")
+    print(f"Wrote {count(len(done.paths), 'file')} to {args.out}; the report is {done.paths[-1]}")
     return EXIT_OK

@@ -319,7 +319,7 @@ def test_export_command_prints_what_it_wrote(pilots, tmp_path, capsys):
     args = parser.parse_args([str(pilots), "--out", str(tmp_path / "e"), "--datatype", "eeg"])
     assert run_export(args) == 0
     text = capsys.readouterr().out
-    assert "Exported 5 session(s)" in text and text.count("_events.tsv") == 5
+    assert "Exported 5 sessions" in text and text.count("_events.tsv") == 5
     assert len(list((tmp_path / "e").glob("sub-*/ses-*/eeg/*_events.tsv"))) == 5
 
 
