@@ -10,9 +10,25 @@ from __future__ import annotations
 import json
 from typing import Any
 
+#: The marked events of one trial's screens, in the order a trial can reach them (physio windows
+#: start and end at these).
+TRIAL_EVENTS = (
+    "fixation_onset",
+    "stimulus_onset",
+    "decision",
+    "stimulus_offset",
+    "answer_onset",
+    "answer",
+    "rating_onset",
+    "rating",
+    "feedback_onset",
+    "gap_onset",
+)
+
 # Events that are sent as markers as well as journaled.
 MARKED_EVENTS = frozenset(
     {
+        *TRIAL_EVENTS,
         "session_start",
         "session_end",
         "session_resume",
@@ -26,16 +42,6 @@ MARKED_EVENTS = frozenset(
         "break_end",
         "pause_start",
         "pause_end",
-        "fixation_onset",
-        "stimulus_onset",
-        "decision",
-        "stimulus_offset",
-        "answer_onset",
-        "answer",
-        "rating_onset",
-        "rating",
-        "feedback_onset",
-        "gap_onset",
         "abort",
     }
 )

@@ -21,6 +21,9 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
 
+# The journaled trial events a window may start or end at.
+from runner.contract.events import TRIAL_EVENTS
+
 __all__ = [
     "TRIAL_EVENTS",
     "CardiacConfig",
@@ -33,19 +36,6 @@ __all__ = [
     "load_config",
 ]
 
-#: Journaled trial events a window may start or end at (runner.contract.events).
-TRIAL_EVENTS = (
-    "fixation_onset",
-    "stimulus_onset",
-    "decision",
-    "stimulus_offset",
-    "answer_onset",
-    "answer",
-    "rating_onset",
-    "rating",
-    "feedback_onset",
-    "gap_onset",
-)
 TrialEvent = Literal[
     "fixation_onset",
     "stimulus_onset",
