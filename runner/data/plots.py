@@ -53,7 +53,7 @@ DARK_CELL_LUMINANCE = 0.3
 RATING_SHADE_STEP = 0.1
 
 # Keys are matplotlib rc names (typed by matplotlib as literal names).
-_STYLE: dict[Any, Any] = {
+STYLE: dict[Any, Any] = {
     "font.size": 9.5,
     "axes.titlesize": 11,
     "axes.titleweight": "bold",
@@ -72,7 +72,7 @@ _STYLE: dict[Any, Any] = {
 
 @contextmanager
 def _style() -> Iterator[None]:
-    with mpl.rc_context(_STYLE):
+    with mpl.rc_context(STYLE):
         yield
 
 

@@ -21,7 +21,7 @@ from matplotlib.figure import Figure
 
 from runner.contract.columns import level_key
 from runner.contract.outputs import ensure_folder
-from runner.data.plots import ACCENT, DPI, GRID, INK, MUTED_INK, save_png
+from runner.data.plots import ACCENT, DPI, GRID, INK, MUTED_INK, STYLE, save_png
 from runner.physio.pipeline import SessionResult
 
 __all__ = ["session_figures"]
@@ -29,21 +29,6 @@ __all__ = ["session_figures"]
 STRIP_S = 10.0  # length of the ECG check strip
 FIG_SIZE_IN = (7.2, 4.3)
 LEVEL_COLOURS = ("#2E6B9E", "#C8651B", "#5B8C3A", "#8E5BA8", "#B8860B", "#3F8F8F", "#A23B3B")
-STYLE: dict[Any, Any] = {
-    "font.size": 9.5,
-    "axes.titlesize": 11,
-    "axes.titleweight": "bold",
-    "axes.titlelocation": "left",
-    "axes.labelsize": 10,
-    "axes.edgecolor": MUTED_INK,
-    "axes.labelcolor": INK,
-    "axes.spines.top": False,
-    "axes.spines.right": False,
-    "xtick.color": INK,
-    "ytick.color": INK,
-    "text.color": INK,
-    "legend.frameon": False,
-}
 
 
 def _figure(rows: int = 1, size: tuple[float, float] = FIG_SIZE_IN) -> tuple[Figure, Any]:

@@ -300,3 +300,14 @@ def test_physio_read_follows_a_clock_reset_like_pyxdf(tmp_path):
     signal = signals_from(rec, wanted)["pupil"]
     assert signal.data.dtype == np.float32
     np.testing.assert_array_equal(signal.data[:, 0], by_name["eye"]["time_series"][:, 1])
+
+
+def test_window_events_are_the_contract_trial_events():
+    """The config's typed event names are exactly the contract's list of a trial's marked events."""
+    import typing
+
+    from runner.contract.events import MARKED_EVENTS, TRIAL_EVENTS
+    from runner.physio.config import TrialEvent
+
+    assert typing.get_args(TrialEvent) == TRIAL_EVENTS
+    assert set(TRIAL_EVENTS) <= MARKED_EVENTS
