@@ -69,12 +69,14 @@ def stretch_journal(folder: Path, minutes: float, out: Path) -> Path:
     return dest
 
 
-def write_recording(folder: Path, path: Path, channels: int) -> None:
-    from xdfwrite import FixtureStream, write_xdf
+def marker_fixture(folder: Path) -> tuple[list[dict], object, object, float, float]:
+    """The journal's records, its marker stream on the drifting recorder clock (a fixture
+    stream), the presenter-to-recorder clock mapping, and the recorder times 5 s before the first
+    and after the last marker (the span the other streams cover)."""
+    from xdfwrite import FixtureStream
 
     records = [json.loads(x) for x in (folder / "journal.jsonl").read_text().splitlines()]
     markers = [(r["marker"], r["t"]) for r in records if "marker" in r]
-    flips = [(r["t"], bool(r.get("photodiode"))) for r in records if r["event"] == "flip"]
     lo, hi = markers[0][1], markers[-1][1]
     info = records[0]["markers"]
 
@@ -86,7 +88,14 @@ def write_recording(folder: Path, path: Path, channels: int) -> None:
         source_id=info["source_id"], created_at=lo - 10,
         clock_offsets=[(t, rec(t) - t) for t in np.linspace(lo - 5, hi + 5, 200)],
     )  # fmt: skip
-    start, stop = rec(lo) - 5.0, rec(hi) + 5.0
+    return records, mk, rec, rec(lo) - 5.0, rec(hi) + 5.0
+
+
+def write_recording(folder: Path, path: Path, channels: int) -> None:
+    from xdfwrite import FixtureStream, write_xdf
+
+    records, mk, rec, start, stop = marker_fixture(folder)
+    flips = [(r["t"], bool(r.get("photodiode"))) for r in records if r["event"] == "flip"]
     n = int((stop - start) * SRATE)
     rng = np.random.default_rng(1)
     true = start + np.arange(n) / SRATE

@@ -15,7 +15,6 @@ command; the figures are reported in docs/performance.md.
 from __future__ import annotations
 
 import argparse
-import json
 import os
 import sys
 import tempfile
@@ -32,7 +31,7 @@ os.environ.setdefault("SDL_VIDEODRIVER", "dummy")
 os.environ.setdefault("SDL_AUDIODRIVER", "dummy")
 os.environ.setdefault("PYGAME_HIDE_SUPPORT_PROMPT", "1")
 
-from bench_alignment import DRIFT, OFFSET_S, stretch_journal, timed  # noqa: E402
+from bench_alignment import marker_fixture, stretch_journal, timed  # noqa: E402
 from bench_audit import make_protocol, run_pilot  # noqa: E402
 
 EEG_SRATE = 1000.0
@@ -51,20 +50,7 @@ def _channels(labels: list[str], unit: str, kind: str) -> str:
 def write_recording(folder: Path, path: Path, channels: int) -> None:
     from xdfwrite import FixtureStream, write_xdf
 
-    records = [json.loads(x) for x in (folder / "journal.jsonl").read_text().splitlines()]
-    markers = [(r["marker"], r["t"]) for r in records if "marker" in r]
-    lo, hi = markers[0][1], markers[-1][1]
-    info = records[0]["markers"]
-
-    def rec(t):
-        return t + OFFSET_S + DRIFT * (t - lo)
-
-    mk = FixtureStream(
-        1, info["name"], "Markers", "string", 0.0, [t for _, t in markers], [p for p, _ in markers],
-        source_id=info["source_id"], created_at=lo - 10,
-        clock_offsets=[(t, rec(t) - t) for t in np.linspace(lo - 5, hi + 5, 200)],
-    )  # fmt: skip
-    start, stop = rec(lo) - 5.0, rec(hi) + 5.0
+    _records, mk, _rec, start, stop = marker_fixture(folder)
     rng = np.random.default_rng(1)
     n = int((stop - start) * EEG_SRATE)
     stamps = start + np.arange(n) / EEG_SRATE
